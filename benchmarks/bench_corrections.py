@@ -1,0 +1,86 @@
+"""Benchmark: single-band corrections per second, against numpy.interp and a naive root-finder.
+
+Run by hand: ``python benchmarks/bench_corrections.py``. Prints ratios
+against baselines measured in the same run; no timings are asserted in tests.
+
+Targets (issue 2): no slower than 3 x one numpy.interp over the same number
+of readings; at least 500 x faster than per-reading quadrature inside a
+root-finder; largest error against quadrature <= 0.01 K over 500-3000 degC.
+"""
+
+from __future__ import annotations
+
+import argparse
+import time
+
+import numpy as np
+from scipy.integrate import quad
+from scipy.optimize import brentq
+
+from firewatch.physics.bands import Band
+from firewatch.physics.corrections import correct_single_band
+from firewatch.physics.planck import planck_radiance
+from firewatch.physics.windows import Window
+
+
+def best_of(fn, repeat: int = 5) -> float:
+    times = []
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        fn()
+        times.append(time.perf_counter() - t0)
+    return min(times)
+
+
+def naive_correct(indicated_c: float, start_um: float, end_um: float, eps: float) -> float:
+    """Per reading: quadrature of Planck inside a root-finder, the way one would write it first."""
+
+    def signal(t_k: float) -> float:
+        return quad(lambda lam: planck_radiance(lam, t_k), start_um * 1e-6, end_um * 1e-6, epsrel=1e-12)[0]
+
+    measured = signal(indicated_c + 273.15)
+    return brentq(lambda t: eps * signal(t) - measured, 200.0, 4500.0, xtol=1e-9) - 273.15
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--readings", type=int, default=1_000_000)
+    parser.add_argument("--naive-sample", type=int, default=300)
+    args = parser.parse_args()
+    rng = np.random.default_rng(1)
+    band = Band(0.8, 1.1)
+    eps = 0.85
+    indicated = rng.uniform(500.0, 3000.0, args.readings)
+    correct_single_band(indicated[:10], band, eps)  # build the table outside the timing
+
+    log_t, log_s = band._table
+    xs = rng.uniform(log_s[0], log_s[-1], args.readings)
+    t_interp = best_of(lambda: np.interp(xs, log_s, log_t))
+    t_plain = best_of(lambda: correct_single_band(indicated, band, eps))
+    window = Window("fused-silica", fouling=0.9)
+    correct_single_band(indicated[:10], band, eps, window, background_c=400.0)
+    t_full = best_of(lambda: correct_single_band(indicated, band, eps, window, background_c=400.0))
+    t_unc = best_of(
+        lambda: correct_single_band(indicated, band, eps, emissivity_u=0.02, instrument_u_c=1.0, return_uncertainty=True),
+        repeat=3,
+    )
+
+    sample = indicated[: args.naive_sample]
+    t0 = time.perf_counter()
+    naive = np.array([naive_correct(float(x), 0.8, 1.1, eps) for x in sample])
+    t_naive_each = (time.perf_counter() - t0) / sample.size
+    fast = correct_single_band(sample, band, eps)
+    err = np.max(np.abs(fast - naive))
+
+    n = args.readings
+    print(f"readings: {n:,}")
+    print(f"numpy.interp baseline:             {t_interp * 1e3:8.1f} ms")
+    print(f"correct_single_band (gray, no bg): {t_plain * 1e3:8.1f} ms  {n / t_plain:,.0f}/s  ratio to interp {t_plain / t_interp:.2f} (target <= 3)")
+    print(f"  with window + background:        {t_full * 1e3:8.1f} ms  ratio to interp {t_full / t_interp:.2f}")
+    print(f"  with uncertainty:                {t_unc * 1e3:8.1f} ms  ratio to interp {t_unc / t_interp:.2f}")
+    print(f"naive quadrature+root per reading: {t_naive_each * 1e3:8.2f} ms  speed-up {t_naive_each * n / t_plain:,.0f} x (target >= 500)")
+    print(f"largest error vs quadrature, {sample.size} readings 500-3000 degC: {err:.2e} K (target <= 0.01)")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,73 @@
+"""The ``firewatch`` command line: one parser, subcommands imported only when run.
+
+Every subcommand module has ``add_parser(subparsers)`` and ``run(args)``;
+heavy imports (textual, scipy, the recorder) happen inside ``run`` so that
+``firewatch --help`` answers at once.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+from collections.abc import Sequence
+
+from . import __version__
+
+__all__ = ["main", "UsageError", "Parser"]
+
+#: subcommand name -> module under firewatch.commands
+COMMANDS: dict[str, str] = {
+    "calc": "calc",
+}
+
+CAUTION = (
+    "firewatch is a monitoring aid, never a safety device: the kiln's own controller "
+    "and an independent over-temperature cut-out stay in charge."
+)
+
+
+class UsageError(Exception):
+    """A bad command line: printed as one line, exit status 2."""
+
+
+class Parser(argparse.ArgumentParser):
+    """An argument parser whose errors are one line and exit status 2."""
+
+    def error(self, message: str) -> None:  # type: ignore[override]
+        sys.stderr.write(f"{self.prog}: {message} (see --help)\n")
+        raise SystemExit(2)
+
+
+def build_parser() -> Parser:
+    parser = Parser(
+        prog="firewatch",
+        description="Watch a kiln or furnace firing: thermocouples and pyrometers reconciled, "
+        "schedules followed, alarms with their likely cause, every reading recorded.",
+        epilog=CAUTION,
+    )
+    parser.add_argument("--version", action="version", version=f"firewatch {__version__}")
+    parser.add_argument("--debug", action="store_true", help="show a traceback on errors")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=Parser)
+    for name, module in COMMANDS.items():
+        importlib.import_module(f"firewatch.commands.{module}").add_parser(sub)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Run the command line; return the exit status."""
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if args.command is None:
+        parser.print_help()
+        return 2
+    module = importlib.import_module(f"firewatch.commands.{COMMANDS[args.command]}")
+    try:
+        return int(module.run(args) or 0)
+    except UsageError as exc:
+        sys.stderr.write(f"firewatch {args.command}: {exc}\n")
+        return 2
+    except KeyboardInterrupt:
+        return 130
+    except BrokenPipeError:
+        return 0

@@ -1,0 +1,426 @@
+"""Pyrometer corrections: single-band and ratio instruments, with uncertainty.
+
+Single band
+-----------
+An instrument with its own emissivity and transmission settings e_set,
+t_set reports the temperature T_ind for which the measured band signal
+equals e_set t_set S(T_ind); it does no background compensation. The scene
+gives
+
+    S_meas = f [e S_w(T) + (1 - e) S_w(T_bg)],
+
+with S_w the band signal through the clean window (the window's spectral
+transmission folded into the band, :meth:`Window.through`), f a gray factor
+(window fouling, or the whole transmission when it is given as a number)
+and T_bg the temperature of the surroundings that the ware reflects; with
+no background the reflected term is left out. :func:`correct_single_band`
+solves this for T with band integrals (through the band's inversion table);
+:func:`indicated_single_band` is its reverse, what the instrument would
+show. :func:`wien_single_band` is the narrow-band Wien check [DeWitt1988]_,
+
+    1/T = 1/T_ind + (lambda/c2) ln(e t / (e_set t_set)),
+
+a check, not the method.
+
+Ratio (two-colour)
+------------------
+The instrument forms R = S1/S2 of two bands and assumes an emissivity slope
+k_set = e1/e2; it reports T_ind with S1(T_ind)/S2(T_ind) = R/k_set. Gray
+factors cancel in R. :func:`correct_ratio` corrects to a slope k; the Wien
+check is 1/T = 1/T_ind + ln(k/k_set)/(c2 (1/lambda1 - 1/lambda2)).
+
+Uncertainty
+-----------
+With ``return_uncertainty=True`` the corrections also return the standard
+uncertainty of the corrected temperature, by first-order propagation
+[GUM2008]_ of the standard uncertainties of emissivity, transmission
+(relative to its effective value), background temperature and the
+instrument's own stated accuracy, with the sensitivities differentiated
+from the scene equation above.
+
+Input checking: emissivity and transmission settings outside (0, 1] and
+slopes <= 0 raise ``ValueError``; indicated temperatures outside the band
+table (200-4000 K) are a :class:`RangeError` for one value and NaN with an
+:class:`OutOfRangeWarning` for arrays; a reading below what the background
+alone would give is NaN with an :class:`OutOfRangeWarning`.
+
+References
+----------
+See ``DeWitt1988``, ``GUM2008`` and ``Planck1901`` in docs/references.md.
+"""
+
+from __future__ import annotations
+
+import warnings
+from typing import overload
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+
+from ._warnings import OutOfRangeWarning
+from .bands import Band, _flag_outside
+from .constants import C2, ZERO_CELSIUS
+from .windows import Window
+
+__all__ = [
+    "check_fraction",
+    "correct_single_band",
+    "indicated_single_band",
+    "correct_ratio",
+    "indicated_ratio",
+    "effective_transmission",
+    "wien_single_band",
+    "wien_ratio",
+]
+
+_DT = 0.25
+"""Half step, K, for slopes of ln S taken from the tables."""
+
+
+def check_fraction(value: ArrayLike, name: str) -> NDArray[np.float64]:
+    """Return ``value`` as an array, raising ``ValueError`` unless every element is in (0, 1]."""
+    v = np.asarray(value, dtype=float)
+    bad = ~((v > 0) & (v <= 1))
+    if np.any(bad):
+        raise ValueError(f"{name} must be in (0, 1], got {float(v[bad].ravel()[0])!r}")
+    return v
+
+
+def _check_uncertainty(value: ArrayLike, name: str) -> NDArray[np.float64]:
+    v = np.asarray(value, dtype=float)
+    if np.any(v < 0):
+        raise ValueError(f"{name} must be >= 0, got {float(v[v < 0].ravel()[0])!r}")
+    return v
+
+
+def _scene(band: Band, transmission: ArrayLike | Window) -> tuple[Band, NDArray[np.float64]]:
+    """The band as the scene is seen (window folded in) and the remaining gray factor."""
+    if isinstance(transmission, Window):
+        return transmission.through(band), np.asarray(float(transmission.fouling))
+    return band, check_fraction(transmission, "transmission")
+
+
+def _dlog(band: Band, t_k: NDArray[np.float64]) -> NDArray[np.float64]:
+    """d ln S / dT from the band table, 1/K."""
+    return (band.log_signal(t_k + _DT) - band.log_signal(t_k - _DT)) / (2 * _DT)
+
+
+def _to_kelvin(indicated_c: ArrayLike) -> NDArray[np.float64]:
+    return np.asarray(indicated_c, dtype=float) + ZERO_CELSIUS
+
+
+@overload
+def correct_single_band(
+    indicated_c: ArrayLike, band: Band, emissivity: ArrayLike, transmission: ArrayLike | Window = ...,
+    set_emissivity: ArrayLike = ..., set_transmission: ArrayLike = ..., background_c: ArrayLike | None = ...,
+    *, emissivity_u: ArrayLike = ..., transmission_u: ArrayLike = ..., instrument_u_c: ArrayLike = ...,
+    background_u_c: ArrayLike = ..., return_uncertainty: bool = ...,
+) -> NDArray[np.float64]: ...
+def correct_single_band(
+    indicated_c,
+    band,
+    emissivity,
+    transmission=1.0,
+    set_emissivity=1.0,
+    set_transmission=1.0,
+    background_c=None,
+    *,
+    emissivity_u=0.0,
+    transmission_u=0.0,
+    instrument_u_c=0.0,
+    background_u_c=0.0,
+    return_uncertainty=False,
+):
+    """True ware temperature from a single-band pyrometer's indicated temperature.
+
+    Parameters
+    ----------
+    indicated_c : array_like
+        What the instrument shows, degC.
+    band : Band
+        The instrument's band.
+    emissivity : array_like
+        The ware's emissivity in the band, (0, 1].
+    transmission : array_like or Window
+        The sight path's gray transmission (0, 1], or a :class:`Window`
+        whose spectral transmission is folded into the band.
+    set_emissivity, set_transmission : array_like
+        The instrument's own settings, (0, 1].
+    background_c : array_like, optional
+        Temperature of the surroundings the ware reflects, degC; ``None``
+        leaves the reflected term out.
+    emissivity_u, transmission_u : array_like
+        Standard uncertainties of the emissivity (absolute) and of the
+        effective transmission (absolute).
+    instrument_u_c, background_u_c : array_like
+        Standard uncertainties of the indicated and background temperatures, K.
+    return_uncertainty : bool
+        Also return the standard uncertainty of the result.
+
+    Returns
+    -------
+    numpy.ndarray or (numpy.ndarray, numpy.ndarray)
+        Corrected temperature in degC, and with ``return_uncertainty`` its
+        standard uncertainty in K.
+
+    Raises
+    ------
+    ValueError
+        Emissivity, transmission or settings outside (0, 1]; a negative
+        uncertainty; :class:`RangeError` for one indicated value outside the
+        band table.
+
+    Warns
+    -----
+    OutOfRangeWarning
+        Array readings outside the table, or below the background alone.
+
+    Notes
+    -----
+    ================ ====== =====================
+    quantity         unit   range
+    ================ ====== =====================
+    indicated_c      degC   -73..3727 (table)
+    emissivity       1      (0, 1]
+    background_c     degC   -73..3727
+    result           degC   -73..3727
+    ================ ====== =====================
+
+    References
+    ----------
+    [DeWitt1988]_ for the measurement equation; [GUM2008]_ for propagation.
+
+    Examples
+    --------
+    >>> band = Band(0.8, 1.1)
+    >>> round(float(correct_single_band(1000.0, band, 1.0)), 6)
+    1000.0
+    """
+    eps = check_fraction(emissivity, "emissivity")
+    e_set = check_fraction(set_emissivity, "set emissivity")
+    t_set = check_fraction(set_transmission, "set transmission")
+    scene_band, gray = _scene(band, transmission)
+    t_ind = _to_kelvin(indicated_c)
+    log_ind = band.log_signal(t_ind)
+    log_meas = log_ind + np.log(e_set * t_set)
+    s_bg = 0.0
+    if background_c is None:
+        log_scene = log_meas - np.log(gray) - np.log(eps)
+    else:
+        t_bg = _to_kelvin(background_c)
+        s_bg = np.exp(scene_band.log_signal(t_bg))
+        s_scene = (np.exp(log_meas) / gray - (1.0 - eps) * s_bg) / eps
+        below = ~(s_scene > 0) & ~np.isnan(s_scene)
+        if np.any(below):
+            warnings.warn(
+                f"{int(below.sum())} reading(s) lie below what the background alone would give; set to NaN",
+                OutOfRangeWarning,
+                stacklevel=2,
+            )
+        with np.errstate(divide="ignore", invalid="ignore"):
+            log_scene = np.log(np.where(below, np.nan, s_scene))
+    t = scene_band.temperature_from_log_signal(log_scene)
+    _flag_outside(t, log_scene, "indicated temperature (degC)", "what the band table covers (200..4000 K) once corrected", indicated_c)
+    if not return_uncertainty:
+        return t - ZERO_CELSIUS
+
+    u_eps = _check_uncertainty(emissivity_u, "emissivity uncertainty")
+    u_tau = _check_uncertainty(transmission_u, "transmission uncertainty")
+    u_ind = _check_uncertainty(instrument_u_c, "instrument uncertainty")
+    u_bg = _check_uncertainty(background_u_c, "background uncertainty")
+    s_t = np.exp(scene_band.log_signal(t))
+    ds_t = s_t * _dlog(scene_band, t)  # dS_w/dT at the corrected temperature
+    s_meas_gray = np.exp(log_meas) / gray
+    tau_eff = gray * s_t / np.exp(band.log_signal(t))
+    terms = [
+        (s_t - s_bg) / (eps * ds_t) * u_eps,
+        s_meas_gray / (eps * ds_t) * (u_tau / tau_eff),
+        s_meas_gray * _dlog(band, t_ind) / (eps * ds_t) * u_ind,
+    ]
+    if background_c is not None:
+        ds_bg = s_bg * _dlog(scene_band, t_bg)
+        terms.append((1.0 - eps) * ds_bg / (eps * ds_t) * u_bg)
+    u = np.sqrt(sum(np.square(x) for x in terms))
+    return t - ZERO_CELSIUS, u
+
+
+def effective_transmission(band: Band, transmission: ArrayLike | Window, temperature_c: ArrayLike) -> NDArray[np.float64]:
+    """Band-effective transmission at a target temperature (degC): the gray value, or a window's Planck-weighted value."""
+    scene_band, gray = _scene(band, transmission)
+    t = _to_kelvin(temperature_c)
+    if scene_band is band:
+        return np.broadcast_to(gray, np.broadcast_shapes(gray.shape, t.shape)).astype(float)
+    return gray * np.exp(scene_band.log_signal(t) - band.log_signal(t))
+
+
+def indicated_single_band(
+    true_c: ArrayLike,
+    band: Band,
+    emissivity: ArrayLike,
+    transmission: ArrayLike | Window = 1.0,
+    set_emissivity: ArrayLike = 1.0,
+    set_transmission: ArrayLike = 1.0,
+    background_c: ArrayLike | None = None,
+) -> NDArray[np.float64]:
+    """What a single-band instrument shows, degC, for ware at ``true_c``: the reverse of :func:`correct_single_band`.
+
+    References
+    ----------
+    [DeWitt1988]_ measurement equation (see the module notes).
+
+    Examples
+    --------
+    >>> round(float(indicated_single_band(1000.0, Band(0.8, 1.1), 0.8)), 2)
+    975.51
+    """
+    eps = check_fraction(emissivity, "emissivity")
+    e_set = check_fraction(set_emissivity, "set emissivity")
+    t_set = check_fraction(set_transmission, "set transmission")
+    scene_band, gray = _scene(band, transmission)
+    t = _to_kelvin(true_c)
+    s = eps * np.exp(scene_band.log_signal(t))
+    if background_c is not None:
+        s = s + (1.0 - eps) * np.exp(scene_band.log_signal(_to_kelvin(background_c)))
+    log_ind = np.log(gray * s) - np.log(e_set * t_set)
+    t_ind = band.temperature_from_log_signal(log_ind)
+    _flag_outside(t_ind, log_ind, "true temperature (degC)", "what the band table covers (200..4000 K) once seen by the instrument", true_c)
+    return t_ind - ZERO_CELSIUS
+
+
+def _ratio_table(band1: Band, band2: Band) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    log_t1, log_s1 = band1._table
+    _, log_s2 = band2._table
+    log_r = log_s1 - log_s2
+    if not np.all(np.diff(log_r) > 0):
+        raise ValueError(
+            f"ratio of {band1.name} to {band2.name} does not increase with temperature; "
+            "band 1 must be the shorter wavelength"
+        )
+    return log_t1, log_r
+
+
+def _check_slope(value: ArrayLike, name: str) -> NDArray[np.float64]:
+    v = np.asarray(value, dtype=float)
+    bad = ~(v > 0)
+    if np.any(bad):
+        raise ValueError(f"{name} must be > 0, got {float(v[bad].ravel()[0])!r}")
+    return v
+
+
+def _log_ratio(band1: Band, band2: Band, t_k: NDArray[np.float64]) -> NDArray[np.float64]:
+    return band1.log_signal(t_k) - band2.log_signal(t_k)
+
+
+def correct_ratio(
+    indicated_c,
+    band1,
+    band2,
+    slope,
+    set_slope=1.0,
+    *,
+    slope_u=0.0,
+    instrument_u_c=0.0,
+    return_uncertainty=False,
+):
+    """True ware temperature from a ratio pyrometer's indicated temperature.
+
+    Parameters
+    ----------
+    indicated_c : array_like
+        What the instrument shows, degC.
+    band1, band2 : Band
+        The two bands, band 1 the shorter wavelength.
+    slope : array_like
+        The ware's emissivity slope k = e1/e2 (> 0).
+    set_slope : array_like
+        The slope the instrument assumes (1 for a gray body).
+    slope_u : array_like
+        Standard uncertainty of the slope.
+    instrument_u_c : array_like
+        Standard uncertainty of the indicated temperature, K.
+    return_uncertainty : bool
+        Also return the standard uncertainty, K.
+
+    Returns
+    -------
+    numpy.ndarray or (numpy.ndarray, numpy.ndarray)
+        Corrected temperature, degC (and its standard uncertainty, K).
+
+    Raises
+    ------
+    ValueError
+        Slopes <= 0, or bands whose ratio does not rise with temperature.
+
+    Notes
+    -----
+    Gray factors (fouling, smoke, a partly filled field of view) multiply
+    both bands and cancel in the ratio, so they are no parameter here.
+
+    References
+    ----------
+    [DeWitt1988]_ two-colour thermometry.
+
+    Examples
+    --------
+    >>> b1, b2 = Band(0.75, 0.85), Band(0.95, 1.05)
+    >>> round(float(correct_ratio(1300.0, b1, b2, 1.0)), 6)
+    1300.0
+    """
+    k = _check_slope(slope, "slope")
+    k_set = _check_slope(set_slope, "set slope")
+    log_t, log_r = _ratio_table(band1, band2)
+    t_ind = _to_kelvin(indicated_c)
+    lr_ind = np.interp(np.log(t_ind), log_t, log_r, left=np.nan, right=np.nan)
+    _flag_outside(lr_ind, t_ind, "indicated temperature (K)", "200..4000 K")
+    lr = lr_ind + np.log(k_set) - np.log(k)
+    t = np.exp(np.interp(lr, log_r, log_t, left=np.nan, right=np.nan))
+    _flag_outside(t, lr, "indicated temperature (degC)", "what the band table covers (200..4000 K) once corrected", indicated_c)
+    if not return_uncertainty:
+        return t - ZERO_CELSIUS
+    u_k = _check_uncertainty(slope_u, "slope uncertainty")
+    u_ind = _check_uncertainty(instrument_u_c, "instrument uncertainty")
+    d_t = (_log_ratio(band1, band2, t + _DT) - _log_ratio(band1, band2, t - _DT)) / (2 * _DT)
+    d_ind = (_log_ratio(band1, band2, t_ind + _DT) - _log_ratio(band1, band2, t_ind - _DT)) / (2 * _DT)
+    u = np.sqrt((u_k / (k * d_t)) ** 2 + (d_ind / d_t * u_ind) ** 2)
+    return t - ZERO_CELSIUS, u
+
+
+def indicated_ratio(true_c: ArrayLike, band1: Band, band2: Band, slope: ArrayLike, set_slope: ArrayLike = 1.0) -> NDArray[np.float64]:
+    """What a ratio instrument shows, degC, for ware at ``true_c`` with slope ``slope``; the reverse of :func:`correct_ratio`."""
+    k = _check_slope(slope, "slope")
+    k_set = _check_slope(set_slope, "set slope")
+    log_t, log_r = _ratio_table(band1, band2)
+    t = _to_kelvin(true_c)
+    lr = np.interp(np.log(t), log_t, log_r, left=np.nan, right=np.nan) + np.log(k) - np.log(k_set)
+    t_ind = np.exp(np.interp(lr, log_r, log_t, left=np.nan, right=np.nan))
+    _flag_outside(t_ind, t, "true temperature (degC)", "what the band table covers (200..4000 K) once seen by the instrument", true_c)
+    return t_ind - ZERO_CELSIUS
+
+
+def wien_single_band(
+    indicated_k: ArrayLike, wavelength_m: float, emissivity: ArrayLike, transmission: ArrayLike = 1.0,
+    set_emissivity: ArrayLike = 1.0, set_transmission: ArrayLike = 1.0,
+) -> NDArray[np.float64]:
+    """Narrow-band Wien correction, K: 1/T = 1/T_ind + (lambda/c2) ln(e t/(e_set t_set)). A check only.
+
+    References
+    ----------
+    [DeWitt1988]_ Wien approximation of the measurement equation.
+    """
+    t_ind = np.asarray(indicated_k, dtype=float)
+    ratio = (check_fraction(emissivity, "emissivity") * check_fraction(transmission, "transmission")) / (
+        check_fraction(set_emissivity, "set emissivity") * check_fraction(set_transmission, "set transmission")
+    )
+    return 1.0 / (1.0 / t_ind + wavelength_m / C2 * np.log(ratio))
+
+
+def wien_ratio(indicated_k: ArrayLike, wavelength1_m: float, wavelength2_m: float, slope: ArrayLike, set_slope: ArrayLike = 1.0) -> NDArray[np.float64]:
+    """Wien ratio correction, K: 1/T = 1/T_ind + ln(k/k_set)/(c2 (1/lambda1 - 1/lambda2)). A check only.
+
+    References
+    ----------
+    [DeWitt1988]_ two-colour Wien approximation.
+    """
+    t_ind = np.asarray(indicated_k, dtype=float)
+    k = _check_slope(slope, "slope") / _check_slope(set_slope, "set slope")
+    return 1.0 / (1.0 / t_ind + np.log(k) / (C2 * (1.0 / wavelength1_m - 1.0 / wavelength2_m)))

@@ -1,0 +1,69 @@
+"""Radiation thermometry: Planck's law, instrument bands, windows and pyrometer corrections.
+
+The public face of :mod:`firewatch.physics.planck`, :mod:`~firewatch.physics.bands`,
+:mod:`~firewatch.physics.windows` and :mod:`~firewatch.physics.corrections`.
+
+>>> from firewatch.radiometry import Band, correct_single_band
+>>> round(float(correct_single_band(1200.0, Band(0.8, 1.1), emissivity=0.85)), 1)
+1224.5
+"""
+
+from __future__ import annotations
+
+from .physics._warnings import OutOfRangeWarning, RangeError
+from .physics.bands import Band, band_radiance
+from .physics.constants import C1L, C2, C2_ITS90, SIGMA, WIEN_B
+from .physics.corrections import (
+    correct_ratio,
+    correct_single_band,
+    effective_transmission,
+    indicated_ratio,
+    indicated_single_band,
+    wien_ratio,
+    wien_single_band,
+)
+from .physics.planck import (
+    blackbody_fraction,
+    planck_radiance,
+    rayleigh_jeans_radiance,
+    total_radiance,
+    wien_radiance,
+)
+from .physics.windows import (
+    MATERIALS,
+    Window,
+    band_effective_transmission,
+    refractive_index,
+    slab_transmission,
+    spectral_transmission,
+)
+
+__all__ = [
+    "Band",
+    "C1L",
+    "C2",
+    "C2_ITS90",
+    "MATERIALS",
+    "OutOfRangeWarning",
+    "RangeError",
+    "SIGMA",
+    "WIEN_B",
+    "Window",
+    "band_effective_transmission",
+    "band_radiance",
+    "blackbody_fraction",
+    "correct_ratio",
+    "correct_single_band",
+    "effective_transmission",
+    "indicated_ratio",
+    "indicated_single_band",
+    "planck_radiance",
+    "rayleigh_jeans_radiance",
+    "refractive_index",
+    "slab_transmission",
+    "spectral_transmission",
+    "total_radiance",
+    "wien_radiance",
+    "wien_ratio",
+    "wien_single_band",
+]
