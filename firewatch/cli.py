@@ -19,6 +19,11 @@ __all__ = ["main", "UsageError", "Parser"]
 #: subcommand name -> module under firewatch.commands
 COMMANDS: dict[str, str] = {
     "calc": "calc",
+    "sim": "sim",
+    "record": "record",
+    "check": "check",
+    "inspect": "inspect",
+    "export": "export",
 }
 
 CAUTION = (

@@ -96,7 +96,7 @@ def _check_uncertainty(value: ArrayLike, name: str) -> NDArray[np.float64]:
 def _scene(band: Band, transmission: ArrayLike | Window) -> tuple[Band, NDArray[np.float64]]:
     """The band as the scene is seen (window folded in) and the remaining gray factor."""
     if isinstance(transmission, Window):
-        return transmission.through(band), np.asarray(float(transmission.fouling))
+        return transmission.through(band), np.asarray(transmission.fouling, dtype=float)
     return band, check_fraction(transmission, "transmission")
 
 
@@ -385,13 +385,57 @@ def correct_ratio(
     return t - ZERO_CELSIUS, u
 
 
-def indicated_ratio(true_c: ArrayLike, band1: Band, band2: Band, slope: ArrayLike, set_slope: ArrayLike = 1.0) -> NDArray[np.float64]:
-    """What a ratio instrument shows, degC, for ware at ``true_c`` with slope ``slope``; the reverse of :func:`correct_ratio`."""
+def indicated_ratio(
+    true_c: ArrayLike,
+    band1: Band,
+    band2: Band,
+    slope: ArrayLike,
+    set_slope: ArrayLike = 1.0,
+    *,
+    emissivity: ArrayLike = 1.0,
+    transmission: ArrayLike | Window = 1.0,
+    background_c: ArrayLike | None = None,
+) -> NDArray[np.float64]:
+    """What a ratio instrument shows, degC, for ware at ``true_c``; without background the reverse of :func:`correct_ratio`.
+
+    Parameters
+    ----------
+    slope : array_like
+        The ware's emissivity slope k = e1/e2.
+    emissivity : array_like
+        The ware's emissivity in band 1, e1 (band 2's is e1/k); it matters
+        only with a background, since gray factors cancel in the ratio.
+    transmission : array_like or Window
+        The sight path; a window's spectral transmission differs between
+        the bands and biases the ratio like a slope.
+    background_c : array_like, optional
+        Temperature of the surroundings the ware reflects, degC.
+
+    References
+    ----------
+    [DeWitt1988]_ two-colour thermometry, with the reflected term of the
+    single-band measurement equation in each band.
+    """
     k = _check_slope(slope, "slope")
     k_set = _check_slope(set_slope, "set slope")
     log_t, log_r = _ratio_table(band1, band2)
     t = _to_kelvin(true_c)
-    lr = np.interp(np.log(t), log_t, log_r, left=np.nan, right=np.nan) + np.log(k) - np.log(k_set)
+    if background_c is None and not isinstance(transmission, Window):
+        lr = np.interp(np.log(t), log_t, log_r, left=np.nan, right=np.nan) + np.log(k) - np.log(k_set)
+    else:
+        e1 = check_fraction(emissivity, "emissivity")
+        e2 = e1 / k
+        if np.any(e2 > 1):
+            raise ValueError("emissivity divided by slope exceeds 1 in band 2")
+        scene1, gray = _scene(band1, transmission)
+        scene2, _ = _scene(band2, transmission)
+        s1 = e1 * np.exp(scene1.log_signal(t))
+        s2 = e2 * np.exp(scene2.log_signal(t))
+        if background_c is not None:
+            t_bg = _to_kelvin(background_c)
+            s1 = s1 + (1.0 - e1) * np.exp(scene1.log_signal(t_bg))
+            s2 = s2 + (1.0 - e2) * np.exp(scene2.log_signal(t_bg))
+        lr = np.log(s1) - np.log(s2) - np.log(k_set)
     t_ind = np.exp(np.interp(lr, log_r, log_t, left=np.nan, right=np.nan))
     _flag_outside(t_ind, t, "true temperature (degC)", "what the band table covers (200..4000 K) once seen by the instrument", true_c)
     return t_ind - ZERO_CELSIUS

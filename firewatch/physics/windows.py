@@ -42,6 +42,7 @@ See the keys above and ``BornWolf1999`` in docs/references.md.
 
 from __future__ import annotations
 
+import weakref
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -181,8 +182,9 @@ class Window:
     ----------
     material : str or WindowMaterial, optional
         The material model.
-    fouling : float
-        Gray factor for deposits, in (0, 1]; 1 for a clean window.
+    fouling : float or array_like
+        Gray factor for deposits, in (0, 1]; 1 for a clean window. An array
+        (one factor per reading) broadcasts against the readings.
     measured : tuple of arrays, optional
         ``(wavelength_um, transmission)`` measured on the window itself,
         which replaces the material model.
@@ -195,13 +197,15 @@ class Window:
     """
 
     material: WindowMaterial | str | None = None
-    fouling: float = 1.0
+    fouling: float | np.ndarray = 1.0
     measured: tuple[tuple[float, ...], tuple[float, ...]] | None = None
     _mat: WindowMaterial | None = field(init=False, repr=False, compare=False, default=None)
 
     def __post_init__(self) -> None:
-        if not (0.0 < float(self.fouling) <= 1.0):
-            raise ValueError(f"window fouling factor must be in (0, 1], got {self.fouling!r}")
+        fouling = np.asarray(self.fouling, dtype=float)
+        bad = ~((fouling > 0.0) & (fouling <= 1.0))
+        if np.any(bad):
+            raise ValueError(f"window fouling factor must be in (0, 1], got {float(fouling[bad].ravel()[0])!r}")
         if self.measured is not None:
             lam, tau = (tuple(float(v) for v in a) for a in self.measured)
             if len(lam) < 2 or len(lam) != len(tau) or any(b <= a for a, b in zip(lam, lam[1:])):
@@ -218,7 +222,10 @@ class Window:
     @property
     def name(self) -> str:
         base = "measured" if self.measured is not None else self._mat.name  # type: ignore[union-attr]
-        return base if self.fouling == 1.0 else f"{base} x{self.fouling:g}"
+        fouling = np.asarray(self.fouling)
+        if fouling.ndim or float(fouling) != 1.0:
+            return f"{base} x{float(fouling.mean()):g}" if fouling.ndim == 0 else f"{base}, fouled"
+        return base
 
     def clean_transmission(self, wavelength_m: ArrayLike) -> NDArray[np.float64]:
         """Spectral transmission of the clean window (no fouling)."""
@@ -229,12 +236,24 @@ class Window:
         return spectral_transmission(self._mat, lam)  # type: ignore[arg-type]
 
     def transmission(self, wavelength_m: ArrayLike) -> NDArray[np.float64]:
-        """Spectral transmission including fouling."""
+        """Spectral transmission including a scalar fouling factor."""
         return self.clean_transmission(wavelength_m) * float(self.fouling)
 
     def through(self, band: Band) -> Band:
-        """The band as seen through the clean window (fouling stays a separate gray factor)."""
-        return band.weighted(self.clean_transmission, name=f"{band.name} through {self.name}")
+        """The band as seen through the clean window (fouling stays a separate gray factor).
+
+        Cached per band and clean window, so that the windowed band's
+        inversion table is built once however many ``Window`` objects
+        (one per fouling state) are made.
+        """
+        key = (self._mat.name if self._mat is not None else None, self.measured)
+        per_band = _THROUGH.setdefault(band, {})
+        if key not in per_band:
+            per_band[key] = band.weighted(self.clean_transmission, name=f"{band.name} through {key[0] or 'measured window'}")
+        return per_band[key]
+
+
+_THROUGH: "weakref.WeakKeyDictionary[Band, dict[tuple, Band]]" = weakref.WeakKeyDictionary()
 
 
 def band_effective_transmission(band: Band, window: Window, temperature_k: ArrayLike) -> NDArray[np.float64]:
@@ -249,4 +268,4 @@ def band_effective_transmission(band: Band, window: Window, temperature_k: Array
     0.9343
     """
     t = check_temperature(temperature_k)
-    return window.through(band).signal(t) / band.signal(t) * float(window.fouling)
+    return window.through(band).signal(t) / band.signal(t) * np.asarray(window.fouling, dtype=float)

@@ -1,0 +1,32 @@
+"""Helpers shared by the commands that read firing logs."""
+
+from __future__ import annotations
+
+import datetime as dt
+
+from ..cli import UsageError
+
+__all__ = ["iso", "open_log", "duration_text"]
+
+
+def iso(t: float | None) -> str | None:
+    """UTC seconds as ISO 8601 with a Z, to the second (or None)."""
+    if t is None:
+        return None
+    return dt.datetime.fromtimestamp(t, dt.timezone.utc).isoformat(timespec="seconds").replace("+00:00", "Z")
+
+
+def duration_text(seconds: float) -> str:
+    seconds = int(round(seconds))
+    h, rem = divmod(seconds, 3600)
+    m, s = divmod(rem, 60)
+    return f"{h}:{m:02d}:{s:02d}"
+
+
+def open_log(path: str, option: str = "FILE.db"):
+    from ..firinglog import LogError, LogReader
+
+    try:
+        return LogReader(path)
+    except LogError as exc:
+        raise UsageError(f"{option}: {exc}") from None

@@ -1,0 +1,60 @@
+"""``firewatch record``: the recorder, headless, the firing log's only writer."""
+
+from __future__ import annotations
+
+import argparse
+
+from ..cli import UsageError
+from . import _args
+
+__all__ = ["add_parser", "run", "load_profiles"]
+
+
+def add_parser(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser(
+        "record",
+        help="record a firing from a serial line into a firing log",
+        description="Read the line, convert and reconcile, and write every reading to the firing log. "
+        "Leave it running under systemd, tmux or nohup; viewers come and go.",
+    )
+    p.add_argument("--port", required=True, metavar="URL", help="device path, socket://HOST:PORT, rfc2217://HOST:PORT or loop://")
+    p.add_argument("--site", help="site profile TOML (default: the demo site)")
+    p.add_argument("--schedule", help="schedule TOML (default: the demo glaze schedule)")
+    p.add_argument("--log", required=True, metavar="FILE.db", help="the firing log (continued if it exists)")
+    p.add_argument("--for", dest="seconds", type=_args.positive, metavar="SECONDS", help="stop after this long")
+    p.add_argument("--clock", choices=("wall", "device"), help="time readings on receipt or by the line's own time (default: the site profile's)")
+
+
+def load_profiles(site_path: str | None, schedule_path: str | None):
+    """The site and schedule, defaulting to the demo ones; UsageError names the bad option."""
+    from firewatch._tomlcheck import ProfileError
+    from firewatch.profile import load_site, profiles_dir
+    from firewatch.schedule import load_schedule
+
+    try:
+        site = load_site(site_path)
+    except ProfileError as exc:
+        raise UsageError(f"--site: {exc.problems[0]}" + (f" (and {len(exc.problems) - 1} more; see firewatch check)" if len(exc.problems) > 1 else "")) from None
+    try:
+        schedule = load_schedule(schedule_path or profiles_dir() / "demo-glaze.toml")
+    except ProfileError as exc:
+        raise UsageError(f"--schedule: {exc.problems[0]}" + (f" (and {len(exc.problems) - 1} more; see firewatch check)" if len(exc.problems) > 1 else "")) from None
+    return site, schedule
+
+
+def run(args: argparse.Namespace) -> int:
+    from pathlib import Path
+
+    from firewatch.firinglog import LogError
+    from firewatch.recorder import Recorder
+
+    site, schedule = load_profiles(args.site, args.schedule)
+    log = Path(args.log)
+    if not log.parent.exists():
+        raise UsageError(f"--log: directory {log.parent} does not exist")
+    recorder = Recorder(args.port, site, schedule, log, clock=args.clock, duration_s=args.seconds)
+    try:
+        recorder.run()
+    except LogError as exc:
+        raise UsageError(f"--log: {exc}") from None
+    return 0

@@ -1,0 +1,267 @@
+"""From parsed lines to what the firing log keeps: conversion, reconciliation, divergence.
+
+One :class:`Pipeline` is shared by the recorder, ``sim --to-log`` and
+``replay --headless`` so that all three compute the same thing. It works
+on batches (everything received since the last commit) so that the physics
+runs vectorised over each channel.
+
+Channels written for each batch
+-------------------------------
+======================= ======= ==============================================
+name                    unit    what
+======================= ======= ==============================================
+``<cj>``                degC    cold-junction sensor, as reported
+``<tc>``                degC    thermocouple, converted (ITS-90, compensated)
+``<tc>.rate``           degC/h  trailing least-squares rate of change
+``<py>``                degC    pyrometer as the instrument shows it
+``<py>.reconciled``     degC    corrected for emissivity, window, reflection
+``<py>.u``              K       standard uncertainty of the reconciled value
+``<py>.divergence``     K       reconciled minus the reference thermocouple
+``<py>.allowed``        K       k times the combined standard uncertainty
+======================= ======= ==============================================
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from .physics._warnings import FirewatchWarning
+from .physics.bands import Band
+from .physics.corrections import correct_ratio, correct_single_band
+from .physics.thermocouples import emf_to_temperature
+from .physics.tolerances import tolerance_uncertainty
+from .physics.windows import Window
+from .profile import Pyrometer, SiteProfile
+from .schedule import Schedule
+from .transport.records import Malformed, ReadingSet, Status
+from .trend import TrailingSlope
+
+__all__ = ["Batch", "Pipeline", "ChannelInfo", "channel_table"]
+
+
+@dataclass(frozen=True)
+class ChannelInfo:
+    """A channel of the firing log."""
+
+    name: str
+    kind: str
+    unit: str
+    source: str = ""
+    description: str = ""
+
+
+def channel_table(site: SiteProfile) -> list[ChannelInfo]:
+    """Every channel the pipeline writes for a site, in a stable order."""
+    out: list[ChannelInfo] = []
+    for cj in site.cold_junctions:
+        out.append(ChannelInfo(cj, "cold_junction", "C", cj, "cold-junction sensor"))
+    for tc in site.thermocouples:
+        out.append(ChannelInfo(tc.name, "thermocouple", "C", tc.name, f"type {tc.type} {tc.role} {tc.label}".strip()))
+        out.append(ChannelInfo(f"{tc.name}.rate", "derived", "C/h", tc.name, "rate of change"))
+    for py in site.pyrometers:
+        out.append(ChannelInfo(py.name, "pyrometer", "C", py.name, f"{py.kind} pyrometer as shown {py.label}".strip()))
+        out.append(ChannelInfo(f"{py.name}.reconciled", "derived", "C", py.name, "reconciled temperature"))
+        out.append(ChannelInfo(f"{py.name}.u", "derived", "K", py.name, "standard uncertainty of the reconciled temperature"))
+        if py.reference:
+            out.append(ChannelInfo(f"{py.name}.divergence", "derived", "K", py.name, f"reconciled minus {py.reference}"))
+            out.append(ChannelInfo(f"{py.name}.allowed", "derived", "K", py.name, "k x combined standard uncertainty"))
+    return out
+
+
+@dataclass
+class Batch:
+    """What one batch adds to the firing log.
+
+    ``raw`` holds every line (good or not) in arrival order;
+    ``samples`` one entry per good line with the index of its raw line;
+    ``values``/``status`` per channel, aligned with ``samples``.
+    """
+
+    raw: list[tuple[float, bytes, bool, str]] = field(default_factory=list)
+    samples: list[tuple[int, float, float, float | None, int | None]] = field(default_factory=list)
+    values: dict[str, np.ndarray] = field(default_factory=dict)
+    status: dict[str, np.ndarray] = field(default_factory=dict)
+    events: list[tuple[float, str, str | None, str]] = field(default_factory=list)
+
+    @property
+    def times(self) -> np.ndarray:
+        return np.array([s[1] for s in self.samples], dtype=float)
+
+    @property
+    def malformed(self) -> int:
+        return sum(1 for r in self.raw if not r[2])
+
+
+class Pipeline:
+    """Convert and reconcile batches of lines for one site.
+
+    Parameters
+    ----------
+    site : SiteProfile
+    schedule : Schedule, optional
+        For the alarm engine (issue 4).
+    clock : str
+        ``wall``: a reading's time is when it was received; ``device``: the
+        line's own time (falling back to receipt when a line has none).
+    """
+
+    def __init__(self, site: SiteProfile, schedule: Schedule | None = None, clock: str = "wall") -> None:
+        self.site = site
+        self.schedule = schedule
+        self.clock = clock
+        self.channels = channel_table(site)
+        base = site.path.parent if site.path else Path(".")
+        self._bands: dict[str, tuple[Band, Band | None]] = {}
+        for py in site.pyrometers:
+            if py.band_file:
+                path = Path(py.band_file)
+                band = Band.from_csv(path if path.is_absolute() else base / path)
+            else:
+                band = Band(*py.band_um)
+            band2 = Band(*py.band2_um) if py.kind == "ratio" and py.band2_um else None
+            self._bands[py.name] = (band, band2)
+        self._rates = {tc.name: TrailingSlope(site.alarms.rate_window_s) for tc in site.thermocouples}
+        self._last_t = -math.inf
+        self._fallback_noted: set[str] = set()
+
+    # -- parsing to arrays ------------------------------------------------------------
+    def process(self, items: list[ReadingSet | Malformed]) -> Batch:
+        batch = Batch()
+        sets: list[ReadingSet] = []
+        for item in items:
+            if isinstance(item, Malformed):
+                batch.raw.append((item.received, item.raw, False, item.reason))
+                batch.events.append((self._time_for(item.received, None), "malformed", None, item.reason))
+                continue
+            t = self._time_for(item.received, item.device_time)
+            if t < self._last_t:
+                reason = f"time went backwards by {self._last_t - t:.3f} s; line kept raw only"
+                batch.raw.append((item.received, item.raw, False, reason))
+                batch.events.append((self._last_t, "malformed", None, reason))
+                continue
+            self._last_t = t
+            batch.raw.append((item.received, item.raw, True, ""))
+            batch.samples.append((len(batch.raw) - 1, t, item.received, item.device_time, item.seq))
+            sets.append(item)
+        if sets:
+            self._compute(sets, batch)
+        return batch
+
+    def _time_for(self, received: float, device_time: float | None) -> float:
+        if self.clock == "device" and device_time is not None:
+            return device_time
+        return received
+
+    def _column(self, sets: list[ReadingSet], name: str) -> tuple[np.ndarray, np.ndarray, list[str]]:
+        values = np.full(len(sets), np.nan)
+        status = np.full(len(sets), int(Status.MISSING), dtype=np.int64)
+        units: list[str] = []
+        for i, s in enumerate(sets):
+            v = s.get(name)
+            if v is not None:
+                values[i] = v.value
+                status[i] = int(v.status)
+                units.append(v.unit)
+        return values, status, units
+
+    def _compute(self, sets: list[ReadingSet], batch: Batch) -> None:
+        site = self.site
+        times = np.array([s[1] for s in batch.samples[-len(sets):]])
+        out_v, out_s = batch.values, batch.status
+        for cj in site.cold_junctions:
+            out_v[cj], out_s[cj], _ = self._column(sets, cj)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", FirewatchWarning)  # out-of-range becomes a status below
+            for tc in site.thermocouples:
+                raw, status, units = self._column(sets, tc.name)
+                if tc.unit == "mV":
+                    if isinstance(tc.cold_junction, str):
+                        cold = out_v.get(tc.cold_junction, np.full(len(sets), np.nan))
+                        cold_ok = out_s.get(tc.cold_junction, np.zeros(len(sets), dtype=np.int64)) == Status.OK
+                        status = np.where((status == Status.OK) & ~cold_ok, int(Status.ERROR), status)
+                    else:
+                        cold = np.full(len(sets), float(tc.cold_junction))
+                    temp = emf_to_temperature(np.where(status == Status.OK, raw, np.nan), tc.type, np.nan_to_num(cold, nan=0.0))
+                else:
+                    temp = np.where(status == Status.OK, raw, np.nan)
+                bad = (status == Status.OK) & np.isnan(temp)
+                status = np.where(bad, int(Status.OUT_OF_RANGE), status)
+                out_v[tc.name], out_s[tc.name] = temp, status
+                rate = self._rates[tc.name].update(times, temp) * 3600.0
+                out_v[f"{tc.name}.rate"] = rate
+                out_s[f"{tc.name}.rate"] = np.where(np.isnan(rate), int(Status.MISSING), int(Status.OK))
+            for py in site.pyrometers:
+                self._pyrometer(py, sets, times, batch)
+
+    def _background(self, py: Pyrometer, batch: Batch, n: int) -> tuple[np.ndarray | None, np.ndarray]:
+        if py.background is None:
+            return None, np.zeros(n, dtype=bool)
+        if isinstance(py.background, float):
+            return np.full(n, py.background), np.zeros(n, dtype=bool)
+        bg = batch.values[py.background]
+        missing = ~np.isfinite(bg)
+        return bg, missing
+
+    def _pyrometer(self, py: Pyrometer, sets: list[ReadingSet], times: np.ndarray, batch: Batch) -> None:
+        n = len(sets)
+        shown, status, _ = self._column(sets, py.name)
+        band, band2 = self._bands[py.name]
+        ok = status == Status.OK
+        indicated = np.where(ok, shown, np.nan)
+        accuracy = np.maximum(py.accuracy_c, py.accuracy_percent / 100.0 * np.abs(np.nan_to_num(indicated))) / math.sqrt(3.0)
+        if py.kind == "ratio":
+            assert band2 is not None
+            reconciled, u = correct_ratio(
+                indicated, band, band2, py.slope, py.set_slope,
+                slope_u=py.slope_uncertainty, instrument_u_c=accuracy, return_uncertainty=True,
+            )
+        else:
+            path: float | Window = Window(py.window, fouling=py.fouling) if py.window else py.transmission
+            bg, missing = self._background(py, batch, n)
+            if bg is None:
+                reconciled, u = correct_single_band(
+                    indicated, band, py.emissivity, path, py.set_emissivity, py.set_transmission,
+                    emissivity_u=py.emissivity_uncertainty, transmission_u=py.transmission_uncertainty,
+                    instrument_u_c=accuracy, return_uncertainty=True,
+                )
+            else:
+                # Where the background thermocouple has no value, fall back to the
+                # cavity assumption (walls at the ware's temperature: the ware looks
+                # black), rather than lose the pyrometer when it is needed most.
+                bg_filled = np.where(missing, np.nan_to_num(indicated, nan=1000.0), bg)
+                eps = np.where(missing, 1.0, py.emissivity)
+                reconciled, u = correct_single_band(
+                    indicated, band, eps, path, py.set_emissivity, py.set_transmission, background_c=bg_filled,
+                    emissivity_u=np.where(missing, 0.0, py.emissivity_uncertainty),
+                    transmission_u=py.transmission_uncertainty, instrument_u_c=accuracy, return_uncertainty=True,
+                )
+                if missing.any() and py.name not in self._fallback_noted:
+                    self._fallback_noted.add(py.name)
+                    i = int(np.argmax(missing))
+                    batch.events.append((float(times[i]), "fallback", py.name, f"background {py.background} has no value; assuming the walls are at the ware's temperature"))
+                if not missing.any():
+                    self._fallback_noted.discard(py.name)
+        rec_status = np.where(ok & np.isfinite(reconciled), int(Status.OK), np.where(ok, int(Status.OUT_OF_RANGE), status))
+        batch.values[py.name], batch.status[py.name] = indicated, status
+        batch.values[f"{py.name}.reconciled"], batch.status[f"{py.name}.reconciled"] = reconciled, rec_status
+        batch.values[f"{py.name}.u"], batch.status[f"{py.name}.u"] = u, rec_status
+        if py.reference:
+            tc = self.site.thermocouple(py.reference)
+            assert tc is not None
+            ref = batch.values[tc.name]
+            rate_c_per_s = batch.values[f"{tc.name}.rate"] / 3600.0
+            u_tc = tolerance_uncertainty(tc.type, ref, tc.tolerance_class)
+            # outside its class's range, take 0.75 % of reading as the bound (common practice, no source)
+            u_tc = np.where(np.isnan(u_tc), 0.0075 * np.abs(ref) / math.sqrt(3.0), u_tc)
+            u_lag = tc.time_constant_s * np.abs(np.nan_to_num(rate_c_per_s))
+            divergence = reconciled - ref
+            allowed = self.site.alarms.divergence_k * np.sqrt(u**2 + u_tc**2 + u_lag**2)
+            both = (rec_status == Status.OK) & (batch.status[tc.name] == Status.OK)
+            st = np.where(both, int(Status.OK), int(Status.MISSING))
+            batch.values[f"{py.name}.divergence"], batch.status[f"{py.name}.divergence"] = np.where(both, divergence, np.nan), st
+            batch.values[f"{py.name}.allowed"], batch.status[f"{py.name}.allowed"] = np.where(both, allowed, np.nan), st

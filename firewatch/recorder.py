@@ -1,0 +1,258 @@
+"""The recorder: the headless process that reads the line and is the firing log's only writer.
+
+It survives viewers coming and going, SSH drops (SIGHUP is ignored) and
+serial loss (the port reader reconnects with backoff and the gap is
+recorded), commits at least once a second, and closes the firing cleanly
+on SIGTERM or Ctrl-C. Restarted on the same log it continues the firing
+and records the gap.
+"""
+
+from __future__ import annotations
+
+import queue
+import signal
+import sqlite3
+import sys
+import threading
+import time
+from collections.abc import Callable
+from pathlib import Path
+
+import numpy as np
+
+from .firinglog import LogWriter
+from .pipeline import Batch, Pipeline
+from .profile import SiteProfile
+from .schedule import Schedule
+from .transport.generic import ChannelMap, GenericParser
+from .transport.native import NativeParser
+from .transport.ports import PortEvent, PortReader, PortSettings
+from .transport.records import Malformed, ReadingSet
+
+__all__ = ["Ingest", "Recorder", "make_parser", "GAP_S", "SQLITE_WAL_FIX"]
+
+GAP_S = 5.0
+"""A silence longer than this between readings is recorded as a gap, seconds."""
+
+SQLITE_WAL_FIX = (3, 51, 3)
+"""First SQLite release without the WAL-reset bug (SQLite's documentation: 3.7.0 to 3.51.2)."""
+
+
+def make_parser(site: SiteProfile) -> NativeParser | GenericParser:
+    """The parser the site profile's ``[input]`` asks for."""
+    inp = site.input
+    if inp.format == "native":
+        return NativeParser()
+    g = inp.generic
+    maps = []
+    for channel, spec in (g.get("channels") or {}).items():
+        maps.append(
+            ChannelMap(
+                channel=channel,
+                field=str(spec.get("field", channel)),
+                unit=str(spec.get("unit", "C")),
+                scale=float(spec.get("scale", 1.0)),
+                offset=float(spec.get("offset", 0.0)),
+                open_tokens=tuple(spec.get("open", ["OPEN"])),
+                under_tokens=tuple(spec.get("under", ["UNDER"])),
+                over_tokens=tuple(spec.get("over", ["OVER"])),
+            )
+        )
+    return GenericParser(
+        format=inp.format,
+        channels=tuple(maps),
+        delimiter=str(g.get("delimiter", ",")),
+        columns=tuple(g.get("columns", ())),
+        time_field=g.get("time_field"),
+        pair_separator=g.get("pair_separator"),
+        kv_separator=str(g.get("kv_separator", "=")),
+    )
+
+
+class Ingest:
+    """Lines to the firing log: parse, run the pipeline, find gaps, write. Shared by every writer of a log."""
+
+    def __init__(self, pipeline: Pipeline, writer: LogWriter, parser: NativeParser | GenericParser) -> None:
+        self.pipeline = pipeline
+        self.writer = writer
+        self.parser = parser
+        self.pending_reason = "recorder restart" if writer.continuing else None
+        self.lines = 0
+        self.malformed = 0
+        self.hooks: list[Callable[[Batch], None]] = []
+        self._offset: float | None = None
+
+    def timeline(self, received: float) -> float:
+        """A wall-clock moment on the firing's time line (device time when the clock is the device's)."""
+        return received if self._offset is None else received + self._offset
+
+    def feed(self, lines: list[tuple[float, bytes]]) -> Batch:
+        items: list[ReadingSet | Malformed] = [self.parser.parse(line, received) for received, line in lines]
+        batch = self.pipeline.process(items)
+        self.lines += len(items)
+        self.malformed += batch.malformed
+        if batch.samples:
+            times = batch.times
+            last = batch.samples[-1]
+            self._offset = last[1] - last[2]
+            previous = self.writer.last_t
+            if previous is not None and times[0] - previous > GAP_S:
+                self.writer.gap(previous, float(times[0]), self.pending_reason or "no data")
+            steps = np.diff(times)
+            for i in np.flatnonzero(steps > GAP_S):
+                self.writer.gap(float(times[i]), float(times[i + 1]), "no data")
+            self.pending_reason = None
+        for hook in self.hooks:
+            hook(batch)
+        self.writer.write(batch)
+        return batch
+
+
+class Recorder:
+    """Record a port into a firing log until stopped (or for ``duration_s``).
+
+    Parameters
+    ----------
+    url : str
+        A serial URL (device path, socket://, rfc2217://, loop://).
+    site : SiteProfile
+    schedule : Schedule or None
+    log_path : path
+    clock : str, optional
+        ``wall`` or ``device``; default from the site profile.
+    duration_s : float, optional
+        Stop after this many seconds of wall-clock time.
+    commit_interval_s : float
+        How often to commit (at most 1 s: the durability promise).
+    """
+
+    def __init__(
+        self,
+        url: str,
+        site: SiteProfile,
+        schedule: Schedule | None,
+        log_path: str | Path,
+        clock: str | None = None,
+        duration_s: float | None = None,
+        commit_interval_s: float = 0.5,
+        clock_fn: Callable[[], float] = time.time,
+        out=sys.stderr,
+    ) -> None:
+        self.url = url
+        self.site = site
+        self.schedule = schedule
+        self.log_path = Path(log_path)
+        self.clock = clock or site.input.clock
+        self.duration_s = duration_s
+        self.commit_interval_s = min(commit_interval_s, 1.0)
+        self.clock_fn = clock_fn
+        self.out = out
+        self.stop_event = threading.Event()
+        self.latencies: list[float] = []
+        self._queue: queue.Queue[tuple[float, bytes] | PortEvent] = queue.Queue()
+
+    def _say(self, text: str) -> None:
+        try:
+            self.out.write(f"firewatch record: {text}\n")
+            self.out.flush()
+        except (OSError, ValueError):  # the terminal went away; keep recording
+            pass
+
+    def _handle_signal(self, signum, frame) -> None:
+        self.stop_event.set()
+
+    def run(self, install_signals: bool = True) -> str:
+        """Record until stopped; return the reason it stopped."""
+        from .pipeline import channel_table
+
+        writer = LogWriter(
+            self.log_path,
+            channel_table(self.site),
+            site_name=self.site.name,
+            kiln=self.site.kiln,
+            site_text=self.site.text,
+            schedule_name=self.schedule.name if self.schedule else "",
+            schedule_text=self.schedule.text if self.schedule else "",
+            clock=self.clock,
+            port=self.url,
+            clock_fn=self.clock_fn,
+        )
+        if install_signals:
+            signal.signal(signal.SIGTERM, self._handle_signal)
+            signal.signal(signal.SIGINT, self._handle_signal)
+            if hasattr(signal, "SIGHUP"):
+                signal.signal(signal.SIGHUP, signal.SIG_IGN)
+        pipeline = Pipeline(self.site, self.schedule, self.clock)
+        ingest = Ingest(pipeline, writer, make_parser(self.site))
+        self.ingest = ingest
+        for hook in getattr(self, "extra_hooks", []):
+            ingest.hooks.append(hook)
+        version = tuple(int(x) for x in sqlite3.sqlite_version.split("."))
+        note = "" if version >= SQLITE_WAL_FIX else " (older than 3.51.3, which fixed a WAL-reset bug; firewatch keeps to one writing connection)"
+        now = self.clock_fn()
+        writer.event(ingest.timeline(now), "start", f"recording {self.url}; SQLite {sqlite3.sqlite_version}{note}")
+        writer.commit()
+        self._say(
+            f"recording {self.url} to {self.log_path} ({'continuing the firing' if writer.continuing else 'new firing'}); "
+            f"SQLite {sqlite3.sqlite_version}{note}. Stop with Ctrl-C or SIGTERM."
+        )
+        inp = self.site.input
+        reader = PortReader(
+            self.url,
+            on_line=lambda received, line: self._queue.put((received, line)),
+            on_event=self._queue.put,
+            settings=PortSettings(inp.baudrate, inp.bytesize, inp.parity, inp.stopbits),
+            clock=self.clock_fn,
+        )
+        reader.start()
+        started = time.monotonic()
+        reason = "stopped"
+        try:
+            while not self.stop_event.is_set():
+                self.stop_event.wait(self.commit_interval_s)
+                self._cycle(writer, ingest)
+                if self.duration_s is not None and time.monotonic() - started >= self.duration_s:
+                    reason = f"--for {self.duration_s:g} s elapsed"
+                    break
+            else:
+                reason = "signal"
+        finally:
+            reader.stop()
+            self._cycle(writer, ingest)
+            lat = np.array(self.latencies) if self.latencies else np.zeros(1)
+            detail = (
+                f"{reason}; {ingest.lines} lines, {ingest.malformed} malformed; commit latency "
+                f"p50 {np.percentile(lat, 50):.3f} s, p99 {np.percentile(lat, 99):.3f} s"
+            )
+            writer.event(ingest.timeline(self.clock_fn()), "stop", detail)
+            writer.close(reason)
+            self._say(f"stopped: {detail}")
+        return reason
+
+    def _cycle(self, writer: LogWriter, ingest: Ingest) -> None:
+        lines: list[tuple[float, bytes]] = []
+        while True:
+            try:
+                item = self._queue.get_nowait()
+            except queue.Empty:
+                break
+            if isinstance(item, PortEvent):
+                if lines:  # keep order: lines before an event are written first
+                    ingest.feed(lines)
+                    lines = []
+                writer.event(ingest.timeline(item.t), item.kind, item.detail)
+                if item.kind == "disconnect":
+                    ingest.pending_reason = "serial disconnect"
+                    self._say(f"lost the port: {item.detail}; reconnecting")
+                elif item.kind == "reconnect":
+                    self._say(f"reconnected to {self.url}")
+                elif item.kind == "open-failed":
+                    self._say(item.detail + "; retrying")
+            else:
+                lines.append(item)
+        if lines:
+            ingest.feed(lines)
+        writer.commit()
+        done = self.clock_fn()
+        if lines and len(self.latencies) < 2_000_000:
+            self.latencies.extend(done - received for received, _ in lines)

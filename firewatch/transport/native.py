@@ -1,0 +1,125 @@
+"""firewatch's native line format: one reading set per line, with a checksum.
+
+Format (ASCII, one line, ended by LF or CR LF)::
+
+    FW1 <seq> <device-time> <channel>=<value> [<channel>=<value> ...] *<crc>
+
+* ``FW1``: the format tag and version.
+* ``<seq>``: a decimal sequence number, incrementing by one per line
+  (wrapping is allowed); ``-`` when the device has none.
+* ``<device-time>``: the device's time, decimal seconds (the simulator sends
+  UTC seconds since the epoch with millisecond resolution); ``-`` for none.
+* ``<channel>``: a name of letters, digits, ``_``, ``.`` or ``-``.
+* ``<value>``: a decimal number with a unit suffix, ``mV`` or ``C``
+  (``41.276mV``, ``1203.4C``), or a status word: ``OPEN`` (thermocouple
+  open circuit), ``UNDER`` (below range), ``OVER`` (above range, saturated),
+  ``ERR`` (device error).
+* ``*<crc>``: CRC-16/CCITT-FALSE (polynomial 0x1021, initial 0xFFFF) of every
+  byte before the space that precedes ``*``, as four upper-case hex digits.
+
+Example::
+
+    FW1 1024 1764590400.000 tc1=41.276mV cj=24.80C py1=1198.4C py2=UNDER *3F2A
+
+The checksum detects line noise and truncation: any line that fails it is
+counted and logged as malformed, never half-used. See docs/line-format.md.
+"""
+
+from __future__ import annotations
+
+import binascii
+import math
+import re
+
+from .records import Malformed, ReadingSet, Status, Value
+
+__all__ = ["TAG", "crc16", "encode", "NativeParser"]
+
+TAG = b"FW1"
+_CHANNEL = re.compile(rb"^[A-Za-z0-9_.\-]{1,32}$")
+_STATUS_WORDS = {b"OPEN": Status.OPEN, b"UNDER": Status.UNDER, b"OVER": Status.OVER, b"ERR": Status.ERROR}
+_UNITS = (b"mV", b"C")
+
+
+def crc16(data: bytes) -> int:
+    """CRC-16/CCITT-FALSE (poly 0x1021, init 0xFFFF), via :func:`binascii.crc_hqx`."""
+    return binascii.crc_hqx(data, 0xFFFF)
+
+
+def _format_value(value: Value) -> str:
+    if value.status == Status.OK:
+        digits = 4 if value.unit == "mV" else 2
+        return f"{value.channel}={value.value:.{digits}f}{value.unit}"
+    word = {Status.OPEN: "OPEN", Status.UNDER: "UNDER", Status.OVER: "OVER"}.get(value.status, "ERR")
+    return f"{value.channel}={word}"
+
+
+def encode(values: list[Value] | tuple[Value, ...], seq: int | None = None, device_time: float | None = None) -> bytes:
+    """Encode one reading set as a native line, with its CRC and a CR LF ending."""
+    head = [
+        "FW1",
+        "-" if seq is None else str(int(seq)),
+        "-" if device_time is None else f"{device_time:.3f}",
+    ]
+    body = " ".join(head + [_format_value(v) for v in values]).encode("ascii")
+    return body + b" *%04X\r\n" % crc16(body)
+
+
+class NativeParser:
+    """Parse native lines into :class:`ReadingSet` or :class:`Malformed`."""
+
+    name = "native"
+
+    def parse(self, line: bytes, received: float) -> ReadingSet | Malformed:
+        line = line.rstrip(b"\r\n")
+        star = line.rfind(b" *")
+        if star < 0 or len(line) - star != 6:
+            return Malformed(received, line, "no checksum ' *XXXX' at the end")
+        body, given = line[:star], line[star + 2 :]
+        try:
+            expected = int(given, 16)
+        except ValueError:
+            return Malformed(received, line, f"checksum {given!r} is not hexadecimal")
+        if crc16(body) != expected:
+            return Malformed(received, line, "checksum mismatch (line noise or truncation)")
+        fields = body.split(b" ")
+        if len(fields) < 3 or fields[0] != TAG:
+            return Malformed(received, line, "does not start with 'FW1 <seq> <time>'")
+        try:
+            seq = None if fields[1] == b"-" else int(fields[1])
+            device_time = None if fields[2] == b"-" else float(fields[2])
+        except ValueError:
+            return Malformed(received, line, "bad sequence number or device time")
+        if device_time is not None and not math.isfinite(device_time):
+            return Malformed(received, line, "device time is not finite")
+        values: list[Value] = []
+        seen: set[str] = set()
+        for field in fields[3:]:
+            name, eq, text = field.partition(b"=")
+            if not eq or not _CHANNEL.match(name):
+                return Malformed(received, line, f"bad field {field[:40]!r}")
+            channel = name.decode("ascii")
+            if channel in seen:
+                return Malformed(received, line, f"channel {channel!r} twice")
+            seen.add(channel)
+            status = _STATUS_WORDS.get(text)
+            if status is not None:
+                values.append(Value(channel, math.nan, "", status))
+                continue
+            for unit in _UNITS:
+                if text.endswith(unit):
+                    try:
+                        number = float(text[: -len(unit)])
+                    except ValueError:
+                        break
+                    if not math.isfinite(number):
+                        break
+                    values.append(Value(channel, number, unit.decode("ascii")))
+                    break
+            else:
+                return Malformed(received, line, f"bad value {field[:40]!r} (expected a number with mV or C, or OPEN/UNDER/OVER/ERR)")
+            if len(values) != len(seen):
+                return Malformed(received, line, f"bad value {field[:40]!r} (expected a number with mV or C, or OPEN/UNDER/OVER/ERR)")
+        if not values:
+            return Malformed(received, line, "no channel values")
+        return ReadingSet(received, device_time, seq, tuple(values), line)

@@ -1,0 +1,82 @@
+"""Typed, frozen reading records: what a parser makes of one line.
+
+Recording and replay use the same types.
+"""
+
+from __future__ import annotations
+
+import enum
+from dataclasses import dataclass
+
+__all__ = ["Status", "Value", "ReadingSet", "Malformed"]
+
+
+class Status(enum.IntEnum):
+    """The state of one value as the instrument or bridge reported it."""
+
+    OK = 0
+    OPEN = 1
+    """A thermocouple's open-circuit flag (burn-out)."""
+    UNDER = 2
+    """Below the instrument's measuring range."""
+    OVER = 3
+    """Above the measuring range (saturated)."""
+    ERROR = 4
+    """The device reported an error for this channel."""
+    OUT_OF_RANGE = 5
+    """The value could not be converted (outside a thermocouple type's range)."""
+    MISSING = 6
+    """Expected but absent from the line."""
+
+
+@dataclass(frozen=True, slots=True)
+class Value:
+    """One channel's value in a reading set.
+
+    ``value`` is NaN unless ``status`` is OK; ``unit`` is ``"mV"`` or ``"C"``.
+    """
+
+    channel: str
+    value: float
+    unit: str
+    status: Status = Status.OK
+
+
+@dataclass(frozen=True, slots=True)
+class ReadingSet:
+    """All channels of one line.
+
+    Attributes
+    ----------
+    received : float
+        Wall-clock time the line was received, UTC seconds since the epoch.
+    device_time : float or None
+        The device's own time stamp, when the line carries one (UTC seconds
+        for the simulator; whatever the device counts otherwise).
+    seq : int or None
+        The device's sequence number, when the line carries one.
+    values : tuple of Value
+    raw : bytes
+        The line as received, without its line ending.
+    """
+
+    received: float
+    device_time: float | None
+    seq: int | None
+    values: tuple[Value, ...]
+    raw: bytes
+
+    def get(self, channel: str) -> Value | None:
+        for v in self.values:
+            if v.channel == channel:
+                return v
+        return None
+
+
+@dataclass(frozen=True, slots=True)
+class Malformed:
+    """A line that could not be parsed, with the reason."""
+
+    received: float
+    raw: bytes
+    reason: str

@@ -1,0 +1,12 @@
+"""A simulated kiln with virtual instruments and scriptable faults, speaking firewatch's native line format.
+
+Deterministic for a seed; runs on simulated time at any speed. Its physics
+(band radiance, windows, thermocouple EMF) comes from :mod:`firewatch.physics`.
+"""
+
+from __future__ import annotations
+
+from .kiln import Controller, KilnModel, KilnParameters
+from .scenario import Fault, Scenario, load_scenario
+
+__all__ = ["Controller", "Fault", "KilnModel", "KilnParameters", "Scenario", "load_scenario"]

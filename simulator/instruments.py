@@ -1,0 +1,82 @@
+"""Virtual instruments: thermocouples with lag, drift and noise; pyrometers seen through a window.
+
+Signals come from the measurement core (band radiance through the window,
+emissivity, reflected wall radiation; ITS-90 EMF), vectorised over a chunk
+of simulated readings.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+
+import numpy as np
+
+from firewatch.physics._warnings import OutOfRangeWarning
+from firewatch.physics.bands import Band
+from firewatch.physics.corrections import indicated_ratio, indicated_single_band
+from firewatch.physics.thermocouples import temperature_range, temperature_to_emf
+from firewatch.physics.windows import Window
+from firewatch.profile import Pyrometer, Thermocouple
+from firewatch.transport.records import Status
+
+__all__ = ["thermocouple_emf", "pyrometer_reading", "band_of"]
+
+
+def band_of(py: Pyrometer, base: "Path | None" = None) -> Band:  # noqa: F821 - documented type
+    """The band of a pyrometer as the site profile describes it (band 1 for a ratio instrument)."""
+    if py.band_file:
+        from pathlib import Path
+
+        path = Path(py.band_file)
+        if not path.is_absolute() and base is not None:
+            path = base / path
+        return Band.from_csv(path)
+    return Band(*py.band_um)
+
+
+def thermocouple_emf(
+    tc: Thermocouple, junction_c: np.ndarray, cold_c: np.ndarray, noise_mv: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """EMF (mV) that the bridge sees, and the status per reading (OVER/UNDER outside the type's range)."""
+    lo, hi = temperature_range(tc.type)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", OutOfRangeWarning)
+        emf = temperature_to_emf(np.clip(junction_c, lo, hi), tc.type) - temperature_to_emf(cold_c, tc.type)
+    status = np.where(junction_c > hi, Status.OVER, np.where(junction_c < lo, Status.UNDER, Status.OK))
+    return emf + noise_mv, status
+
+
+def pyrometer_reading(
+    py: Pyrometer,
+    band: Band,
+    band2: Band | None,
+    ware_c: np.ndarray,
+    wall_c: np.ndarray,
+    emissivity: np.ndarray,
+    slope: np.ndarray,
+    fouling: np.ndarray,
+    noise_c: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray]:
+    """What the instrument shows (degC) and its status (UNDER/OVER outside its measuring range)."""
+    if py.window is not None:
+        path: float | Window = Window(py.window, fouling=fouling)
+    else:
+        path = np.clip(py.transmission * fouling, 1e-6, 1.0)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", OutOfRangeWarning)
+        if py.kind == "ratio":
+            assert band2 is not None
+            shown = indicated_ratio(
+                ware_c, band, band2, slope, py.set_slope, emissivity=emissivity, transmission=path, background_c=wall_c
+            )
+        else:
+            shown = indicated_single_band(
+                ware_c, band, emissivity, path, py.set_emissivity, py.set_transmission, background_c=wall_c
+            )
+    shown = shown + noise_c
+    lo, hi = py.range_c
+    if not math.isfinite(lo):
+        lo = -73.0  # the band table's floor
+    status = np.where(~(shown >= lo), Status.UNDER, np.where(shown > hi, Status.OVER, Status.OK))
+    return shown, status

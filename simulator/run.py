@@ -1,0 +1,233 @@
+"""The simulation loop: kiln, controller and instruments stepping through a scenario, emitting native lines."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterator
+from dataclasses import dataclass
+
+import numpy as np
+
+from firewatch.physics.bands import Band
+from firewatch.physics.thermocouples import seebeck
+from firewatch.transport.native import encode
+from firewatch.transport.records import Status, Value
+
+from .instruments import band_of, pyrometer_reading, thermocouple_emf
+from .kiln import Controller, KilnModel
+from .scenario import Fault, Scenario
+
+__all__ = ["Line", "Simulation"]
+
+CHUNK = 60
+"""Steps simulated before the instruments are evaluated together (fixed, so a seed gives the same run in every mode)."""
+
+
+@dataclass(frozen=True, slots=True)
+class Line:
+    """One emitted line: simulated seconds since the start, the bytes, and what the link does with it."""
+
+    sim_s: float
+    data: bytes
+    dropped: bool = False
+    """Lost to a dropout: never sent."""
+    disconnect: bool = False
+    """A dropout that also drops the client (TCP) starts here."""
+
+
+class Simulation:
+    """Step a scenario; :meth:`chunks` yields lists of :class:`Line`.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    endless : bool
+        Keep going after the scenario's duration (the kiln idles, cold).
+    """
+
+    def __init__(self, scenario: Scenario, endless: bool = False) -> None:
+        self.scenario = scenario
+        self.endless = endless
+        self.site = scenario.site
+        self.rng = np.random.default_rng(scenario.seed)
+        params = scenario.kiln
+        self.kiln = KilnModel(params, wall_c=params.ambient_c, ware_c=params.ambient_c)
+        self.controller = Controller(scenario.schedule, self.kiln)
+        self.t = 0.0
+        self.seq = 0
+        self.dt = scenario.interval_s
+        self.tcs = list(self.site.thermocouples)
+        self.control = self.site.control
+        self._lag = {tc.name: params.ambient_c for tc in self.tcs}
+        self._tau = {
+            tc.name: scenario.instruments.get(tc.name, {}).get("time_constant_s", tc.time_constant_s) for tc in self.tcs
+        }
+        # a calibration error within a fraction of the tolerance class, fixed per thermocouple
+        self._offset = {
+            tc.name: scenario.instruments.get(tc.name, {}).get("offset_c", float(self.rng.normal(0.0, 0.4)))
+            for tc in self.tcs
+        }
+        base = self.site.path.parent if self.site.path else None
+        self.bands: dict[str, tuple[Band, Band | None]] = {
+            py.name: (band_of(py, base), Band(*py.band2_um) if py.kind == "ratio" and py.band2_um else None)
+            for py in self.site.pyrometers
+        }
+        reference = self.site.reference
+        self._default_tc = reference.name if reference else (self.tcs[0].name if self.tcs else "")
+        self.faults = list(scenario.faults)
+        for fault in self.faults:
+            channel = fault.param("channel")
+            if fault.kind in ("tc-drift", "tc-open") and channel is not None and channel not in self._lag:
+                raise ValueError(f"fault {fault.kind}: no thermocouple channel {channel!r} in the site profile")
+        self.duration_s = scenario.duration_s
+
+    # -- truth as functions of time -------------------------------------------------
+    def _faults(self, kind: str) -> list[Fault]:
+        return [f for f in self.faults if f.kind == kind]
+
+    def _drift_c(self, name: str, t: np.ndarray) -> np.ndarray:
+        out = np.zeros_like(t)
+        for f in self._faults("tc-drift"):
+            if (f.param("channel") or self._default_tc) == name:
+                out += np.clip(t - f.at_s, 0.0, None) / 3600.0 * float(f.param("rate"))
+        return out
+
+    def _open(self, name: str, t: np.ndarray) -> np.ndarray:
+        out = np.zeros(t.shape, dtype=bool)
+        for f in self._faults("tc-open"):
+            if (f.param("channel") or self._default_tc) == name:
+                out |= t >= f.at_s
+        return out
+
+    def _fouling(self, t: np.ndarray) -> np.ndarray:
+        out = np.ones_like(t)
+        for f in self._faults("window-fouling"):
+            out *= np.exp(-np.clip(t - f.at_s, 0.0, None) / 3600.0 * float(f.param("rate")))
+        return np.clip(out, 1e-3, 1.0)
+
+    def _emissivity(self, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        eps = np.full(t.shape, self.scenario.emissivity)
+        slope = np.full(t.shape, self.scenario.slope)
+        for f in self._faults("emissivity-step"):
+            after = t >= f.at_s
+            to = f.param("to")
+            eps = np.where(after, min(1.0, self.scenario.emissivity + 0.07) if to is None else float(to), eps)
+            if f.param("slope") is not None:
+                slope = np.where(after, float(f.param("slope")), slope)
+        return np.clip(eps, 1e-3, 1.0), slope
+
+    def _window(self, kind: str, t: float) -> Fault | None:
+        for f in self._faults(kind):
+            if f.at_s <= t < f.at_s + float(f.param("seconds")):
+                return f
+        return None
+
+    # -- stepping -------------------------------------------------------------------
+    @property
+    def done(self) -> bool:
+        if self.endless:
+            return False
+        if self.duration_s is not None:
+            return self.t >= self.duration_s
+        cap = 3.0 * self.scenario.schedule.planned_duration_s + 4 * 3600.0
+        return (self.controller.finished and self.kiln.wall_c < self.scenario.cool_end_c) or self.t >= cap
+
+    def chunks(self) -> Iterator[list[Line]]:
+        while not self.done:
+            yield self._chunk()
+
+    def _chunk(self) -> list[Line]:
+        n = CHUNK
+        if self.duration_s is not None and not self.endless:
+            n = max(1, min(n, int(math.ceil((self.duration_s - self.t) / self.dt))))
+        times = np.empty(n)
+        wall = np.empty(n)
+        ware = np.empty(n)
+        lags = {tc.name: np.empty(n) for tc in self.tcs}
+        control = self.control.name if self.control else None
+        for i in range(n):
+            if control is not None:
+                drift = float(self._drift_c(control, np.array([self.t]))[0])
+                measured = self._lag[control] + self._offset[control] + drift
+            else:
+                measured = self.kiln.wall_c
+            power = self.controller.power(measured, self.t, self.dt)
+            self.kiln.step(power, self.dt)
+            self.t += self.dt
+            for tc in self.tcs:
+                tau = self._tau[tc.name]
+                a = 1.0 - math.exp(-self.dt / tau) if tau > 0 else 1.0
+                self._lag[tc.name] += a * (self.kiln.wall_c - self._lag[tc.name])
+                lags[tc.name][i] = self._lag[tc.name]
+            times[i] = self.t
+            wall[i] = self.kiln.wall_c
+            ware[i] = self.kiln.ware_c
+        return self._emit(times, wall, ware, lags)
+
+    def _emit(self, times: np.ndarray, wall: np.ndarray, ware: np.ndarray, lags: dict[str, np.ndarray]) -> list[Line]:
+        n = times.size
+        rng = self.rng
+        ambient = self.scenario.kiln.ambient_c
+        cold_true = ambient + 6.0 * np.clip((wall - ambient) / 1250.0, 0.0, 1.0)
+        columns: list[tuple[str, np.ndarray, str, np.ndarray]] = []
+        for cj in self.site.cold_junctions:
+            columns.append((cj, cold_true + rng.normal(0.0, 0.05, n), "C", np.full(n, Status.OK)))
+        for tc in self.tcs:
+            junction = lags[tc.name] + self._offset[tc.name] + self._drift_c(tc.name, times)
+            cold = cold_true if isinstance(tc.cold_junction, str) else np.full(n, float(tc.cold_junction))
+            noise_uv = self.scenario.instruments.get(tc.name, {}).get("noise_uv", 2.0)
+            if tc.unit == "mV":
+                value, status = thermocouple_emf(tc, junction, cold, rng.normal(0.0, noise_uv * 1e-3, n))
+            else:  # a bridge that converts: degC with noise of the same size
+                sens = float(seebeck(np.clip(np.median(junction), 0, 1000), tc.type))
+                value = junction + rng.normal(0.0, noise_uv * 1e-3 / max(sens, 1e-3), n)
+                status = np.full(n, Status.OK)
+            status = np.where(self._open(tc.name, times), Status.OPEN, status)
+            columns.append((tc.name, value, tc.unit, status))
+        eps, slope = self._emissivity(times)
+        fouling = self._fouling(times)
+        for py in self.site.pyrometers:
+            band, band2 = self.bands[py.name]
+            noise = self.scenario.instruments.get(py.name, {}).get("noise_c", 1.0 if py.kind == "ratio" else 0.3)
+            value, status = pyrometer_reading(py, band, band2, ware, wall, eps, slope, fouling, rng.normal(0.0, noise, n))
+            columns.append((py.name, value, "C", status))
+        garbage_draw = rng.random(n)
+        garbage_kind = rng.integers(0, 3, n)
+        garbage_pos = rng.random(n)
+        lines: list[Line] = []
+        for i in range(n):
+            values = [
+                Value(name, float(col[i]), unit, Status(int(st[i])))
+                if st[i] == Status.OK
+                else Value(name, math.nan, unit, Status(int(st[i])))
+                for name, col, unit, st in columns
+            ]
+            t = float(times[i])
+            data = encode(values, self.seq, self.scenario.start_utc + t)
+            self.seq += 1
+            dropout = self._window("dropout", t)
+            garbage = self._window("garbage", t)
+            if garbage is not None and garbage_draw[i] < float(garbage.param("fraction")):
+                data = _spoil(data, int(garbage_kind[i]), float(garbage_pos[i]), rng)
+            starts_dropout = dropout is not None and t - dropout.at_s < self.dt
+            lines.append(
+                Line(t, data, dropped=dropout is not None, disconnect=starts_dropout and bool(dropout.param("disconnect")))
+            )
+        return lines
+
+    # -- truth for tests ------------------------------------------------------------
+    @property
+    def state(self) -> dict[str, float]:
+        return {"t": self.t, "wall_c": self.kiln.wall_c, "ware_c": self.kiln.ware_c, "segment": self.controller.segment}
+
+
+def _spoil(data: bytes, kind: int, pos: float, rng: np.random.Generator) -> bytes:
+    """Garbage on the line: random bytes, a truncated line, or one flipped byte."""
+    body = data.rstrip(b"\r\n")
+    if kind == 0:
+        return bytes(rng.integers(0, 256, max(1, int(pos * 60))).astype(np.uint8).tobytes()).replace(b"\n", b"?") + b"\r\n"
+    if kind == 1:
+        return body[: max(1, int(pos * len(body)))] + b"\r\n"
+    i = min(len(body) - 1, int(pos * len(body)))
+    flipped = bytes([body[i] ^ 0x20]) if body[i] ^ 0x20 not in (10, 13) else b"#"
+    return body[:i] + flipped + body[i + 1 :] + b"\r\n"
