@@ -32,7 +32,8 @@ from .transport.records import Malformed, ReadingSet
 __all__ = ["Ingest", "Recorder", "make_parser", "GAP_S", "SQLITE_WAL_FIX"]
 
 GAP_S = 5.0
-"""A silence longer than this between readings is recorded as a gap, seconds."""
+"""A silence longer than this between readings is recorded as a gap, seconds (after a restart or a
+disconnect the gap is recorded whatever its length)."""
 
 SQLITE_WAL_FIX = (3, 51, 3)
 """First SQLite release without the WAL-reset bug (SQLite's documentation: 3.7.0 to 3.51.2)."""
@@ -96,7 +97,9 @@ class Ingest:
             last = batch.samples[-1]
             self._offset = last[1] - last[2]
             previous = self.writer.last_t
-            if previous is not None and times[0] - previous > GAP_S:
+            # after a restart or a disconnect readings were certainly lost: record the
+            # gap however short; otherwise only a silence longer than GAP_S is a gap
+            if previous is not None and (times[0] - previous > GAP_S or (self.pending_reason and times[0] > previous)):
                 self.writer.gap(previous, float(times[0]), self.pending_reason or "no data")
             steps = np.diff(times)
             for i in np.flatnonzero(steps > GAP_S):
