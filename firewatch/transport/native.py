@@ -19,7 +19,7 @@ Format (ASCII, one line, ended by LF or CR LF)::
 
 Example::
 
-    FW1 1024 1764590400.000 tc1=41.276mV cj=24.80C py1=1198.4C py2=UNDER *3F2A
+    FW1 1024 1773464400.000 cj=24.80C tc1=41.2760mV tc2=9.5870mV py1=1198.40C py2=UNDER *CEF9
 
 The checksum detects line noise and truncation: any line that fails it is
 counted and logged as malformed, never half-used. See docs/line-format.md.

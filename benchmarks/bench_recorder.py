@@ -1,0 +1,151 @@
+"""Benchmark: recorder CPU and commit latency at 16 channels x 100 readings/s, log size, and sim --to-log speed.
+
+Run by hand: ``python benchmarks/bench_recorder.py [--seconds 30]``. Baselines
+are measured in the same run: a bare reader that only reads and discards
+the same stream, and the simulator running the same 24 hours without a log.
+
+Targets (issue 3): recorder under 10 % of one core; p99 from line received
+to committed row <= 1.2 s; ``sim --to-log`` of the 24-hour demo under 20 s.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import re
+import socket
+import subprocess
+import sys
+import tempfile
+import threading
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+
+from firewatch.transport.native import encode  # noqa: E402
+from firewatch.transport.records import Value  # noqa: E402
+
+CHANNELS_TC = 12
+CHANNELS_PY = 3
+RATE_HZ = 100
+
+
+def bench_site(path: Path) -> None:
+    lines = ['[site]\nname = "Bench"\n[input]\nclock = "wall"\n[[cold_junction]]\nname = "cj"\n']
+    for i in range(CHANNELS_TC):
+        lines.append(f'[[thermocouple]]\nname = "tc{i + 1}"\ntype = "K"\ncold_junction = "cj"\nrole = "{"reference" if i == 0 else "monitor"}"\n')
+    for i in range(CHANNELS_PY):
+        lines.append(f'[[pyrometer]]\nname = "py{i + 1}"\nband_um = [0.8, 1.1]\nemissivity = 0.9\nwindow = "sapphire"\nbackground = "tc1"\nreference = "tc1"\nrange_c = [500, 1600]\n')
+    path.write_text("\n".join(lines))
+
+
+def line(seq: int) -> bytes:
+    values = [Value("cj", 24.0 + (seq % 10) * 0.01, "C")]
+    values += [Value(f"tc{i + 1}", 41.0 + 0.001 * ((seq + i) % 50), "mV") for i in range(CHANNELS_TC)]
+    values += [Value(f"py{i + 1}", 1000.0 + 0.1 * ((seq + i) % 20), "C") for i in range(CHANNELS_PY)]
+    return encode(values, seq)
+
+
+def serve(port_holder: list[int], stop: threading.Event, seconds: float) -> None:
+    server = socket.create_server(("127.0.0.1", 0))
+    port_holder.append(server.getsockname()[1])
+    conn, _ = server.accept()
+    t0 = time.monotonic()
+    seq = 0
+    while not stop.is_set() and time.monotonic() - t0 < seconds:
+        due = t0 + seq / RATE_HZ
+        delay = due - time.monotonic()
+        if delay > 0:
+            time.sleep(delay)
+        try:
+            conn.sendall(line(seq))
+        except OSError:
+            break
+        seq += 1
+    conn.close()
+    server.close()
+
+
+def cpu_seconds(pid: int) -> float:
+    fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
+    return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
+
+
+def measure(cmd: list[str], seconds: float, warmup: float = 3.0) -> tuple[float, str]:
+    """CPU fraction of one core used by ``cmd`` while fed the stream, after a warm-up."""
+    stop = threading.Event()
+    holder: list[int] = []
+    feeder = threading.Thread(target=serve, args=(holder, stop, seconds + warmup + 5), daemon=True)
+    feeder.start()
+    while not holder:
+        time.sleep(0.01)
+    proc = subprocess.Popen([c.replace("PORT", str(holder[0])) for c in cmd], stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, cwd=ROOT)
+    time.sleep(warmup)
+    c0, w0 = cpu_seconds(proc.pid), time.monotonic()
+    time.sleep(seconds)
+    c1, w1 = cpu_seconds(proc.pid), time.monotonic()
+    proc.terminate()
+    _, err = proc.communicate(timeout=30)
+    stop.set()
+    return (c1 - c0) / (w1 - w0), err
+
+
+BARE_READER = (
+    "import serial,sys\n"
+    "p=serial.serial_for_url(sys.argv[1],timeout=0.2)\n"
+    "while True: p.read(4096)\n"
+)
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--seconds", type=float, default=30.0)
+    args = parser.parse_args()
+    tmp = Path(tempfile.mkdtemp(prefix="fw-bench-"))
+    site = tmp / "bench-site.toml"
+    bench_site(site)
+    log = tmp / "bench.db"
+
+    bare, _ = measure([sys.executable, "-c", BARE_READER, "socket://127.0.0.1:PORT"], args.seconds)
+    rec, err = measure(
+        [sys.executable, "-m", "firewatch", "record", "--port", "socket://127.0.0.1:PORT", "--site", str(site), "--log", str(log)],
+        args.seconds,
+    )
+    latency = re.search(r"p50 ([0-9.]+) s, p99 ([0-9.]+) s", err)
+    import sqlite3
+
+    con = sqlite3.connect(log)
+    samples = con.execute("SELECT count(*) FROM sample").fetchone()[0]
+    channels = con.execute("SELECT count(*) FROM channel").fetchone()[0]
+    measured = CHANNELS_TC + CHANNELS_PY + 1
+    con.close()
+    size = sum(f.stat().st_size for f in tmp.glob("bench.db*") if f.suffix != ".lock")
+    hours = samples / RATE_HZ / 3600.0
+    print(f"feed: {measured} channels x {RATE_HZ} readings/s ({measured * RATE_HZ} values/s), {args.seconds:g} s measured")
+    print(f"bare reader (read and discard):  {bare * 100:6.2f} % of one core")
+    print(f"recorder:                        {rec * 100:6.2f} % of one core   ratio to bare reader {rec / max(bare, 1e-9):.1f} (target < 10 %)")
+    if latency:
+        print(f"received -> committed latency:   p50 {latency.group(1)} s, p99 {latency.group(2)} s (target p99 <= 1.2 s)")
+    print(f"log size: {size / 1e6:.1f} MB for {samples} samples of {channels} channels ({measured} measured + derived)")
+    print(f"  per measured channel-hour at {RATE_HZ} Hz (derived included): {size / (measured * hours) / 1e6:.2f} MB; at 1 Hz about {size / (measured * hours * RATE_HZ) / 1e3:.0f} kB")
+
+    from simulator.run import Simulation
+    from simulator.scenario import load_scenario
+
+    t0 = time.perf_counter()
+    n = sum(len(c) for c in Simulation(load_scenario()).chunks())
+    t_sim = time.perf_counter() - t0
+    demo_log = tmp / "demo.db"
+    t0 = time.perf_counter()
+    out = subprocess.run([sys.executable, "-m", "firewatch", "sim", "--to-log", str(demo_log)], cwd=ROOT, capture_output=True, text=True)
+    t_log = time.perf_counter() - t0
+    assert out.returncode == 0, out.stderr
+    print(f"simulate 24 h demo alone:        {t_sim:6.2f} s ({n} lines)")
+    print(f"sim --to-log 24 h demo:          {t_log:6.2f} s   ratio to simulation alone {t_log / t_sim:.2f} (target < 20 s)")
+    print(f"demo log: {demo_log.stat().st_size / 1e6:.1f} MB")
+
+
+if __name__ == "__main__":
+    main()
