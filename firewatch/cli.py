@@ -24,6 +24,7 @@ COMMANDS: dict[str, str] = {
     "check": "check",
     "inspect": "inspect",
     "export": "export",
+    "replay": "replay",
 }
 
 CAUTION = (

@@ -37,6 +37,7 @@ from .physics.thermocouples import emf_to_temperature
 from .physics.tolerances import tolerance_uncertainty
 from .physics.windows import Window
 from .profile import Pyrometer, SiteProfile
+from .progress import PLAN_CHANNELS, ProgressTracker
 from .schedule import Schedule
 from .transport.records import Malformed, ReadingSet, Status
 from .trend import TrailingSlope
@@ -55,8 +56,8 @@ class ChannelInfo:
     description: str = ""
 
 
-def channel_table(site: SiteProfile) -> list[ChannelInfo]:
-    """Every channel the pipeline writes for a site, in a stable order."""
+def channel_table(site: SiteProfile, schedule: Schedule | None = None) -> list[ChannelInfo]:
+    """Every channel the pipeline writes for a site (and schedule), in a stable order."""
     out: list[ChannelInfo] = []
     for cj in site.cold_junctions:
         out.append(ChannelInfo(cj, "cold_junction", "C", cj, "cold-junction sensor"))
@@ -70,6 +71,9 @@ def channel_table(site: SiteProfile) -> list[ChannelInfo]:
         if py.reference:
             out.append(ChannelInfo(f"{py.name}.divergence", "derived", "K", py.name, f"reconciled minus {py.reference}"))
             out.append(ChannelInfo(f"{py.name}.allowed", "derived", "K", py.name, "k x combined standard uncertainty"))
+    if schedule is not None and site.control is not None:
+        for name, unit, description in PLAN_CHANNELS:
+            out.append(ChannelInfo(name, "progress", unit, site.control.name, description))
     return out
 
 
@@ -97,6 +101,41 @@ class Batch:
         return sum(1 for r in self.raw if not r[2])
 
 
+def to_columns(items: list[ReadingSet | Malformed], channels: tuple[str, ...], clock: str) -> Batch:
+    """Gather parsed lines into a :class:`Batch` of raw lines, samples and per-channel arrays.
+
+    Stateless, so that it can run in another process (replay does); the
+    pipeline then checks time order and computes everything else.
+    """
+    batch = Batch()
+    raw, samples, events = batch.raw, batch.samples, batch.events
+    device = clock == "device"
+    wanted = set(channels)
+    sets: list[ReadingSet] = []
+    for item in items:
+        if type(item) is Malformed:
+            raw.append((item.received, item.raw, False, item.reason))
+            events.append((item.received, "malformed", None, item.reason))
+            continue
+        received, device_time = item.received, item.device_time
+        t = device_time if device and device_time is not None else received
+        raw.append((received, item.raw, True, ""))
+        samples.append((len(raw) - 1, t, received, device_time, item.seq))
+        sets.append(item)
+    n = len(sets)
+    vals: dict[str, list[float]] = {name: [math.nan] * n for name in wanted}
+    stats: dict[str, list[int]] = {name: [int(Status.MISSING)] * n for name in wanted}
+    for i, s in enumerate(sets):
+        for v in s.values:
+            col = vals.get(v.channel)
+            if col is not None:
+                col[i] = v.value
+                stats[v.channel][i] = v.status
+    batch.values = {name: np.array(vals[name], dtype=float) for name in wanted}
+    batch.status = {name: np.array(stats[name], dtype=np.int64) for name in wanted}
+    return batch
+
+
 class Pipeline:
     """Convert and reconcile batches of lines for one site.
 
@@ -114,7 +153,8 @@ class Pipeline:
         self.site = site
         self.schedule = schedule
         self.clock = clock
-        self.channels = channel_table(site)
+        self.channels = channel_table(site, schedule)
+        self.progress = ProgressTracker(schedule) if schedule is not None and site.control is not None else None
         base = site.path.parent if site.path else Path(".")
         self._bands: dict[str, tuple[Band, Band | None]] = {}
         for py in site.pyrometers:
@@ -131,25 +171,34 @@ class Pipeline:
 
     # -- parsing to arrays ------------------------------------------------------------
     def process(self, items: list[ReadingSet | Malformed]) -> Batch:
-        batch = Batch()
-        sets: list[ReadingSet] = []
-        for item in items:
-            if isinstance(item, Malformed):
-                batch.raw.append((item.received, item.raw, False, item.reason))
-                batch.events.append((self._time_for(item.received, None), "malformed", None, item.reason))
-                continue
-            t = self._time_for(item.received, item.device_time)
-            if t < self._last_t:
-                reason = f"time went backwards by {self._last_t - t:.3f} s; line kept raw only"
-                batch.raw.append((item.received, item.raw, False, reason))
-                batch.events.append((self._last_t, "malformed", None, reason))
-                continue
-            self._last_t = t
-            batch.raw.append((item.received, item.raw, True, ""))
-            batch.samples.append((len(batch.raw) - 1, t, item.received, item.device_time, item.seq))
-            sets.append(item)
-        if sets:
-            self._compute(sets, batch)
+        """Convert and reconcile one batch of parsed lines."""
+        return self.process_columns(to_columns(items, self.site.channel_names, self.clock))
+
+    def process_columns(self, cols: Batch) -> Batch:
+        """Like :meth:`process`, from lines already gathered into columns by :func:`to_columns`
+        (which may run in another process)."""
+        batch = cols
+        if batch.samples:
+            times = np.fromiter((s[1] for s in batch.samples), dtype=float, count=len(batch.samples))
+            floor = np.maximum.accumulate(np.concatenate([[self._last_t], times]))[:-1]
+            back = times < floor
+            if back.any():
+                keep = ~back
+                for i in np.flatnonzero(back):
+                    raw_i = batch.samples[i][0]
+                    r = batch.raw[raw_i]
+                    reason = f"time went backwards by {floor[i] - times[i]:.3f} s; line kept raw only"
+                    batch.raw[raw_i] = (r[0], r[1], False, reason)
+                    batch.events.append((float(floor[i]), "malformed", None, reason))
+                batch.samples = [s for s, k in zip(batch.samples, keep) if k]
+                batch.values = {k: v[keep] for k, v in batch.values.items()}
+                batch.status = {k: v[keep] for k, v in batch.status.items()}
+                times = times[keep]
+            if times.size:
+                self._last_t = float(times[-1])
+            self._cols = {name: (batch.values[name], batch.status[name]) for name in batch.values}
+            batch.values, batch.status = {}, {}
+            self._compute_arrays(times, batch)
         return batch
 
     def _time_for(self, received: float, device_time: float | None) -> float:
@@ -157,21 +206,14 @@ class Pipeline:
             return device_time
         return received
 
-    def _column(self, sets: list[ReadingSet], name: str) -> tuple[np.ndarray, np.ndarray, list[str]]:
-        values = np.full(len(sets), np.nan)
-        status = np.full(len(sets), int(Status.MISSING), dtype=np.int64)
-        units: list[str] = []
-        for i, s in enumerate(sets):
-            v = s.get(name)
-            if v is not None:
-                values[i] = v.value
-                status[i] = int(v.status)
-                units.append(v.unit)
-        return values, status, units
+    def _column(self, sets, name: str) -> tuple[np.ndarray, np.ndarray, list[str]]:
+        values, status = self._cols[name]
+        return values.copy(), status.copy(), []
 
-    def _compute(self, sets: list[ReadingSet], batch: Batch) -> None:
+    def _compute_arrays(self, times: np.ndarray, batch: Batch) -> None:
         site = self.site
-        times = np.array([s[1] for s in batch.samples[-len(sets):]])
+        n = times.size
+        sets = range(n)  # only its length is used below
         out_v, out_s = batch.values, batch.status
         for cj in site.cold_junctions:
             out_v[cj], out_s[cj], _ = self._column(sets, cj)
@@ -197,6 +239,24 @@ class Pipeline:
                 out_s[f"{tc.name}.rate"] = np.where(np.isnan(rate), int(Status.MISSING), int(Status.OK))
             for py in site.pyrometers:
                 self._pyrometer(py, sets, times, batch)
+        if self.progress is not None:
+            ctl = site.control.name
+            plan = self.progress.update(times, out_v[ctl], out_v[f"{ctl}.rate"])
+            for name, values in plan.items():
+                out_v[name] = values
+                out_s[name] = np.where(np.isfinite(values), int(Status.OK), int(Status.MISSING))
+
+    def warm_start(self, times: np.ndarray, values: dict[str, np.ndarray]) -> None:
+        """Bring trends and progress up to date from readings already in a continued log (no output)."""
+        for tc in self.site.thermocouples:
+            if tc.name in values:
+                self._rates[tc.name].update(times, values[tc.name])
+        if self.progress is not None and self.site.control is not None:
+            ctl = self.site.control.name
+            if ctl in values:
+                self.progress.update(times, values[ctl], values.get(f"{ctl}.rate", np.full(times.size, np.nan)))
+        if times.size:
+            self._last_t = float(times[-1])
 
     def _background(self, py: Pyrometer, batch: Batch, n: int) -> tuple[np.ndarray | None, np.ndarray]:
         if py.background is None:

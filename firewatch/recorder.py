@@ -9,6 +9,7 @@ and records the gap.
 
 from __future__ import annotations
 
+import json
 import queue
 import signal
 import sqlite3
@@ -170,7 +171,7 @@ class Recorder:
 
         writer = LogWriter(
             self.log_path,
-            channel_table(self.site),
+            channel_table(self.site, self.schedule),
             site_name=self.site.name,
             kiln=self.site.kiln,
             site_text=self.site.text,
@@ -186,8 +187,11 @@ class Recorder:
             if hasattr(signal, "SIGHUP"):
                 signal.signal(signal.SIGHUP, signal.SIG_IGN)
         pipeline = Pipeline(self.site, self.schedule, self.clock)
+        if writer.continuing:
+            warm_start(pipeline, writer)
         ingest = Ingest(pipeline, writer, make_parser(self.site))
         self.ingest = ingest
+        self.engine = attach_alarms(ingest, self.site, self.schedule)
         for hook in getattr(self, "extra_hooks", []):
             ingest.hooks.append(hook)
         version = tuple(int(x) for x in sqlite3.sqlite_version.split("."))
@@ -255,7 +259,91 @@ class Recorder:
                 lines.append(item)
         if lines:
             ingest.feed(lines)
+        self.engine.tick(ingest.timeline(self.clock_fn()))
         writer.commit()
         done = self.clock_fn()
         if lines and len(self.latencies) < 2_000_000:
             self.latencies.extend(done - received for received, _ in lines)
+
+
+class AlarmLog:
+    """Writes alarm transitions into the firing log (``alarm``, ``alarm_state`` and an event each)."""
+
+    def __init__(self, writer: LogWriter) -> None:
+        self.writer = writer
+        row = writer.execute("SELECT coalesce(max(id), 0) FROM alarm").fetchone()
+        self._next = int(row[0]) + 1
+
+    def next_id(self) -> int:
+        i = self._next
+        self._next += 1
+        return i
+
+    def sink(self, tr) -> None:
+        from .alarms import evidence_json
+
+        a = tr.alarm
+        w = self.writer
+        if tr.new:
+            w.execute(
+                "INSERT INTO alarm(id, kind, channel, cause, priority, raised_t, cleared_t, state, message, evidence) VALUES (?, ?, ?, ?, ?, ?, NULL, ?, ?, ?)",
+                (a.id, a.kind, a.channel_name, a.cause, a.priority, a.raised_t, tr.state, a.message, evidence_json(a.evidence)),
+            )
+        else:
+            w.execute("UPDATE alarm SET state = ?, cleared_t = ? WHERE id = ?", (tr.state, a.cleared_t, a.id))
+        w.execute("INSERT INTO alarm_state(alarm_id, t, state, detail) VALUES (?, ?, ?, ?)", (a.id, tr.t, tr.state, tr.detail))
+        label = a.kind + (f" {a.channel_name}" if a.channel_name else "") + (f" ({a.cause})" if a.cause else "")
+        w.event(tr.t, "alarm", f"#{a.id} {label}: {tr.state}: {tr.detail}", a.channel_name)
+
+    def restore_into(self, engine) -> int:
+        """Give the engine back the alarms still open in the log; return how many."""
+        from .alarms import Alarm
+
+        rows = self.writer.execute(
+            "SELECT id, kind, channel, cause, priority, raised_t, cleared_t, state, message, evidence FROM alarm WHERE state != 'normal'"
+        ).fetchall()
+        for r in rows:
+            channel = r[2]
+            if r[1] == "sensor-fault" and r[3]:
+                channel = f"{channel}:{r[3]}" if channel else None
+            engine.restore(Alarm(r[0], r[1], channel, r[4], r[5], r[8] or "", r[3], json.loads(r[9]) if r[9] else None, state=r[7], cleared_t=r[6]))
+        return len(rows)
+
+
+def attach_alarms(ingest: Ingest, site: SiteProfile, schedule: Schedule | None):
+    """Evaluate alarms on every batch the ingest writes; return the engine."""
+    from .alarms import AlarmEngine
+
+    log = AlarmLog(ingest.writer)
+    engine = AlarmEngine(site, schedule, sink=log.sink, next_id=log.next_id)
+    if ingest.writer.continuing:
+        log.restore_into(engine)
+
+    def hook(batch: Batch) -> None:
+        malformed = [ingest.timeline(r[0]) for r in batch.raw if not r[2]]
+        engine.evaluate(batch.times, batch.values, batch.status, malformed)
+
+    ingest.hooks.append(hook)
+    return engine
+
+
+def warm_start(pipeline: Pipeline, writer: LogWriter) -> int:
+    """Feed a continued log's readings back through the pipeline's trends and progress; return the samples read."""
+    names = [tc.name for tc in pipeline.site.thermocouples] + [f"{tc.name}.rate" for tc in pipeline.site.thermocouples]
+    values: dict[str, np.ndarray] = {}
+    times = None
+    for name in names:
+        rows = writer.execute(
+            "SELECT r.t, r.value FROM reading r JOIN channel c ON c.id = r.channel_id WHERE c.name = ? ORDER BY r.sample_id", (name,)
+        ).fetchall()
+        if not rows:
+            continue
+        arr = np.array([(t, np.nan if v is None else v) for t, v in rows], dtype=float)
+        if times is None:
+            times = arr[:, 0]
+        if arr.shape[0] == times.size:
+            values[name] = arr[:, 1]
+    if times is None:
+        return 0
+    pipeline.warm_start(times, values)
+    return int(times.size)

@@ -52,7 +52,7 @@ def pyrometer_reading(
     band: Band,
     band2: Band | None,
     ware_c: np.ndarray,
-    wall_c: np.ndarray,
+    wall_c: np.ndarray | None,
     emissivity: np.ndarray,
     slope: np.ndarray,
     fouling: np.ndarray,

@@ -189,7 +189,14 @@ class Simulation:
         for py in self.site.pyrometers:
             band, band2 = self.bands[py.name]
             noise = self.scenario.instruments.get(py.name, {}).get("noise_c", 1.0 if py.kind == "ratio" else 0.3)
-            value, status = pyrometer_reading(py, band, band2, ware, wall, eps, slope, fouling, rng.normal(0.0, noise, n))
+            # what the ware reflects: the walls, a fixed cold surround (a sight tube, an open door), or nothing
+            if isinstance(py.background, float):
+                surround = np.full(n, py.background)
+            elif py.background is None:
+                surround = None
+            else:
+                surround = wall
+            value, status = pyrometer_reading(py, band, band2, ware, surround, eps, slope, fouling, rng.normal(0.0, noise, n))
             columns.append((py.name, value, "C", status))
         garbage_draw = rng.random(n)
         garbage_kind = rng.integers(0, 3, n)

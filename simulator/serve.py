@@ -117,13 +117,13 @@ def to_log(sim: Simulation, log_path: Path, progress: Callable[[float], None] | 
     """Run the scenario as fast as possible through the recorder's pipeline into a firing log."""
     from firewatch.firinglog import LogWriter
     from firewatch.pipeline import Pipeline, channel_table
-    from firewatch.recorder import Ingest
+    from firewatch.recorder import Ingest, attach_alarms
     from firewatch.transport.native import NativeParser
 
     site, schedule = sim.site, sim.scenario.schedule
     writer = LogWriter(
         log_path,
-        channel_table(site),
+        channel_table(site, schedule),
         site_name=site.name,
         kiln=site.kiln,
         site_text=site.text,
@@ -135,6 +135,7 @@ def to_log(sim: Simulation, log_path: Path, progress: Callable[[float], None] | 
         clock_fn=lambda: sim.scenario.start_utc + sim.t,
     )
     ingest = Ingest(Pipeline(site, schedule, "device"), writer, NativeParser())
+    engine = attach_alarms(ingest, site, schedule)
     writer.event(sim.scenario.start_utc, "start", f"simulated firing: {sim.scenario.name}")
     pending: list[tuple[float, bytes]] = []
     since_commit = 0
@@ -154,7 +155,8 @@ def to_log(sim: Simulation, log_path: Path, progress: Callable[[float], None] | 
                         progress(sim.t)
         if pending:
             ingest.feed(pending)
+        engine.tick(sim.scenario.start_utc + sim.t)
         writer.event(sim.scenario.start_utc + sim.t, "stop", f"simulation ended after {sim.t / 3600:.2f} h")
     finally:
         writer.close("simulation ended")
-    return {"lines": ingest.lines, "malformed": ingest.malformed, "simulated_s": sim.t}
+    return {"lines": ingest.lines, "malformed": ingest.malformed, "simulated_s": sim.t, "alarms": len(engine.alarms)}

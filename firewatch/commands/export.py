@@ -30,7 +30,7 @@ def export_csv(reader, out) -> int:
     start = reader.firing().get("started_t")
     writer = csv.writer(out)
     writer.writerow(["time_utc", "elapsed_s"] + [f"{name} [{unit}]" for _, name, unit, _ in channels] + ["flags"])
-    measured = {cid for cid, _, _, kind in channels if kind != "derived"}
+    measured = {cid for cid, _, _, kind in channels if kind in ("thermocouple", "cold_junction", "pyrometer")}
     index = {cid: i for i, (cid, _, _, _) in enumerate(channels)}
     names = {cid: name for cid, name, _, _ in channels}
     rows = 0

@@ -26,7 +26,7 @@ def summary(reader) -> dict[str, Any]:
         name: count
         for name, count in reader.query(
             "SELECT c.name, count(r.sample_id) FROM channel c LEFT JOIN reading r ON r.channel_id = c.id "
-            "WHERE c.kind != 'derived' GROUP BY c.id ORDER BY c.id"
+            "WHERE c.kind IN ('thermocouple', 'cold_junction', 'pyrometer') GROUP BY c.id ORDER BY c.id"
         )
     }
     malformed = reader.query("SELECT count(*) FROM raw_line WHERE ok = 0")[0][0]

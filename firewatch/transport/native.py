@@ -37,8 +37,8 @@ __all__ = ["TAG", "crc16", "encode", "NativeParser"]
 
 TAG = b"FW1"
 _CHANNEL = re.compile(rb"^[A-Za-z0-9_.\-]{1,32}$")
+_OK = Status.OK
 _STATUS_WORDS = {b"OPEN": Status.OPEN, b"UNDER": Status.UNDER, b"OVER": Status.OVER, b"ERR": Status.ERROR}
-_UNITS = (b"mV", b"C")
 
 
 def crc16(data: bytes) -> int:
@@ -70,6 +70,10 @@ class NativeParser:
 
     name = "native"
 
+    def __init__(self) -> None:
+        self._names: dict[bytes, str] = {}
+        """Channel names already checked, bytes to str."""
+
     def parse(self, line: bytes, received: float) -> ReadingSet | Malformed:
         line = line.rstrip(b"\r\n")
         star = line.rfind(b" *")
@@ -94,32 +98,35 @@ class NativeParser:
             return Malformed(received, line, "device time is not finite")
         values: list[Value] = []
         seen: set[str] = set()
+        names = self._names
         for field in fields[3:]:
-            name, eq, text = field.partition(b"=")
-            if not eq or not _CHANNEL.match(name):
-                return Malformed(received, line, f"bad field {field[:40]!r}")
-            channel = name.decode("ascii")
+            raw_name, eq, text = field.partition(b"=")
+            channel = names.get(raw_name)
+            if channel is None:
+                if not eq or not _CHANNEL.match(raw_name):
+                    return Malformed(received, line, f"bad field {field[:40]!r}")
+                channel = names[raw_name] = raw_name.decode("ascii")
             if channel in seen:
                 return Malformed(received, line, f"channel {channel!r} twice")
             seen.add(channel)
-            status = _STATUS_WORDS.get(text)
-            if status is not None:
+            last = text[-1:]
+            if last == b"V" and text[-2:-1] == b"m":
+                unit, number_text = "mV", text[:-2]
+            elif last == b"C":
+                unit, number_text = "C", text[:-1]
+            else:
+                status = _STATUS_WORDS.get(text)
+                if status is None or not eq:
+                    return Malformed(received, line, f"bad value {field[:40]!r} (expected a number with mV or C, or OPEN/UNDER/OVER/ERR)")
                 values.append(Value(channel, math.nan, "", status))
                 continue
-            for unit in _UNITS:
-                if text.endswith(unit):
-                    try:
-                        number = float(text[: -len(unit)])
-                    except ValueError:
-                        break
-                    if not math.isfinite(number):
-                        break
-                    values.append(Value(channel, number, unit.decode("ascii")))
-                    break
-            else:
+            try:
+                number = float(number_text)
+            except ValueError:
                 return Malformed(received, line, f"bad value {field[:40]!r} (expected a number with mV or C, or OPEN/UNDER/OVER/ERR)")
-            if len(values) != len(seen):
+            if number - number != 0.0:  # inf or nan
                 return Malformed(received, line, f"bad value {field[:40]!r} (expected a number with mV or C, or OPEN/UNDER/OVER/ERR)")
+            values.append(Value(channel, number, unit, _OK))
         if not values:
             return Malformed(received, line, "no channel values")
         return ReadingSet(received, device_time, seq, tuple(values), line)

@@ -6,7 +6,7 @@ Recording and replay use the same types.
 from __future__ import annotations
 
 import enum
-from dataclasses import dataclass
+from typing import NamedTuple
 
 __all__ = ["Status", "Value", "ReadingSet", "Malformed"]
 
@@ -29,11 +29,12 @@ class Status(enum.IntEnum):
     """Expected but absent from the line."""
 
 
-@dataclass(frozen=True, slots=True)
-class Value:
-    """One channel's value in a reading set.
+class Value(NamedTuple):
+    """One channel's value in a reading set (immutable).
 
     ``value`` is NaN unless ``status`` is OK; ``unit`` is ``"mV"`` or ``"C"``.
+    A named tuple rather than a frozen dataclass: a replay builds millions,
+    and tuples are made several times faster.
     """
 
     channel: str
@@ -42,8 +43,7 @@ class Value:
     status: Status = Status.OK
 
 
-@dataclass(frozen=True, slots=True)
-class ReadingSet:
+class ReadingSet(NamedTuple):
     """All channels of one line.
 
     Attributes
@@ -73,8 +73,7 @@ class ReadingSet:
         return None
 
 
-@dataclass(frozen=True, slots=True)
-class Malformed:
+class Malformed(NamedTuple):
     """A line that could not be parsed, with the reason."""
 
     received: float

@@ -194,6 +194,8 @@ def test_garbage_lines_are_all_counted(tmp_path: Path) -> None:
     ).fetchone()
     assert bad > 50 and raw == bad + good and events == bad
     assert 0.25 < bad / raw < 0.55  # 40 % spoiled (the fault's setting); random bytes may hold extra line ends
+    # the live recorder's alarm engine saw it too
+    assert ("sensor-fault", "line-noise") in [(a["kind"], a["cause"]) for a in inspect(log)["alarms"]]
 
 
 def test_bad_command_lines(tmp_path: Path) -> None:

@@ -1,0 +1,247 @@
+"""Where a firing stands against its schedule, and when it will finish.
+
+The current segment is inferred from time *and* the measured temperature,
+as a careful controller runs a firing: a ramp ends when the kiln reaches
+its target (within ``band_c``), a hold then runs for its time, and a kiln
+that lags a ramp is still in that segment. The finish is predicted from
+the kiln's demonstrated climbing ability where it has shown one: while the
+kiln falls short of a planned heating rate, the rates it managed are kept
+against temperature, and a straight line through them (climbing ability
+falls as losses rise with temperature) caps the planned rates of the
+segments still to come.
+
+Per reading, :meth:`ProgressTracker.update` returns arrays for the firing
+log's ``plan.*`` channels:
+
+============== ====== ======================================================
+plan.segment   1      current segment index (0-based); len(segments) = done
+plan.setpoint  degC   the segment's own plan: start + rate x time in segment
+plan.deviation K      measured minus plan.setpoint (NaN in "max" ramps)
+plan.hold      s      time into the current hold (NaN while ramping)
+plan.remaining s      predicted time to the end of the schedule
+plan.behind    s      actual minus planned elapsed time at this progress
+============== ====== ======================================================
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from .schedule import Schedule
+
+__all__ = ["ProgressTracker", "Snapshot", "PLAN_CHANNELS"]
+
+PLAN_CHANNELS: tuple[tuple[str, str, str], ...] = (
+    ("plan.segment", "#", "current schedule segment (0-based)"),
+    ("plan.setpoint", "C", "the current segment's planned temperature"),
+    ("plan.deviation", "K", "measured minus the segment's plan"),
+    ("plan.hold", "s", "time into the current hold"),
+    ("plan.remaining", "s", "predicted time to the end of the schedule"),
+    ("plan.behind", "s", "actual minus planned elapsed time"),
+)
+
+
+@dataclass
+class Snapshot:
+    """Progress at one moment, for display."""
+
+    segment: int
+    phase: str  # "ramp", "hold" or "done"
+    elapsed_s: float
+    segment_elapsed_s: float
+    hold_s: float | None
+    fraction: float
+    setpoint_c: float
+    deviation_c: float
+    remaining_s: float
+    behind_s: float
+
+
+class ProgressTracker:
+    """Follow one firing; feed it readings in time order with :meth:`update`."""
+
+    def __init__(self, schedule: Schedule, band_c: float = 3.0) -> None:
+        self.schedule = schedule
+        self.band_c = band_c
+        self.start_t: float | None = None
+        self.segment = 0
+        self.segment_start_t = math.nan
+        self.segment_start_c = math.nan
+        self.hold_start_t: float | None = None
+        self.ability: list[tuple[float, float]] = []  # (temperature, demonstrated heating rate degC/h)
+        self._last_bin = -1
+        self.last: Snapshot | None = None
+        times, _, _ = schedule.breakpoints()
+        # planned elapsed time at the end of each segment's ramp and hold
+        self._plan_ramp_end = []
+        self._plan_seg_end = []
+        t = 0.0
+        for i, seg in enumerate(schedule.segments):
+            t += abs(seg.target_c - schedule.start_of(i)) / abs(schedule.planned_rate(i)) * 3600.0
+            self._plan_ramp_end.append(t)
+            t += seg.hold_s
+            self._plan_seg_end.append(t)
+
+    @property
+    def done(self) -> bool:
+        return self.segment >= len(self.schedule.segments)
+
+    def _enter(self, index: int, t: float, temp: float) -> None:
+        self.segment = index
+        self.segment_start_t = t
+        self.segment_start_c = temp
+        self.hold_start_t = None
+
+    def _reached(self, temp: float) -> bool:
+        seg = self.schedule.segments[self.segment]
+        start = self.schedule.start_of(self.segment)
+        if seg.target_c >= start:
+            return temp >= seg.target_c - self.band_c
+        return temp <= seg.target_c + self.band_c
+
+    def _step(self, t: float, temp: float, rate: float) -> None:
+        if self.start_t is None:
+            self.start_t = t
+            self._enter(0, t, temp)
+            # started late (a restart): skip ramps already passed and their holds
+            while not self.done and self._reached(temp) and self.segment + 1 < len(self.schedule.segments):
+                nxt = self.schedule.segments[self.segment + 1]
+                if abs(nxt.target_c - temp) <= self.band_c or (nxt.target_c > temp) != (self.schedule.segments[self.segment].target_c > self.schedule.start_of(self.segment)):
+                    break
+                self._enter(self.segment + 1, t, temp)
+        while not self.done:
+            seg = self.schedule.segments[self.segment]
+            if self.hold_start_t is None:
+                if not math.isfinite(temp) or not self._reached(temp):
+                    break
+                self.hold_start_t = t
+            if t - self.hold_start_t >= seg.hold_s:
+                self._enter(self.segment + 1, t, temp)
+                continue
+            break
+        self._learn(t, temp, rate)
+
+    def _learn(self, t: float, temp: float, rate: float) -> None:
+        """Keep the heating rates the kiln managed while it fell short of the plan (settled ramps only)."""
+        if self.done or self.hold_start_t is not None or not (math.isfinite(temp) and math.isfinite(rate)):
+            return
+        if t - self.segment_start_t < 600.0:
+            return
+        seg = self.schedule.segments[self.segment]
+        if seg.rate_c_per_h <= 0 or rate <= 0:
+            return
+        planned = seg.rate_c_per_h if not seg.is_fast else math.inf
+        if rate < 0.85 * planned:
+            b = int(temp // 25)  # one point per 25 degC
+            if b != self._last_bin:
+                self._last_bin = b
+                self.ability.append((temp, rate))
+
+    def _ability_at(self, temp: float) -> float:
+        """The heating rate the kiln can manage at ``temp``, degC/h (inf while it has kept up).
+
+        The median of the latest shortfalls, falling further with temperature
+        where the shortfalls show a clear fall over 100 degC or more, and never
+        below half the latest rate (a guard against extrapolating noise).
+        """
+        pts = [p for p in self.ability if p[0] > 150.0]
+        if len(pts) < 3:
+            return math.inf
+        x = np.array([p[0] for p in pts[-12:]])
+        y = np.array([p[1] for p in pts[-12:]])
+        latest = float(np.median(y[-5:]))
+        slope = min(float(np.polyfit(x, y, 1)[0]), 0.0) if np.ptp(x) >= 100.0 else 0.0
+        value = latest + slope * max(temp - float(x[-1]), 0.0)
+        return max(value, 0.5 * latest)
+
+    def _remaining(self, t: float, temp: float) -> float:
+        sched = self.schedule
+        if self.done:
+            return 0.0
+        total = 0.0
+        for i in range(self.segment, len(sched.segments)):
+            seg = sched.segments[i]
+            if i == self.segment and self.hold_start_t is not None:
+                total += max(seg.hold_s - (t - self.hold_start_t), 0.0)
+                continue
+            start = temp if i == self.segment else sched.start_of(i)
+            rate = abs(sched.planned_rate(i))
+            if seg.target_c > start:
+                mid = 0.5 * (start + seg.target_c)
+                rate = min(rate, self._ability_at(mid))
+            total += abs(seg.target_c - start) / rate * 3600.0 + seg.hold_s
+        return total
+
+    def _setpoint(self, t: float) -> float:
+        if self.done:
+            return math.nan
+        seg = self.schedule.segments[self.segment]
+        if self.hold_start_t is not None or seg.is_fast:
+            return seg.target_c
+        sp = self.segment_start_c + seg.rate_c_per_h / 3600.0 * (t - self.segment_start_t)
+        return min(sp, seg.target_c) if seg.rate_c_per_h > 0 else max(sp, seg.target_c)
+
+    def _planned_elapsed(self, t: float, temp: float) -> float:
+        """Planned elapsed time at the current point of progress."""
+        i = self.segment
+        if self.done:
+            return self._plan_seg_end[-1]
+        if self.hold_start_t is not None:
+            return self._plan_ramp_end[i] + (t - self.hold_start_t)
+        begin = self._plan_seg_end[i - 1] if i else 0.0
+        start = self.schedule.start_of(i)
+        seg = self.schedule.segments[i]
+        span = seg.target_c - start
+        frac = 0.0 if span == 0 else min(max((temp - start) / span, 0.0), 1.0)
+        return begin + frac * (self._plan_ramp_end[i] - begin)
+
+    def update(self, times: np.ndarray, temps: np.ndarray, rates: np.ndarray) -> dict[str, np.ndarray]:
+        """Feed readings (degC and degC/h of the control thermocouple); return the plan.* arrays."""
+        n = len(times)
+        out = {name: np.full(n, np.nan) for name, _, _ in PLAN_CHANNELS}
+        for i in range(n):
+            t, temp, rate = float(times[i]), float(temps[i]), float(rates[i])
+            if not math.isfinite(temp):
+                if self.start_t is None:
+                    continue
+            else:
+                self._step(t, temp, rate)
+            if self.start_t is None:
+                continue
+            sp = self._setpoint(t)
+            out["plan.segment"][i] = self.segment
+            out["plan.setpoint"][i] = sp
+            fast_ramp = not self.done and self.hold_start_t is None and self.schedule.segments[self.segment].is_fast
+            out["plan.deviation"][i] = temp - sp if math.isfinite(temp) and not fast_ramp else math.nan
+            out["plan.hold"][i] = (t - self.hold_start_t) if self.hold_start_t is not None else math.nan
+            if i == n - 1 or i % 10 == 0:  # the prediction changes slowly; every 10th reading is plenty
+                remaining = self._remaining(t, temp if math.isfinite(temp) else self.segment_start_c)
+                if self.done:  # frozen at the moment the schedule ended
+                    behind = (self.segment_start_t - self.start_t) - self._plan_seg_end[-1]
+                else:
+                    behind = (t - self.start_t) - self._planned_elapsed(t, temp if math.isfinite(temp) else self.segment_start_c)
+            out["plan.remaining"][i] = remaining
+            out["plan.behind"][i] = behind
+        if n and self.start_t is not None:
+            t = float(times[-1])
+            seg_el = t - self.segment_start_t
+            hold = None if self.hold_start_t is None else t - self.hold_start_t
+            if self.done:
+                phase, frac = "done", 1.0
+            elif hold is not None:
+                seg = self.schedule.segments[self.segment]
+                phase, frac = "hold", 1.0 if seg.hold_s == 0 else min(hold / seg.hold_s, 1.0)
+            else:
+                seg = self.schedule.segments[self.segment]
+                span = seg.target_c - self.segment_start_c
+                last_temp = float(temps[-1])
+                phase, frac = "ramp", 0.0 if span == 0 or not math.isfinite(last_temp) else min(max((last_temp - self.segment_start_c) / span, 0.0), 1.0)
+            self.last = Snapshot(
+                self.segment, phase, t - self.start_t, seg_el, hold, frac,
+                float(out["plan.setpoint"][-1]), float(out["plan.deviation"][-1]),
+                float(out["plan.remaining"][-1]), float(out["plan.behind"][-1]),
+            )
+        return out
