@@ -25,6 +25,8 @@ COMMANDS: dict[str, str] = {
     "inspect": "inspect",
     "export": "export",
     "replay": "replay",
+    "watch": "watch",
+    "demo": "demo",
 }
 
 CAUTION = (

@@ -128,6 +128,14 @@ CREATE TABLE alarm_state(
     detail TEXT
 );
 CREATE INDEX alarm_state_alarm ON alarm_state(alarm_id);
+CREATE TABLE trend_minute(
+    channel_id INTEGER NOT NULL,
+    minute INTEGER NOT NULL,
+    lo REAL NOT NULL,
+    hi REAL NOT NULL,
+    n INTEGER NOT NULL,
+    PRIMARY KEY (channel_id, minute)
+) WITHOUT ROWID;
 CREATE VIEW readings AS
     SELECT c.name AS channel, r.t AS t, r.value AS value, r.status AS status, c.unit AS unit
     FROM reading r JOIN channel c ON c.id = r.channel_id;
@@ -291,12 +299,36 @@ class LogWriter:
                     "INSERT INTO reading(channel_id, sample_id, t, value, status) VALUES (?, ?, ?, ?, ?)",
                     zip([cid] * len(id_list), id_list, t_list, vals, status),
                 )
+            self._write_minutes(times, batch)
             if self.last_t is None:
                 con.execute("UPDATE firing SET started_t = coalesce(started_t, ?) WHERE id = 1", (t_list[0],))
             self.last_t = t_list[-1]
             con.execute("UPDATE firing SET ended_t = ? WHERE id = 1", (t_list[-1],))
         if batch.events:
             con.executemany("INSERT INTO event(t, kind, channel, detail) VALUES (?, ?, ?, ?)", batch.events)
+
+    def _write_minutes(self, times: np.ndarray, batch: Batch) -> None:
+        """Keep the per-minute min and max of every channel, so that viewers draw long firings at once."""
+        minutes = np.floor(times / 60.0).astype(np.int64)
+        starts = np.concatenate([[0], np.flatnonzero(np.diff(minutes)) + 1])
+        keys = minutes[starts].tolist()
+        rows = []
+        for name, values in batch.values.items():
+            cid = self._channel_ids.get(name)
+            if cid is None:
+                continue
+            ok = np.isfinite(values)
+            if not ok.any():
+                continue
+            lo = np.minimum.reduceat(np.where(ok, values, np.inf), starts)
+            hi = np.maximum.reduceat(np.where(ok, values, -np.inf), starts)
+            n = np.add.reduceat(ok.astype(np.int64), starts)
+            rows.extend((cid, k, float(a), float(b), int(c)) for k, a, b, c in zip(keys, lo, hi, n) if c > 0)
+        self.con.executemany(
+            "INSERT INTO trend_minute(channel_id, minute, lo, hi, n) VALUES (?, ?, ?, ?, ?) "
+            "ON CONFLICT(channel_id, minute) DO UPDATE SET lo = min(lo, excluded.lo), hi = max(hi, excluded.hi), n = n + excluded.n",
+            rows,
+        )
 
     def event(self, t: float, kind: str, detail: str = "", channel: str | None = None) -> None:
         self.con.execute("INSERT INTO event(t, kind, channel, detail) VALUES (?, ?, ?, ?)", (t, kind, channel, detail))

@@ -192,6 +192,13 @@ class Recorder:
         ingest = Ingest(pipeline, writer, make_parser(self.site))
         self.ingest = ingest
         self.engine = attach_alarms(ingest, self.site, self.schedule)
+        from .actions import ActionQueue
+
+        try:
+            self.actions: ActionQueue | None = ActionQueue(self.log_path)
+        except sqlite3.Error as exc:
+            self.actions = None
+            self._say(f"operator actions unavailable ({exc}); recording goes on")
         for hook in getattr(self, "extra_hooks", []):
             ingest.hooks.append(hook)
         version = tuple(int(x) for x in sqlite3.sqlite_version.split("."))
@@ -236,6 +243,33 @@ class Recorder:
             self._say(f"stopped: {detail}")
         return reason
 
+    def _apply_actions(self, writer: LogWriter, now: float) -> None:
+        """Apply what viewers asked for (acknowledge, shelve, note) and log each with its source."""
+        if self.actions is None:
+            return
+        try:
+            pending = self.actions.pending()
+        except sqlite3.Error as exc:
+            self._say(f"cannot read operator actions: {exc}")
+            return
+        for action in pending:
+            try:
+                if action.kind == "acknowledge":
+                    result = self.engine.acknowledge(action.alarm_id, now, by=action.source)
+                elif action.kind == "shelve":
+                    result = self.engine.shelve(action.alarm_id, now, action.reason, now + float(action.duration_s), by=action.source)
+                elif action.kind == "unshelve":
+                    result = self.engine.unshelve(action.alarm_id, now, by=action.source)
+                else:
+                    writer.event(now, "note", f"{action.text} ({action.source})")
+                    result = "note logged"
+            except KeyError:
+                result = f"no alarm {action.alarm_id}"
+            except (ValueError, TypeError) as exc:
+                result = f"refused: {exc}"
+            writer.event(now, "action", f"{action.kind} from {action.source}: {result}")
+            self.actions.mark_applied(action.id, result)
+
     def _cycle(self, writer: LogWriter, ingest: Ingest) -> None:
         lines: list[tuple[float, bytes]] = []
         while True:
@@ -259,7 +293,9 @@ class Recorder:
                 lines.append(item)
         if lines:
             ingest.feed(lines)
-        self.engine.tick(ingest.timeline(self.clock_fn()))
+        now = ingest.timeline(self.clock_fn())
+        self.engine.tick(now)
+        self._apply_actions(writer, now)
         writer.commit()
         done = self.clock_fn()
         if lines and len(self.latencies) < 2_000_000:

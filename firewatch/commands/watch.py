@@ -1,0 +1,23 @@
+"""``firewatch watch``: the dashboard over a live firing log (any number of viewers)."""
+
+from __future__ import annotations
+
+import argparse
+
+from ._common import open_log
+
+__all__ = ["add_parser", "run"]
+
+
+def add_parser(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("watch", help="watch a live firing (the dashboard)",
+                       description="Attach to a firing log that a recorder is writing. Closing the viewer, or losing "
+                       "the SSH connection, never disturbs the recorder.")
+    p.add_argument("log", metavar="FILE.db")
+
+
+def run(args: argparse.Namespace) -> int:
+    open_log(args.log).close()  # a clear message for a missing or foreign file, before the screen opens
+    from ..ui import run_watch
+
+    return run_watch(args.log)

@@ -1,0 +1,25 @@
+"""The dashboard (textual): watch a live firing, replay a finished one, and the demo.
+
+Nothing outside this package imports it; it reads the model
+(:mod:`firewatch.view`) and writes operator actions through
+:mod:`firewatch.actions`. textual is imported only here, by the commands
+that draw.
+"""
+
+from __future__ import annotations
+
+__all__ = ["run_watch", "run_replay"]
+
+
+def run_watch(log, show_cautions: bool | None = None) -> int:
+    from .app import FirewatchApp
+
+    FirewatchApp(log, mode="live", show_cautions=show_cautions).run()
+    return 0
+
+
+def run_replay(log, site=None, schedule=None, speed: float = 60.0, show_cautions: bool | None = None) -> int:
+    from .app import FirewatchApp
+
+    FirewatchApp(log, mode="replay", site=site, schedule=schedule, speed=speed, show_cautions=show_cautions).run()
+    return 0

@@ -1,0 +1,62 @@
+"""The textual application: a thin shell holding the units, the action queue and the screens."""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+from textual.app import App
+from textual.reactive import reactive
+
+from ..actions import ActionQueue
+from ..view import FiringView
+from .dashboard import DashboardScreen
+from .screens import CautionsScreen
+
+__all__ = ["FirewatchApp", "cautions_marker"]
+
+
+def cautions_marker() -> Path:
+    """A file whose presence means the cautions were shown on this account before."""
+    base = os.environ.get("XDG_STATE_HOME") or os.path.join(os.path.expanduser("~"), ".local", "state")
+    return Path(base) / "firewatch" / "cautions-seen"
+
+
+class FirewatchApp(App):
+    """The dashboard over one firing log."""
+
+    CSS_PATH = "firewatch.tcss"
+    TITLE = "firewatch"
+    ENABLE_COMMAND_PALETTE = False
+
+    unit: reactive[str] = reactive("C")
+    """Units people read: C or F."""
+
+    def __init__(self, log, mode: str = "live", site=None, schedule=None, speed: float = 60.0,
+                 show_cautions: bool | None = None, actions: ActionQueue | None = None) -> None:
+        super().__init__()
+        self.log_path = Path(log)
+        self.mode = mode
+        self.view = FiringView(self.log_path, site=site, schedule=schedule)
+        self.speed = speed
+        self.actions = actions if actions is not None else (ActionQueue(self.log_path) if mode == "live" else None)
+        marker = cautions_marker()
+        self.show_cautions = (not marker.exists()) if show_cautions is None else show_cautions
+        self._marker = marker if show_cautions is None else None
+
+    def on_mount(self) -> None:
+        self.theme = "textual-dark"
+        self.push_screen(DashboardScreen(self.view, self.mode, self.speed))
+        if self.show_cautions:
+            self.push_screen(CautionsScreen())
+            if self._marker is not None:
+                try:
+                    self._marker.parent.mkdir(parents=True, exist_ok=True)
+                    self._marker.touch()
+                except OSError:
+                    pass  # cannot remember: the cautions show again next time, which is harmless
+
+    def on_unmount(self) -> None:
+        self.view.close()
+        if self.actions is not None:
+            self.actions.close()

@@ -1,0 +1,371 @@
+"""The dashboard screen: readings, schedule, trend, alarms and events, live or replayed.
+
+Live (``watch``): a thread worker polls the log every second in short
+read-only transactions and posts what it read; numbers refresh when the
+log has news (at most twice a second), the chart every ten seconds.
+Replay: a cursor moves through the firing at 1x to 1000x, two steps a
+second; seeking and jumping between alarms move it at once.
+"""
+
+from __future__ import annotations
+
+import math
+import threading
+import time
+
+from textual import work
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Horizontal, Vertical
+from textual.message import Message
+from textual.screen import Screen
+from textual.widgets import Footer, Static, TabbedContent, TabPane
+
+from ..view import FiringView, Moment
+from . import format as fmt
+from .screens import HelpScreen, NoteScreen, ShelveScreen
+from .widgets import AlarmList, ChartData, EventList, ReadingsPanel, SchedulePanel, TrendChart
+
+__all__ = ["DashboardScreen", "SPEEDS"]
+
+SPEEDS = (1, 2, 5, 10, 20, 60, 120, 300, 600, 1000)
+"""Replay speeds, simulated seconds per second."""
+CAUTION_LINE = "⚠ a monitoring aid, never a safety device: the kiln's controller and cut-out stay in charge (? cautions)"
+CHART_EVERY_S = 10.0
+"""Live: the chart is redrawn this often at most (numbers update every second)."""
+
+
+class LogRead(Message):
+    """What the poller read: a moment and, sometimes, chart data."""
+
+    def __init__(self, moment: Moment, chart: ChartData | None, end_t: float | None) -> None:
+        super().__init__()
+        self.moment = moment
+        self.chart = chart
+        self.end_t = end_t
+
+
+class DashboardScreen(Screen):
+    """One screen for live and replay."""
+
+    BINDINGS = [
+        Binding("question_mark", "help", "Help"),
+        Binding("u", "units", "°C/°F"),
+        Binding("a", "acknowledge", "Ack"),
+        Binding("s", "shelve", "Shelve"),
+        Binding("o", "note", "Note"),
+        Binding("space", "play", "Play/pause", priority=True),
+        Binding("plus,equals_sign", "faster", "Faster"),
+        Binding("minus", "slower", "Slower"),
+        Binding("left", "seek(-60)", "-1 min", show=False, priority=True),
+        Binding("right", "seek(60)", "+1 min", show=False, priority=True),
+        Binding("shift+left", "seek(-600)", "-10 min", show=False, priority=True),
+        Binding("shift+right", "seek(600)", "+10 min", show=False, priority=True),
+        Binding("pageup", "seek(-3600)", "-1 h", show=False, priority=True),
+        Binding("pagedown", "seek(3600)", "+1 h", show=False, priority=True),
+        Binding("home", "seek_to('start')", "Start", show=False, priority=True),
+        Binding("end", "seek_to('end')", "End", show=False, priority=True),
+        Binding("right_square_bracket", "next_alarm", "Next alarm"),
+        Binding("left_square_bracket", "previous_alarm", "Prev alarm"),
+        Binding("z", "zoom(0.5)", "Zoom in"),
+        Binding("x", "zoom(2)", "Zoom out"),
+        Binding("f", "fit", "Fit", show=False),
+        Binding("e", "toggle_tab", "Alarms/events", show=False),
+        Binding("q", "app.quit", "Quit"),
+    ]
+
+    KEY_HELP = [
+        ("?", "this help, with the cautions"),
+        ("u", "switch °C / °F"),
+        ("↑ ↓", "choose an alarm in the list"),
+        ("a", "acknowledge the chosen alarm (live)"),
+        ("s", "shelve the chosen alarm with a reason and a time (live)"),
+        ("o", "add an operator note to the firing log (live)"),
+        ("e", "alarms / events"),
+        ("z  x  f", "zoom the trend in, out, fit the whole firing"),
+        ("space", "play / pause (replay)"),
+        ("+  -", "replay faster / slower (1x to 1000x)"),
+        ("← →", "seek 1 minute (replay)"),
+        ("shift ← →", "seek 10 minutes (replay)"),
+        ("PgUp PgDn", "seek 1 hour (replay)"),
+        ("Home End", "start / end of the firing (replay)"),
+        ("]  [", "next / previous alarm (replay)"),
+        ("q", "quit (the recorder keeps recording)"),
+    ]
+
+    def __init__(self, view: FiringView, mode: str, speed: float = 60.0) -> None:
+        super().__init__()
+        self.view = view
+        self.mode = mode
+        self.speed = min(SPEEDS, key=lambda s: abs(s - speed))
+        self.playing = False
+        self.cursor: float | None = view.start_t if mode == "replay" else None
+        self.zoom_span: float | None = None
+        self.selected_alarm: int | None = None
+        self._wake = threading.Event()
+        self._want_chart = True
+        self._last_chart = 0.0
+        self._stop = threading.Event()
+        self._legend: list[str] = []
+        self._evidence = ""
+        self.chart_cursor: float | None = None
+        """Where the chart last drew its cursor (tests wait on it)."""
+
+    # -- layout ---------------------------------------------------------------------------
+    def compose(self) -> ComposeResult:
+        site = self.view.site
+        yield Static(id="title")
+        with Horizontal(id="top"):
+            yield ReadingsPanel(site)
+            yield SchedulePanel(self.view.schedule, site.control.name if site and site.control else None)
+        yield TrendChart()
+        yield Static(id="cursorline")
+        with TabbedContent(id="lower"):
+            with TabPane("Alarms", id="alarms-tab"):
+                yield AlarmList()
+            with TabPane("Events", id="events-tab"):
+                yield EventList()
+        yield Static(id="evidence")
+        yield Footer()
+
+    def on_mount(self) -> None:
+        self.query_one(AlarmList).focus()
+        self.poll()
+        if self.mode == "replay":
+            self.set_interval(0.5, self._tick)
+        self._request()
+
+    def on_unmount(self) -> None:
+        self._stop.set()
+        self._wake.set()
+
+    # -- the poller (thread worker: reads only, posts messages) ------------------------
+    @work(thread=True, exclusive=True, group="poll")
+    def poll(self) -> None:
+        view = self.view
+        while not self._stop.is_set():
+            self._wake.wait(1.0)
+            self._wake.clear()
+            if self._stop.is_set():
+                return
+            try:
+                # take the request first, then the cursor: a seek that lands meanwhile wakes us again
+                want_chart, self._want_chart = self._want_chart, False
+                news = view.refresh_bounds()
+                if self.mode == "live" and not news and not want_chart:
+                    continue
+                t = self.cursor if self.mode == "replay" else view.end_t
+                if t is None:
+                    continue
+                moment = view.moment(t)
+                chart = None
+                now = time.monotonic()
+                if want_chart or (self.mode == "live" and now - self._last_chart >= CHART_EVERY_S):
+                    chart = self._chart_data(t)
+                    self._last_chart = now
+                self.post_message(LogRead(moment, chart, view.end_t))
+            except Exception as exc:  # a busy or vanished log: say so, keep polling
+                if self._stop.is_set():
+                    return
+                try:
+                    self.app.call_from_thread(self.notify, f"cannot read the log: {exc}", severity="error")
+                except RuntimeError:
+                    return
+
+    def _chart_data(self, t: float) -> ChartData:
+        view = self.view
+        start = view.start_t or t
+        end = view.end_t or t
+        span = self.zoom_span or max(end - start, 60.0)
+        if self.zoom_span:
+            t0 = max(start, t - span / 2)
+            t1 = min(max(t0 + span, t), end if self.mode == "replay" else max(end, t))
+        else:
+            t0, t1 = start, max(end, start + 60.0)
+        columns = max(20, (self.size.width or 80) - 12)
+        names = []
+        site = view.site
+        if site is not None:
+            if site.reference:
+                names.append(site.reference.name)
+            if site.control and site.control is not site.reference:
+                names.append(site.control.name)
+            names += [f"{p.name}.reconciled" for p in site.pyrometers[:2]]
+        series = []
+        for name in names[:4]:
+            tr = view.trend(name, t0, t1, columns)
+            # min and max per column, drawn as one line through both
+            import numpy as np
+
+            tt = np.repeat(tr.t, 2)
+            yy = np.column_stack([tr.lo, tr.hi]).ravel()
+            series.append((name.replace(".reconciled", ""), tt, yy))
+        alarms = [a[0] for a in view.alarm_times()]
+        return ChartData(t0, t1, series, view.planned(t0, t1), t if self.mode == "replay" else None, alarms,
+                         self.app.unit, origin=start)
+
+    def _request(self, chart: bool = False) -> None:
+        self._want_chart = self._want_chart or chart
+        self._wake.set()
+
+    # -- applying what was read -------------------------------------------------------
+    def on_log_read(self, message: LogRead) -> None:
+        m = message.moment
+        unit = self.app.unit
+        readings = self.query_one(ReadingsPanel)
+        readings.unit, readings.moment = unit, m
+        sched = self.query_one(SchedulePanel)
+        sched.unit, sched.moment = unit, m
+        self.query_one(AlarmList).show(m.alarms, self.view.start_t)
+        self.query_one(EventList).show(m.events)
+        if message.chart is not None:
+            self.query_one(TrendChart).draw(message.chart)
+            self._legend = ["plan(dim)"] + [label for label, _, _ in message.chart.series]
+            self.chart_cursor = message.chart.cursor
+        self._title(m)
+
+    def _title(self, m: Moment) -> None:
+        view = self.view
+        firing = view.firing
+        unack = [a for a in m.alarms if a.state in ("active-unacknowledged", "returned-unacknowledged", "latched")]
+        where = "LIVE" if self.mode == "live" else f"REPLAY {'▶' if self.playing else '❚❚'} {self.speed}x"
+        alarm_text = f"ALARMS {len(m.alarms)} ({len(unack)} unack)" if m.alarms else "no alarms"
+        title = self.query_one("#title", Static)
+        title.update(f"{where} {fmt.clock(m.t)} · {alarm_text} · {firing.get('site_name') or ''} · {firing.get('kiln') or ''}")
+        title.set_class(bool(unack), "alarming")
+        start = view.start_t
+        line = f"t+{fmt.duration(m.t - start) if start else '—'}"
+        if self.mode == "replay" and view.end_t and start:
+            line += f" of {fmt.duration(view.end_t - start)}"
+        if self.mode == "live" and view.end_t is not None:
+            age = time.time() - view.end_t if view.firing.get("clock") == "wall" else 0.0
+            if age > 30:
+                line += f" · NO NEW DATA for {fmt.duration(age)}"
+        legend = "trend " + "·".join(self._legend) + f" ({'°F' if self.app.unit == 'F' else '°C'}, h)" if self._legend else ""
+        self.query_one("#cursorline", Static).update(f"{line} · {legend}")
+        if not self._evidence:
+            self.query_one("#evidence", Static).update(CAUTION_LINE)
+
+    def on_alarm_list_highlighted(self, message: AlarmList.Highlighted) -> None:
+        self.selected_alarm = message.alarm_id
+        self._evidence = message.evidence
+        self.query_one("#evidence", Static).update(f"evidence: {message.evidence}" if message.evidence else CAUTION_LINE)
+        self.refresh_bindings()
+
+    # -- actions ------------------------------------------------------------------------
+    def check_action(self, action: str, parameters: tuple) -> bool | None:
+        replay_only = {"play", "faster", "slower", "seek", "seek_to", "next_alarm", "previous_alarm"}
+        live_only = {"acknowledge", "shelve", "note"}
+        if action in replay_only and self.mode != "replay":
+            return False
+        if action in live_only:
+            if self.mode != "live":
+                return False
+            if action != "note" and self.selected_alarm is None:
+                return None  # shown dimmed: choose an alarm first
+        return True
+
+    def action_help(self) -> None:
+        self.app.push_screen(HelpScreen(self.KEY_HELP))
+
+    def action_units(self) -> None:
+        self.app.unit = "F" if self.app.unit == "C" else "C"
+        self._request(chart=True)
+
+    def action_toggle_tab(self) -> None:
+        tabs = self.query_one(TabbedContent)
+        tabs.active = "events-tab" if tabs.active == "alarms-tab" else "alarms-tab"
+
+    def _submit(self, kind: str, **kw) -> None:
+        try:
+            action_id = self.app.actions.submit(kind, **kw)
+        except ValueError as exc:
+            self.notify(str(exc), severity="error")
+            return
+        self.notify(f"{kind} sent to the recorder (#{action_id})")
+
+    def action_acknowledge(self) -> None:
+        if self.selected_alarm is not None:
+            self._submit("acknowledge", alarm_id=self.selected_alarm)
+
+    def action_shelve(self) -> None:
+        alarm_id = self.selected_alarm
+        if alarm_id is None:
+            return
+
+        def done(result) -> None:
+            if result:
+                reason, seconds = result
+                self._submit("shelve", alarm_id=alarm_id, reason=reason, duration_s=seconds)
+
+        self.app.push_screen(ShelveScreen(f"alarm #{alarm_id}"), done)
+
+    def action_note(self) -> None:
+        def done(text) -> None:
+            if text:
+                self._submit("note", text=text)
+
+        self.app.push_screen(NoteScreen(), done)
+
+    def action_play(self) -> None:
+        self.playing = not self.playing
+        self._request()
+
+    def action_faster(self) -> None:
+        i = SPEEDS.index(self.speed)
+        self.speed = SPEEDS[min(i + 1, len(SPEEDS) - 1)]
+        self._request()
+
+    def action_slower(self) -> None:
+        i = SPEEDS.index(self.speed)
+        self.speed = SPEEDS[max(i - 1, 0)]
+        self._request()
+
+    def seek(self, t: float) -> None:
+        """Move the replay cursor (clamped to the firing)."""
+        view = self.view
+        if view.start_t is None or view.end_t is None:
+            return
+        self.cursor = min(max(t, view.start_t), view.end_t)
+        self._request(chart=True)
+
+    def action_seek(self, seconds: float) -> None:
+        if self.cursor is not None:
+            self.seek(self.cursor + float(seconds))
+
+    def action_seek_to(self, where: str) -> None:
+        self.seek((self.view.start_t if where == "start" else self.view.end_t) or 0.0)
+
+    def action_next_alarm(self) -> None:
+        times = [t for t, _, _ in self.view.alarm_times() if self.cursor is not None and t > self.cursor + 0.5]
+        if times:
+            self.seek(times[0])
+        else:
+            self.notify("no later alarm")
+
+    def action_previous_alarm(self) -> None:
+        times = [t for t, _, _ in self.view.alarm_times() if self.cursor is not None and t < self.cursor - 0.5]
+        if times:
+            self.seek(times[-1])
+        else:
+            self.notify("no earlier alarm")
+
+    def action_zoom(self, factor: float) -> None:
+        view = self.view
+        full = (view.end_t or 0) - (view.start_t or 0)
+        span = (self.zoom_span or full) * float(factor)
+        self.zoom_span = None if span >= full else max(span, 600.0)
+        self._request(chart=True)
+
+    def action_fit(self) -> None:
+        self.zoom_span = None
+        self._request(chart=True)
+
+    def _tick(self) -> None:
+        if self.mode != "replay" or not self.playing or self.cursor is None:
+            return
+        if self.view.end_t is not None and self.cursor >= self.view.end_t:
+            self.playing = False
+            return
+        self.cursor = min(self.cursor + self.speed * 0.5, self.view.end_t or self.cursor)
+        self._request(chart=True)
