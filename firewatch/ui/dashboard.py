@@ -108,6 +108,9 @@ class DashboardScreen(Screen):
         self._stop = threading.Event()
         self._legend: list[str] = []
         self._evidence = ""
+        self._series_key: tuple | None = None
+        self._series: list = []
+        self._alarm_marks: list[float] = []
         self.chart_cursor: float | None = None
         """Where the chart last drew its cursor (tests wait on it)."""
 
@@ -191,16 +194,20 @@ class DashboardScreen(Screen):
             if site.control and site.control is not site.reference:
                 names.append(site.control.name)
             names += [f"{p.name}.reconciled" for p in site.pyrometers[:2]]
-        series = []
-        for name in names[:4]:
-            tr = view.trend(name, t0, t1, columns)
-            # min and max per column, drawn as one line through both
+        key = (t0, t1, columns, tuple(names))
+        if self._series_key != key:  # a seek within the same span redraws only the cursor
             import numpy as np
 
-            tt = np.repeat(tr.t, 2)
-            yy = np.column_stack([tr.lo, tr.hi]).ravel()
-            series.append((name.replace(".reconciled", ""), tt, yy))
-        alarms = [a[0] for a in view.alarm_times()]
+            series = []
+            for name in names[:4]:
+                tr = view.trend(name, t0, t1, columns)
+                # min and max per column, drawn as one line through both
+                tt = np.repeat(tr.t, 2)
+                yy = np.column_stack([tr.lo, tr.hi]).ravel()
+                series.append((name.replace(".reconciled", ""), tt, yy))
+            self._series_key, self._series = key, series
+            self._alarm_marks = [a[0] for a in view.alarm_times()]
+        series, alarms = self._series, self._alarm_marks
         return ChartData(t0, t1, series, view.planned(t0, t1), t if self.mode == "replay" else None, alarms,
                          self.app.unit, origin=start)
 

@@ -1,0 +1,130 @@
+"""Benchmark: the dashboard over a 72 h, 1 Hz, 8-channel firing; seeks; live viewer CPU and memory.
+
+Run by hand: ``python benchmarks/bench_dashboard.py``. Targets (issue 5): first
+screen <= 1.5 s; a seek <= 100 ms; viewer CPU while watching live <= 5 % of
+one core; viewer memory <= 300 MB. Baselines measured in the same run.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import os
+import random
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+sys.path.insert(0, str(ROOT / "benchmarks"))
+
+from bench_alarms import make_log  # noqa: E402
+from bench_recorder import cpu_seconds  # noqa: E402
+
+
+def rss_mb(pid: int) -> float:
+    for line in Path(f"/proc/{pid}/status").read_text().splitlines():
+        if line.startswith("VmRSS:"):
+            return int(line.split()[1]) / 1024
+    return float("nan")
+
+
+async def first_screen_and_seeks(log: Path) -> tuple[float, list[float]]:
+    from firewatch.ui.app import FirewatchApp
+    from firewatch.ui.widgets import ReadingsPanel
+
+    t0 = time.perf_counter()
+    app = FirewatchApp(log, mode="replay", show_cautions=False)
+    seeks: list[float] = []
+    async with app.run_test(size=(160, 48)) as pilot:
+        screen = app.screen
+        while not (screen.chart_cursor is not None and screen.query_one(ReadingsPanel).moment is not None):
+            await pilot.pause(0.005)
+        first = time.perf_counter() - t0
+        rng = random.Random(1)
+        for _ in range(20):
+            target = screen.view.start_t + rng.uniform(0, screen.view.end_t - screen.view.start_t)
+            s0 = time.perf_counter()
+            screen.seek(target)
+            while not (screen.chart_cursor == screen.cursor and screen.query_one(ReadingsPanel).moment.t == screen.cursor):
+                await pilot.pause(0.002)
+            seeks.append(time.perf_counter() - s0)
+    return first, seeks
+
+
+def tmux_process(command: str, seconds: float, name: str) -> tuple[float, float, float]:
+    """Run ``command`` in a detached 160x48 tmux pane; return (CPU fraction, RSS MB at the end, peak RSS MB)."""
+    sock = f"fwbench{os.getpid()}"
+    subprocess.run(["tmux", "-L", sock, "new-session", "-d", "-s", name, "-x", "160", "-y", "48", command], check=True,
+                   env=dict(os.environ, XDG_STATE_HOME=tempfile.mkdtemp(), TERM="xterm-256color"))
+    try:
+        time.sleep(4.0)
+        pane = subprocess.run(["tmux", "-L", sock, "display", "-p", "-t", name, "#{pane_pid}"], capture_output=True, text=True).stdout.strip()
+        pid = int(pane)
+        c0, w0 = cpu_seconds(pid), time.monotonic()
+        peak = 0.0
+        end = time.monotonic() + seconds
+        while time.monotonic() < end:
+            peak = max(peak, rss_mb(pid))
+            time.sleep(0.5)
+        c1, w1 = cpu_seconds(pid), time.monotonic()
+        return (c1 - c0) / (w1 - w0), rss_mb(pid), peak
+    finally:
+        subprocess.run(["tmux", "-L", sock, "kill-server"])
+
+
+def main() -> None:
+    tmp = Path(tempfile.mkdtemp(prefix="fw-bench-"))
+    log = make_log(tmp)
+    from firewatch.firinglog import LogReader
+
+    t0 = time.perf_counter()
+    with LogReader(log) as r:
+        naive = r.series("tc2")
+    t_naive = time.perf_counter() - t0
+    from firewatch.view import FiringView
+
+    view = FiringView(log)
+    t0 = time.perf_counter()
+    for _ in range(20):
+        view.moment(view.start_t + random.random() * (view.end_t - view.start_t))
+    t_moment = (time.perf_counter() - t0) / 20
+    view.close()
+
+    first, seeks = asyncio.run(first_screen_and_seeks(log))
+    seeks.sort()
+    print(f"baseline: load one channel in full ({naive.t.size} readings)  {t_naive * 1e3:7.1f} ms")
+    print(f"baseline: one moment (every channel at a time)           {t_moment * 1e3:7.1f} ms")
+    print(f"open the 72 h log and draw the first screen (160x48)    {first * 1e3:7.1f} ms (target <= 1500), ratio to loading one channel {first / t_naive:.2f}")
+    print(f"seek, median / worst of 20 (moment + chart)             {seeks[10] * 1e3:7.1f} / {seeks[-1] * 1e3:.1f} ms (target <= 100)")
+
+    # memory on that log, replay, in a real terminal
+    _, rss_replay, peak_replay = tmux_process(f"{sys.executable} -m firewatch replay {log}", 6.0, "replay")
+    bare_rss = float(subprocess.run([sys.executable, "-c", "import textual, numpy, resource; print(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024)"],
+                                    capture_output=True, text=True).stdout)
+    print(f"viewer memory on the 72 h log: {rss_replay:.0f} MB (peak {peak_replay:.0f} MB; target <= 300); bare python+textual+numpy {bare_rss:.0f} MB")
+
+    # CPU while watching a live firing: simulator at 60x, a recorder, and the viewer
+    live = tmp / "live.db"
+    sim = subprocess.Popen([sys.executable, "-m", "firewatch", "sim", "--tcp", "127.0.0.1:0", "--speed", "60"], stdout=subprocess.PIPE, text=True, cwd=ROOT)
+    port = sim.stdout.readline().strip().rsplit(":", 1)[1]
+    rec = subprocess.Popen([sys.executable, "-m", "firewatch", "record", "--port", f"socket://127.0.0.1:{port}", "--clock", "device", "--log", str(live)],
+                           stderr=subprocess.DEVNULL, cwd=ROOT)
+    try:
+        time.sleep(3.0)
+        r0, w0 = cpu_seconds(rec.pid), time.monotonic()
+        cpu, rss_live, _ = tmux_process(f"{sys.executable} -m firewatch watch {live}", 30.0, "watch")
+        rec_cpu = (cpu_seconds(rec.pid) - r0) / (time.monotonic() - w0)
+    finally:
+        rec.terminate()
+        sim.terminate()
+        rec.wait(10)
+        sim.wait(10)
+    print(f"viewer CPU watching live (60 lines/s arriving): {cpu * 100:.2f} % of one core (target <= 5 %); "
+          f"recorder meanwhile {rec_cpu * 100:.2f} %; viewer memory {rss_live:.0f} MB")
+
+
+if __name__ == "__main__":
+    main()
