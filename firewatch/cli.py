@@ -27,6 +27,7 @@ COMMANDS: dict[str, str] = {
     "replay": "replay",
     "watch": "watch",
     "demo": "demo",
+    "tune": "tune",
 }
 
 CAUTION = (

@@ -100,7 +100,7 @@ class Simulation:
         return out
 
     def _fouling(self, t: np.ndarray) -> np.ndarray:
-        out = np.ones_like(t)
+        out = np.full(t.shape, float(self.scenario.fouling))
         for f in self._faults("window-fouling"):
             out *= np.exp(-np.clip(t - f.at_s, 0.0, None) / 3600.0 * float(f.param("rate")))
         return np.clip(out, 1e-3, 1.0)

@@ -16,6 +16,7 @@ properties, the kiln's parameters and the faults to inject::
     [ware]
     emissivity = 0.88              # true, in the single-band pyrometer's band
     slope = 1.0                    # true e1/e2 seen by a ratio pyrometer
+    fouling = 1.0                  # gray transmission of deposits on the window at the start
 
     [kiln]                         # any KilnParameters field
     p_max_w = 11000
@@ -135,6 +136,8 @@ class Scenario:
     seed: int = 1
     emissivity: float = 0.88
     slope: float = 1.0
+    fouling: float = 1.0
+    """Gray transmission of deposits already on the sight window at the start (truth)."""
     kiln: KilnParameters = field(default_factory=KilnParameters)
     faults: tuple[Fault, ...] = ()
     instruments: dict[str, dict[str, float]] = field(default_factory=dict)
@@ -174,9 +177,10 @@ def load_scenario(path: str | Path | None = None) -> Scenario:
     cool_end = reader.get(head, ("scenario",), "cool_end_c", float, default=150.0)
     seed = reader.get(head, ("scenario",), "seed", int, default=1)
     ware = reader.table(("ware",))
-    reader.unknown_keys(("ware",), ware, {"emissivity", "slope"})
+    reader.unknown_keys(("ware",), ware, {"emissivity", "slope", "fouling"})
     emissivity = reader.get(ware, ("ware",), "emissivity", float, default=0.88, check=in_range(0.0, 1.0, lo_open=True))
     slope = reader.get(ware, ("ware",), "slope", float, default=1.0, check=in_range(0.0, lo_open=True))
+    fouling = reader.get(ware, ("ware",), "fouling", float, default=1.0, check=in_range(0.0, 1.0, lo_open=True))
     kiln_table = reader.table(("kiln",))
     reader.unknown_keys(("kiln",), kiln_table, _KILN_FIELDS)
     kiln_values = {k: reader.get(kiln_table, ("kiln",), k, float, default=getattr(KilnParameters(), k)) for k in _KILN_FIELDS}
@@ -212,6 +216,7 @@ def load_scenario(path: str | Path | None = None) -> Scenario:
         seed=seed,
         emissivity=emissivity,
         slope=slope,
+        fouling=fouling,
         kiln=KilnParameters(**kiln_values),
         faults=tuple(faults),
         instruments=instruments,
