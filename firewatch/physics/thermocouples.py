@@ -220,15 +220,20 @@ def temperature_to_emf(temperature_c: ArrayLike, tc_type: str) -> NDArray[np.flo
     >>> round(float(temperature_to_emf(1000.0, "K")), 3)
     41.276
     """
+    return _forward_checked(temperature_c, tc_type)[0]
+
+
+def _forward_checked(temperature_c: ArrayLike, tc_type: str) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """EMF and Seebeck coefficient, with the module's out-of-range rules applied."""
     info = _info(tc_type)
     t = np.asarray(temperature_c, dtype=float)
-    emf, _ = _forward(t, info)
+    emf, slope = _forward(t, info)
     bad = np.isnan(emf) & ~np.isnan(t)
     _report_out_of_range(
         bad, t.ndim == 0, f"type {check_type(tc_type)} temperature (degC)", t,
         f"{info.t_min:g}..{info.t_max:g} degC",
     )
-    return emf
+    return emf, slope
 
 
 def seebeck(temperature_c: ArrayLike, tc_type: str) -> NDArray[np.float64]:
@@ -238,15 +243,7 @@ def seebeck(temperature_c: ArrayLike, tc_type: str) -> NDArray[np.float64]:
     ----------
     [Burns1993]_ reference functions, differentiated.
     """
-    info = _info(tc_type)
-    t = np.asarray(temperature_c, dtype=float)
-    _, slope = _forward(t, info)
-    bad = np.isnan(slope) & ~np.isnan(t)
-    _report_out_of_range(
-        bad, t.ndim == 0, f"type {check_type(tc_type)} temperature (degC)", t,
-        f"{info.t_min:g}..{info.t_max:g} degC",
-    )
-    return slope
+    return _forward_checked(temperature_c, tc_type)[1]
 
 
 def inverse_polynomial(emf_mv: ArrayLike, tc_type: str) -> NDArray[np.float64]:
