@@ -194,7 +194,32 @@ def reconcile_with(data: TuneData, emissivity: np.ndarray | float, gray: float =
 
 
 def fit(data: TuneData, model: str = "constant", fit_transmission: bool = False) -> FitResult:
-    """Fit; raise :class:`TuneError` when the data cannot support it."""
+    """Fit; raise :class:`TuneError` when the data cannot support it.
+
+    With ``fit_transmission`` the emissivity and a gray transmission factor
+    are fitted together. Where they cannot be separated, two cases differ:
+    if the emissivity alone is well determined, only their product is known
+    and the fit is refused; if the emissivity is hidden (a closed kiln: the
+    cavity effect), the transmission is what the data determine, and it is
+    fitted with the emissivity held at the profile's value, as said in the
+    note.
+    """
+    if not fit_transmission:
+        return _fit(data, model, False)
+    try:
+        return _fit(data, model, True)
+    except TuneError as joint:
+        try:
+            _fit(data, model, False)
+        except TuneError:
+            held = _fit(data, "constant", True, hold_emissivity=data.py.emissivity)
+            held.note = (f"the emissivity is hidden by the cavity effect and is held at the profile's {data.py.emissivity:g}; "
+                         "the transmission is what this firing determines")
+            return held
+        raise joint from None
+
+
+def _fit(data: TuneData, model: str, fit_transmission: bool, hold_emissivity: float | None = None) -> FitResult:
     idx = np.flatnonzero(data.valid)
     if idx.size < MIN_POINTS:
         raise TuneError(f"only {idx.size} valid points (holds and slow ramps with a healthy reference); at least {MIN_POINTS} are needed")
@@ -206,6 +231,8 @@ def fit(data: TuneData, model: str = "constant", fit_transmission: bool = False)
     scale_t = (ref - 1000.0) / 100.0
 
     def unpack(p: np.ndarray) -> tuple[np.ndarray, float]:
+        if hold_emissivity is not None:
+            return np.full(ref.size, hold_emissivity), p[0]
         eps = p[0] + (p[1] * scale_t if model == "linear" else 0.0)
         gray = p[-1] if fit_transmission else 1.0
         return eps, gray
@@ -215,9 +242,12 @@ def fit(data: TuneData, model: str = "constant", fit_transmission: bool = False)
         rec = reconcile_with(data, eps, gray, idx)
         return np.nan_to_num(rec - ref, nan=50.0)
 
-    p0 = [data.py.emissivity] + ([0.0] if model == "linear" else []) + ([1.0] if fit_transmission else [])
-    lower = [0.02] + ([-0.5] if model == "linear" else []) + ([0.05] if fit_transmission else [])
-    upper = [1.0] + ([0.5] if model == "linear" else []) + ([1.0] if fit_transmission else [])
+    if hold_emissivity is not None:
+        p0, lower, upper = [0.95], [0.05], [1.0]
+    else:
+        p0 = [data.py.emissivity] + ([0.0] if model == "linear" else []) + ([0.95] if fit_transmission else [])
+        lower = [0.02] + ([-0.5] if model == "linear" else []) + ([0.05] if fit_transmission else [])
+        upper = [1.0] + ([0.5] if model == "linear" else []) + ([1.0] if fit_transmission else [])
     sol = least_squares(residual, p0, bounds=(lower, upper), loss="soft_l1", f_scale=1.0, x_scale="jac")
     res = sol.fun
     jac = sol.jac
@@ -235,6 +265,21 @@ def fit(data: TuneData, model: str = "constant", fit_transmission: bool = False)
         shift = np.linalg.lstsq(jac, np.full(n, common), rcond=None)[0]
         cov += np.outer(shift, shift)
     sd = np.sqrt(np.clip(np.diag(cov), 0.0, None))
+    if hold_emissivity is not None:
+        g, half_g = float(sol.x[0]), 1.96 * float(sd[0])
+        if 2 * half_g > MAX_CI_WIDTH:
+            raise TuneError(f"neither the emissivity nor the transmission is determined by this firing (transmission {g:.2f} ± {half_g:.2f})")
+        u = data.py.emissivity_uncertainty
+        raw = residual(sol.x)
+        return FitResult(
+            emissivity=round(hold_emissivity, 4),
+            ci95=(round(hold_emissivity - 1.96 * u, 4), round(hold_emissivity + 1.96 * u, 4)),
+            model="constant", transmission=round(g, 4), transmission_ci95=(round(g - half_g, 4), round(min(g + half_g, 1.0), 4)),
+            points_used=int(n), blocks=int(blocks.size), windows=data.windows,
+            residual_c={"mean": round(float(np.mean(raw)), 3), "sd": round(float(np.std(raw)), 3),
+                        "max_abs": round(float(np.max(np.abs(raw))), 3), "trend_per_100c": 0.0},
+            residuals=(ref, raw),
+        )
     if fit_transmission:
         corr = cov[0, -1] / (sd[0] * sd[-1]) if sd[0] > 0 and sd[-1] > 0 else 1.0
         if abs(corr) > 0.98:

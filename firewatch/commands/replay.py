@@ -52,7 +52,7 @@ def run(args: argparse.Namespace) -> int:
                 from ..ui import run_replay
             except ImportError:
                 raise UsageError("the replay dashboard is not part of this version; use --headless") from None
-            return run_replay(args.log, site, schedule, speed=args.speed)
+            return run_replay(args.log, site, schedule, speed=args.speed, site_path=args.site)
         result = reevaluate(reader, site, schedule)
         original = len(reader.alarms())
     alarms = alarm_summary(result)

@@ -14,10 +14,18 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
                        description="Attach to a firing log that a recorder is writing. Closing the viewer, or losing "
                        "the SSH connection, never disturbs the recorder.")
     p.add_argument("log", metavar="FILE.db")
+    p.add_argument("--site", metavar="SITE.toml", help="the site profile file that the tuning screen may write (accept is offered only with it)")
 
 
 def run(args: argparse.Namespace) -> int:
     open_log(args.log).close()  # a clear message for a missing or foreign file, before the screen opens
     from ..ui import run_watch
 
-    return run_watch(args.log)
+    if args.site:
+        from pathlib import Path
+
+        if not Path(args.site).is_file():
+            from ..cli import UsageError
+
+            raise UsageError(f"--site: no such file {args.site!r}")
+    return run_watch(args.log, site_path=args.site)

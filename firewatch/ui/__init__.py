@@ -11,15 +11,15 @@ from __future__ import annotations
 __all__ = ["run_watch", "run_replay"]
 
 
-def run_watch(log, show_cautions: bool | None = None) -> int:
+def run_watch(log, show_cautions: bool | None = None, site_path=None) -> int:
     from .app import FirewatchApp
 
-    FirewatchApp(log, mode="live", show_cautions=show_cautions).run()
+    FirewatchApp(log, mode="live", show_cautions=show_cautions, site_path=site_path).run()
     return 0
 
 
-def run_replay(log, site=None, schedule=None, speed: float = 60.0, show_cautions: bool | None = None) -> int:
+def run_replay(log, site=None, schedule=None, speed: float = 60.0, show_cautions: bool | None = None, site_path=None) -> int:
     from .app import FirewatchApp
 
-    FirewatchApp(log, mode="replay", site=site, schedule=schedule, speed=speed, show_cautions=show_cautions).run()
+    FirewatchApp(log, mode="replay", site=site, schedule=schedule, speed=speed, show_cautions=show_cautions, site_path=site_path).run()
     return 0

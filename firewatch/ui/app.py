@@ -33,8 +33,10 @@ class FirewatchApp(App):
     """Units people read: C or F."""
 
     def __init__(self, log, mode: str = "live", site=None, schedule=None, speed: float = 60.0,
-                 show_cautions: bool | None = None, actions: ActionQueue | None = None) -> None:
+                 show_cautions: bool | None = None, actions: ActionQueue | None = None, site_path=None) -> None:
         super().__init__()
+        self.site_path = site_path
+        """The site profile file the tuning screen may write (None: accepting is not offered)."""
         self.log_path = Path(log)
         self.mode = mode
         self.view = FiringView(self.log_path, site=site, schedule=schedule)

@@ -71,6 +71,7 @@ class DashboardScreen(Screen):
         Binding("x", "zoom(2)", "Zoom out"),
         Binding("f", "fit", "Fit", show=False),
         Binding("e", "toggle_tab", "Alarms/events", show=False),
+        Binding("t", "tune", "Tune"),
         Binding("q", "app.quit", "Quit"),
     ]
 
@@ -82,6 +83,7 @@ class DashboardScreen(Screen):
         ("s", "shelve the chosen alarm with a reason and a time (live)"),
         ("o", "add an operator note to the firing log (live)"),
         ("e", "alarms / events"),
+        ("t", "the tuning screen: ↑↓ emissivity, ←→ transmission, f fitted value, Enter accept"),
         ("z  x  f", "zoom the trend in, out, fit the whole firing"),
         ("space", "play / pause (replay)"),
         ("+  -", "replay faster / slower (1x to 1000x)"),
@@ -278,6 +280,11 @@ class DashboardScreen(Screen):
     def action_units(self) -> None:
         self.app.unit = "F" if self.app.unit == "C" else "C"
         self._request(chart=True)
+
+    def action_tune(self) -> None:
+        from .tuning import TuningScreen
+
+        self.app.push_screen(TuningScreen(self.view.path, self.view.site, getattr(self.app, "site_path", None)))
 
     def action_toggle_tab(self) -> None:
         tabs = self.query_one(TabbedContent)
