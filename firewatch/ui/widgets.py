@@ -129,7 +129,11 @@ class SchedulePanel(Static):
                 rate_now = m.value(f"{self.control}.rate") if self.control else math.nan
                 plan_rate = "max" if s.is_fast else fmt.rate(s.rate_c_per_h, u)
                 off = f", {fmt.delta(dev, u, 0)} K" if math.isfinite(dev) else ""
-                lines.append(f"rate {fmt.rate(rate_now, u)} of {plan_rate}{off}\n")
+                temp_now = m.value(self.control) if self.control else math.nan
+                start_c = sched.start_of(current)
+                span = s.target_c - start_c
+                done = f"{min(max((temp_now - start_c) / span, 0.0), 1.0):.0%} · " if span and math.isfinite(temp_now) else ""
+                lines.append(f"{done}rate {fmt.rate(rate_now, u)} of {plan_rate}{off}\n")
         remaining, behind = m.value("plan.remaining"), m.value("plan.behind")
         if math.isfinite(remaining):
             lines.append(f"end in {fmt.duration(remaining)} ≈{fmt.clock(m.t + remaining)[11:16]}Z")
