@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import asyncio
-import time
 from pathlib import Path
 
 import pytest
@@ -16,16 +15,7 @@ from firewatch.ui.screens import CautionsScreen, HelpScreen, NoteScreen, ShelveS
 from firewatch.ui.widgets import AlarmList, ReadingsPanel
 
 from ..e2e.helpers import firewatch, samples, start_sim_tcp, stop, wait_for
-
-
-async def settle(pilot, predicate, timeout: float = 10.0) -> None:
-    """Let the poller thread deliver until ``predicate()`` holds."""
-    deadline = time.monotonic() + timeout
-    while time.monotonic() < deadline:
-        await pilot.pause(0.05)
-        if predicate():
-            return
-    raise AssertionError("the dashboard did not show what was expected in time")
+from .helpers import settle
 
 
 def dashboard(app: FirewatchApp) -> DashboardScreen:

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import shutil
-import time
 from pathlib import Path
 
 from firewatch.profile import load_site
@@ -13,16 +12,9 @@ from simulator import serve
 from simulator.run import Simulation
 from simulator.scenario import load_scenario
 
+from .helpers import settle
+
 DATA = Path(__file__).resolve().parents[1] / "data"
-
-
-async def wait(pilot, predicate, timeout: float = 20.0) -> None:
-    deadline = time.monotonic() + timeout
-    while time.monotonic() < deadline:
-        await pilot.pause(0.05)
-        if predicate():
-            return
-    raise AssertionError("not in time")
 
 
 async def test_tuning_screen(tmp_path: Path) -> None:
@@ -35,7 +27,7 @@ async def test_tuning_screen(tmp_path: Path) -> None:
         await pilot.press("t")
         screen = app.screen
         assert isinstance(screen, TuningScreen)
-        await wait(pilot, lambda: screen.result is not None)
+        await settle(pilot, lambda: screen.result is not None, timeout=20)
         assert abs(screen.result.emissivity - 0.80) < 0.03  # the simulated ware's truth
         assert screen.emissivity == 0.88  # the profile's value to start from
         await pilot.press("down", "down")
