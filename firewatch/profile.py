@@ -127,6 +127,18 @@ class AlarmSettings:
 
 
 @dataclass(frozen=True)
+class MqttSettings:
+    """Plant-scale publishing (docs/mqtt.md). The password is never in the profile: it names an environment variable."""
+
+    kiln_id: str = ""
+    username: str = ""
+    password_env: str = "FIREWATCH_MQTT_PASSWORD"
+    ca_file: str = ""
+    accept_actions: bool = False
+    """Apply acknowledge and shelve requests arriving over MQTT (off unless the site enables it)."""
+
+
+@dataclass(frozen=True)
 class SiteProfile:
     """Everything firewatch knows about one kiln and its instruments."""
 
@@ -139,6 +151,7 @@ class SiteProfile:
     alarms: AlarmSettings
     path: Path | None = None
     text: str = ""
+    mqtt: MqttSettings = field(default_factory=MqttSettings)
 
     def thermocouple(self, name: str) -> Thermocouple | None:
         return next((t for t in self.thermocouples if t.name == name), None)
@@ -215,7 +228,7 @@ def _name_check(value: str) -> str | None:
 
 def _read(reader: TomlReader) -> SiteProfile | None:
     data = reader.data
-    reader.unknown_keys((), data, {"site", "input", "thermocouple", "pyrometer", "cold_junction", "alarms"})
+    reader.unknown_keys((), data, {"site", "input", "thermocouple", "pyrometer", "cold_junction", "alarms", "mqtt"})
     site = reader.table(("site",), required=True)
     reader.unknown_keys(("site",), site, {"name", "kiln"})
     name = reader.get(site, ("site",), "name", str, default="unnamed site")
@@ -367,6 +380,18 @@ def _read(reader: TomlReader) -> SiteProfile | None:
     if values["divergence_clear_k"] > values["divergence_k"]:
         reader.problem(("alarms", "divergence_clear_k"), "must not exceed divergence_k (the clear threshold is the lower one)")
 
+    mq = reader.table(("mqtt",))
+    reader.unknown_keys(("mqtt",), mq, {"kiln_id", "username", "password_env", "ca_file", "accept_actions"})
+    mqtt = MqttSettings(
+        kiln_id=reader.get(mq, ("mqtt",), "kiln_id", str, default="", check=lambda v: None if not v or _name_check(v) is None else "use letters, digits, '_' or '-'"),
+        username=reader.get(mq, ("mqtt",), "username", str, default=""),
+        password_env=reader.get(mq, ("mqtt",), "password_env", str, default="FIREWATCH_MQTT_PASSWORD"),
+        ca_file=reader.get(mq, ("mqtt",), "ca_file", str, default=""),
+        accept_actions=reader.get(mq, ("mqtt",), "accept_actions", bool, default=False),
+    )
+    if "password" in mq:
+        reader.problem(("mqtt", "password"), "never put the password in the profile: set password_env to the name of an environment variable")
+
     if reader.problems:
         return None
     return SiteProfile(
@@ -379,6 +404,7 @@ def _read(reader: TomlReader) -> SiteProfile | None:
         alarms=AlarmSettings(**values),
         path=reader.path,
         text=reader.text,
+        mqtt=mqtt,
     )
 
 

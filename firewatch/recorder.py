@@ -141,6 +141,7 @@ class Recorder:
         commit_interval_s: float = 0.5,
         clock_fn: Callable[[], float] = time.time,
         out=sys.stderr,
+        mqtt_url: str | None = None,
     ) -> None:
         self.url = url
         self.site = site
@@ -152,6 +153,9 @@ class Recorder:
         self.clock_fn = clock_fn
         self.out = out
         self.stop_event = threading.Event()
+        self.mqtt_url = mqtt_url
+        self.publisher = None
+        self._handed = 0
         self.latencies: list[float] = []
         self._queue: queue.Queue[tuple[float, bytes] | PortEvent] = queue.Queue()
 
@@ -192,6 +196,8 @@ class Recorder:
         ingest = Ingest(pipeline, writer, make_parser(self.site))
         self.ingest = ingest
         self.engine = attach_alarms(ingest, self.site, self.schedule)
+        if self.mqtt_url:
+            self._start_mqtt(writer, ingest)
         from .actions import ActionQueue
 
         try:
@@ -233,6 +239,10 @@ class Recorder:
         finally:
             reader.stop()
             self._cycle(writer, ingest)
+            if self.publisher is not None:
+                self.publisher.close()
+                self._mqtt_cycle(writer, ingest.timeline(self.clock_fn()))
+                writer.commit()
             lat = np.array(self.latencies) if self.latencies else np.zeros(1)
             detail = (
                 f"{reason}; {ingest.lines} lines, {ingest.malformed} malformed; commit latency "
@@ -242,6 +252,70 @@ class Recorder:
             writer.close(reason)
             self._say(f"stopped: {detail}")
         return reason
+
+    def _start_mqtt(self, writer: LogWriter, ingest: Ingest) -> None:
+        """Publish through the outbox: messages are written with the readings, sent by a thread."""
+        from . import mqtt
+
+        url = mqtt.parse_mqtt_url(self.mqtt_url)
+        kiln = mqtt.kiln_id_for(self.site)
+        for statement in mqtt.OUTBOX_SCHEMA.split(";"):
+            if statement.strip():
+                writer.execute(statement)
+        engine = self.engine
+
+        def enqueue(messages) -> None:
+            now = ingest.timeline(self.clock_fn())
+            for topic, payload, qos, retain in messages:
+                writer.execute("INSERT INTO mqtt_outbox(topic, payload, qos, retain, created_t) VALUES (?, ?, ?, ?, ?)",
+                               (topic, payload, qos, int(retain), now))
+
+        def on_batch(batch: Batch) -> None:
+            first = writer.execute("SELECT coalesce(max(id), 0) + 1 FROM sample").fetchone()[0]
+            enqueue(mqtt.batch_messages(url, kiln, batch, engine, int(first)))
+
+        log_sink = engine.sink
+
+        def on_transition(tr) -> None:
+            log_sink(tr)
+            enqueue([mqtt.alarm_message(url, kiln, tr)])
+
+        engine.sink = on_transition
+        ingest.hooks.append(on_batch)
+        self.publisher = mqtt.Publisher(url, kiln, self.site)
+        self._say(f"publishing to {'mqtts' if url.tls else 'mqtt'}://{url.host}:{url.port}/{url.prefix}/{kiln}/ (store and forward)")
+
+    def _mqtt_cycle(self, writer: LogWriter, now: float) -> None:
+        """Hand new outbox rows to the publisher, mark what the broker acknowledged, apply plant actions."""
+        pub = self.publisher
+        acked = pub.acked()
+        if acked:
+            stamp = self.clock_fn()
+            writer.con.executemany("UPDATE mqtt_outbox SET sent_utc = ? WHERE id = ?", [(stamp, i) for i in acked])
+        rows = writer.execute(
+            "SELECT id, topic, payload, qos, retain FROM mqtt_outbox WHERE sent_utc IS NULL AND id > ? ORDER BY id LIMIT 20000",
+            (self._handed,),
+        ).fetchall()
+        if rows:
+            pub.hand(rows)
+            self._handed = rows[-1][0]
+        for topic, body in pub.actions():
+            source = f"mqtt {topic} ({body.get('source', 'unnamed')})"
+            if not self.site.mqtt.accept_actions:
+                writer.event(now, "action", f"refused from {source}: actions over MQTT are not enabled in the site profile")
+                continue
+            kind = body.get("action")
+            alarm_id = body.get("alarm_id")
+            try:
+                if kind == "acknowledge":
+                    result = self.engine.acknowledge(int(alarm_id), now, by=source)
+                elif kind == "shelve":
+                    result = self.engine.shelve(int(alarm_id), now, str(body.get("reason", "")), now + float(body.get("minutes", 0)) * 60.0, by=source)
+                else:
+                    result = f"refused: unknown action {kind!r}"
+            except (KeyError, TypeError, ValueError) as exc:
+                result = f"refused: {exc}"
+            writer.event(now, "action", f"{kind} from {source}: {result}")
 
     def _apply_actions(self, writer: LogWriter, now: float) -> None:
         """Apply what viewers asked for (acknowledge, shelve, note) and log each with its source."""
@@ -296,6 +370,8 @@ class Recorder:
         now = ingest.timeline(self.clock_fn())
         self.engine.tick(now)
         self._apply_actions(writer, now)
+        if self.publisher is not None:
+            self._mqtt_cycle(writer, now)
         writer.commit()
         done = self.clock_fn()
         if lines and len(self.latencies) < 2_000_000:

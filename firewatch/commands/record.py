@@ -23,6 +23,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--log", required=True, metavar="FILE.db", help="the firing log (continued if it exists)")
     p.add_argument("--for", dest="seconds", type=_args.positive, metavar="SECONDS", help="stop after this long")
     p.add_argument("--clock", choices=("wall", "device"), help="time readings on receipt or by the line's own time (default: the site profile's)")
+    p.add_argument("--mqtt", metavar="URL", help="also publish to mqtt://HOST:PORT/PREFIX (or mqtts://); credentials from the site profile and the environment")
 
 
 def load_profiles(site_path: str | None, schedule_path: str | None):
@@ -52,7 +53,17 @@ def run(args: argparse.Namespace) -> int:
     log = Path(args.log)
     if not log.parent.exists():
         raise UsageError(f"--log: directory {log.parent} does not exist")
-    recorder = Recorder(args.port, site, schedule, log, clock=args.clock, duration_s=args.seconds)
+    if args.mqtt:
+        from firewatch.mqtt import parse_mqtt_url
+
+        try:
+            parse_mqtt_url(args.mqtt)
+            import paho.mqtt.client  # noqa: F401
+        except ValueError as exc:
+            raise UsageError(f"--mqtt: {exc}") from None
+        except ImportError:
+            raise UsageError("--mqtt: publishing needs paho-mqtt: pip install 'firewatch[mqtt]'") from None
+    recorder = Recorder(args.port, site, schedule, log, clock=args.clock, duration_s=args.seconds, mqtt_url=args.mqtt)
     try:
         recorder.run()
     except LogError as exc:
