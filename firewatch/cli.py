@@ -28,6 +28,7 @@ COMMANDS: dict[str, str] = {
     "watch": "watch",
     "demo": "demo",
     "tune": "tune",
+    "plant": "plant",
 }
 
 CAUTION = (

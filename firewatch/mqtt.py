@@ -95,7 +95,23 @@ def _clean(value: float) -> float | None:
     return None if value is None or not math.isfinite(value) else round(float(value), 4)
 
 
-def batch_messages(url: BrokerURL, kiln: str, batch, engine, first_sample_id: int) -> list[tuple[str, bytes, int, bool]]:
+def summary(site, latest: dict[str, float | None]) -> dict[str, object]:
+    """What the plant overview shows of a kiln: its reference temperature, segment, divergence, end."""
+    ref = site.reference.name if site.reference else None
+    divs = [abs(v) for k, v in latest.items() if k.endswith(".divergence") and v is not None]
+    seg = latest.get("plan.segment")
+    return {
+        "site": site.name,
+        "kiln_name": site.kiln,
+        "reference": ref,
+        "temperature_c": latest.get(ref) if ref else None,
+        "segment": None if seg is None else int(seg),
+        "divergence_k": max(divs) if divs else None,
+        "remaining_s": latest.get("plan.remaining"),
+    }
+
+
+def batch_messages(url: BrokerURL, kiln: str, batch, engine, first_sample_id: int, site=None) -> list[tuple[str, bytes, int, bool]]:
     """The readings and state messages for one batch (alarm transitions are sent as they happen)."""
     if not batch.samples:
         return []
@@ -114,6 +130,7 @@ def batch_messages(url: BrokerURL, kiln: str, batch, engine, first_sample_id: in
         "kiln": kiln,
         "t": round(float(times[-1]), 3),
         "values": latest,
+        "summary": summary(site, latest) if site is not None else {},
         "alarms": [
             {"id": a.id, "kind": a.kind, "channel": a.channel_name, "cause": a.cause, "priority": a.priority, "state": a.state}
             for a in (engine.active if engine is not None else [])

@@ -272,7 +272,7 @@ class Recorder:
 
         def on_batch(batch: Batch) -> None:
             first = writer.execute("SELECT coalesce(max(id), 0) + 1 FROM sample").fetchone()[0]
-            enqueue(mqtt.batch_messages(url, kiln, batch, engine, int(first)))
+            enqueue(mqtt.batch_messages(url, kiln, batch, engine, int(first), self.site))
 
         log_sink = engine.sink
 

@@ -215,3 +215,45 @@ def test_actions_over_mqtt_only_when_enabled(tmp_path: Path, broker: Broker, acc
         assert details[0].startswith(f"acknowledge from mqtt {p}/kiln3/action (shift lead)") and "active-acknowledged" in states
     else:
         assert "refused" in details[0] and "not enabled" in details[0] and "active-acknowledged" not in states
+
+
+async def test_plant_view_of_three_kilns(tmp_path: Path, broker: Broker) -> None:
+    from firewatch.mqtt import parse_mqtt_url
+    from firewatch.ui.plant import KilnScreen, PlantApp
+
+    p = f"larchmoor-{os.getpid()}-plant"
+    procs = []
+    for i, fault in enumerate(("tc-open@2:channel=tc2", None, None), start=1):
+        site = tmp_path / f"site{i}.toml"
+        site.write_text((profiles_dir() / "demo-site.toml").read_text() + f'\n[mqtt]\nkiln_id = "kiln{i}"\naccept_actions = true\n')
+        sim, port = start_sim_tcp("--speed", "60", *(["--fault", fault] if fault else []))
+        rec = firewatch("record", "--port", f"socket://127.0.0.1:{port}", "--log", str(tmp_path / f"k{i}.db"), "--clock", "device",
+                        "--site", str(site), "--mqtt", f"mqtt://127.0.0.1:{broker.port}/{p}")
+        procs += [rec, sim]
+    try:
+        app = PlantApp(parse_mqtt_url(f"mqtt://127.0.0.1:{broker.port}/{p}"))
+        async with app.run_test(size=(120, 30)) as pilot:
+            async def until(predicate, timeout=60.0):
+                deadline = time.monotonic() + timeout
+                while time.monotonic() < deadline:
+                    await pilot.pause(0.2)
+                    if predicate():
+                        return
+                raise AssertionError("not in time")
+
+            await until(lambda: len(app.plant.snapshot()) == 3 and all(v.state.get("summary", {}).get("temperature_c") for v in app.plant.snapshot()))
+            await until(lambda: any(v.unacknowledged for v in app.plant.snapshot()))
+            first = app.plant.snapshot()[0]
+            assert first.kiln == "kiln1" and first.unacknowledged[0]["kind"] == "sensor-fault"  # the urgent one on top
+            assert all(time.time() - v.received < 5 for v in app.plant.snapshot())
+            await pilot.press("enter")
+            assert isinstance(app.screen, KilnScreen) and app.screen.kiln == "kiln1"
+            await pilot.press("escape")
+            await pilot.press("A")  # plant-wide acknowledgement
+            await until(lambda: not any(v.unacknowledged for v in app.plant.snapshot()), timeout=30)
+            assert any(a["state"] == "active-acknowledged" for a in app.plant.snapshot()[0].alarms)
+    finally:
+        for proc in procs:
+            stop(proc)
+    with LogReader(tmp_path / "k1.db") as r:
+        assert any("from mqtt" in e["detail"] and "acknowledged" in e["detail"] for e in r.events(["action"]))
