@@ -33,7 +33,7 @@ from collections import deque
 from dataclasses import dataclass
 from urllib.parse import urlparse
 
-__all__ = ["BrokerURL", "parse_mqtt_url", "TOPIC_VERSION", "OUTBOX_SCHEMA", "Publisher", "kiln_id_for", "topic"]
+__all__ = ["BrokerURL", "parse_mqtt_url", "TOPIC_VERSION", "OUTBOX_SCHEMA", "Publisher", "kiln_id_for", "topic", "start_client"]
 
 TOPIC_VERSION = 1
 OUTBOX_SCHEMA = """
@@ -149,6 +149,31 @@ def alarm_message(url: BrokerURL, kiln: str, tr) -> tuple[str, bytes, int, bool]
     return topic(url, kiln, "alarm"), json.dumps(body, separators=(",", ":")).encode(), 1, False
 
 
+def start_client(url: BrokerURL, *, client_id: str = "", username: str = "", password_env: str = "FIREWATCH_MQTT_PASSWORD",
+                 ca_file: str = "", on_connect=None, on_disconnect=None, on_message=None, on_publish=None):
+    """A paho-mqtt client (VERSION2 callbacks) connecting in its own network thread, reconnecting by itself.
+
+    The password is read from the environment variable ``password_env``; TLS for ``mqtts://``
+    verifies the broker against ``ca_file`` (or the system's certificates).
+    """
+    try:
+        import paho.mqtt.client as mqtt
+    except ImportError:
+        raise RuntimeError("MQTT needs paho-mqtt: pip install 'firewatch[mqtt]'") from None
+    client = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id=client_id)
+    if username:
+        client.username_pw_set(username, os.environ.get(password_env) or None)
+    if url.tls:
+        client.tls_set(ca_certs=ca_file or None, cert_reqs=ssl.CERT_REQUIRED)
+    client.reconnect_delay_set(min_delay=1, max_delay=10)
+    for name, fn in (("on_connect", on_connect), ("on_disconnect", on_disconnect), ("on_message", on_message), ("on_publish", on_publish)):
+        if fn is not None:
+            setattr(client, name, fn)
+    client.connect_async(url.host, url.port, keepalive=30)
+    client.loop_start()
+    return client
+
+
 class Publisher:
     """A paho-mqtt client in its own thread: sends what it is handed, in order, one in flight at a time.
 
@@ -159,11 +184,6 @@ class Publisher:
     """
 
     def __init__(self, url: BrokerURL, kiln: str, site, client_id: str | None = None) -> None:
-        try:
-            import paho.mqtt.client as mqtt
-        except ImportError:
-            raise RuntimeError("publishing needs paho-mqtt: pip install 'firewatch[mqtt]'") from None
-
         self.url = url
         self.kiln = kiln
         self._pending: deque = deque()
@@ -172,18 +192,11 @@ class Publisher:
         self._actions: queue.Queue[tuple[str, dict]] = queue.Queue()
         self._lock = threading.Lock()
         self.connected = threading.Event()
-        self.client = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id=client_id or f"firewatch-{kiln}-{os.getpid()}")
-        if site.mqtt.username:
-            self.client.username_pw_set(site.mqtt.username, os.environ.get(site.mqtt.password_env) or None)
-        if url.tls:
-            self.client.tls_set(ca_certs=site.mqtt.ca_file or None, cert_reqs=ssl.CERT_REQUIRED)
-        self.client.reconnect_delay_set(min_delay=1, max_delay=10)
-        self.client.on_connect = self._on_connect
-        self.client.on_disconnect = self._on_disconnect
-        self.client.on_publish = self._on_publish
-        self.client.on_message = self._on_message
-        self.client.connect_async(url.host, url.port, keepalive=30)
-        self.client.loop_start()
+        self.client = start_client(
+            url, client_id=client_id or f"firewatch-{kiln}-{os.getpid()}", username=site.mqtt.username,
+            password_env=site.mqtt.password_env, ca_file=site.mqtt.ca_file, on_connect=self._on_connect,
+            on_disconnect=self._on_disconnect, on_message=self._on_message, on_publish=self._on_publish,
+        )
 
     # -- paho callbacks (its network thread) ------------------------------------------
     def _on_connect(self, client, userdata, flags, reason_code, properties) -> None:

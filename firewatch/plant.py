@@ -9,12 +9,13 @@ kiln's recorder applies them only if its site profile enables it.
 from __future__ import annotations
 
 import json
+import os
 import threading
 import time
 from dataclasses import dataclass, field
 from typing import Any
 
-from .mqtt import BrokerURL, topic
+from .mqtt import BrokerURL, start_client, topic
 
 __all__ = ["KilnView", "PlantState"]
 
@@ -39,21 +40,17 @@ class PlantState:
     """Kilns by id, kept current from the broker."""
 
     def __init__(self, url: BrokerURL, source: str = "plant overview", clock=time.time) -> None:
-        import paho.mqtt.client as mqtt
-
         self.url = url
         self.source = source
         self.clock = clock
         self.kilns: dict[str, KilnView] = {}
         self._lock = threading.Lock()
         self.connected = threading.Event()
-        self.client = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2)
-        self.client.on_connect = self._on_connect
-        self.client.on_disconnect = lambda *a: self.connected.clear()
-        self.client.on_message = self._on_message
-        self.client.reconnect_delay_set(1, 10)
-        self.client.connect_async(url.host, url.port, keepalive=30)
-        self.client.loop_start()
+        # a plant viewer has no site profile: its user and CA come from the environment
+        self.client = start_client(
+            url, username=os.environ.get("FIREWATCH_MQTT_USERNAME", ""), ca_file=os.environ.get("FIREWATCH_MQTT_CA", ""),
+            on_connect=self._on_connect, on_disconnect=lambda *a: self.connected.clear(), on_message=self._on_message,
+        )
 
     def _on_connect(self, client, userdata, flags, reason_code, properties) -> None:
         if reason_code.is_failure:
