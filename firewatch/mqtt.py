@@ -174,6 +174,16 @@ def start_client(url: BrokerURL, *, client_id: str = "", username: str = "", pas
     return client
 
 
+def _drain(q: queue.Queue) -> list:
+    """Everything queued so far, without waiting."""
+    out = []
+    while True:
+        try:
+            out.append(q.get_nowait())
+        except queue.Empty:
+            return out
+
+
 class Publisher:
     """A paho-mqtt client in its own thread: sends what it is handed, in order, one in flight at a time.
 
@@ -250,20 +260,10 @@ class Publisher:
         return len(self._pending)
 
     def acked(self) -> list[int]:
-        out = []
-        while True:
-            try:
-                out.append(self._acked.get_nowait())
-            except queue.Empty:
-                return out
+        return _drain(self._acked)
 
     def actions(self) -> list[tuple[str, dict]]:
-        out = []
-        while True:
-            try:
-                out.append(self._actions.get_nowait())
-            except queue.Empty:
-                return out
+        return _drain(self._actions)
 
     def close(self, timeout: float = 3.0) -> None:
         deadline = time.monotonic() + timeout

@@ -206,28 +206,28 @@ class Pipeline:
             return device_time
         return received
 
-    def _column(self, sets, name: str) -> tuple[np.ndarray, np.ndarray, list[str]]:
+    def _column(self, name: str) -> tuple[np.ndarray, np.ndarray]:
+        """A copy of one channel's values and status in the batch being computed."""
         values, status = self._cols[name]
-        return values.copy(), status.copy(), []
+        return values.copy(), status.copy()
 
     def _compute_arrays(self, times: np.ndarray, batch: Batch) -> None:
         site = self.site
         n = times.size
-        sets = range(n)  # only its length is used below
         out_v, out_s = batch.values, batch.status
         for cj in site.cold_junctions:
-            out_v[cj], out_s[cj], _ = self._column(sets, cj)
+            out_v[cj], out_s[cj] = self._column(cj)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", FirewatchWarning)  # out-of-range becomes a status below
             for tc in site.thermocouples:
-                raw, status, units = self._column(sets, tc.name)
+                raw, status = self._column(tc.name)
                 if tc.unit == "mV":
                     if isinstance(tc.cold_junction, str):
-                        cold = out_v.get(tc.cold_junction, np.full(len(sets), np.nan))
-                        cold_ok = out_s.get(tc.cold_junction, np.zeros(len(sets), dtype=np.int64)) == Status.OK
+                        cold = out_v.get(tc.cold_junction, np.full(n, np.nan))
+                        cold_ok = out_s.get(tc.cold_junction, np.zeros(n, dtype=np.int64)) == Status.OK
                         status = np.where((status == Status.OK) & ~cold_ok, int(Status.ERROR), status)
                     else:
-                        cold = np.full(len(sets), float(tc.cold_junction))
+                        cold = np.full(n, float(tc.cold_junction))
                     temp = emf_to_temperature(np.where(status == Status.OK, raw, np.nan), tc.type, np.nan_to_num(cold, nan=0.0))
                 else:
                     temp = np.where(status == Status.OK, raw, np.nan)
@@ -238,7 +238,7 @@ class Pipeline:
                 out_v[f"{tc.name}.rate"] = rate
                 out_s[f"{tc.name}.rate"] = np.where(np.isnan(rate), int(Status.MISSING), int(Status.OK))
             for py in site.pyrometers:
-                self._pyrometer(py, sets, times, batch)
+                self._pyrometer(py, times, batch)
         if self.progress is not None:
             ctl = site.control.name
             plan = self.progress.update(times, out_v[ctl], out_v[f"{ctl}.rate"])
@@ -267,9 +267,9 @@ class Pipeline:
         missing = ~np.isfinite(bg)
         return bg, missing
 
-    def _pyrometer(self, py: Pyrometer, sets: list[ReadingSet], times: np.ndarray, batch: Batch) -> None:
-        n = len(sets)
-        shown, status, _ = self._column(sets, py.name)
+    def _pyrometer(self, py: Pyrometer, times: np.ndarray, batch: Batch) -> None:
+        n = times.size
+        shown, status = self._column(py.name)
         band, band2 = self._bands[py.name]
         ok = status == Status.OK
         indicated = np.where(ok, shown, np.nan)

@@ -205,8 +205,6 @@ class Recorder:
         except sqlite3.Error as exc:
             self.actions = None
             self._say(f"operator actions unavailable ({exc}); recording goes on")
-        for hook in getattr(self, "extra_hooks", []):
-            ingest.hooks.append(hook)
         version = tuple(int(x) for x in sqlite3.sqlite_version.split("."))
         note = "" if version >= SQLITE_WAL_FIX else " (older than 3.51.3, which fixed a WAL-reset bug; firewatch keeps to one writing connection)"
         now = self.clock_fn()

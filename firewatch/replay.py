@@ -46,7 +46,7 @@ def profiles_from_log(reader: LogReader) -> tuple[SiteProfile, Schedule | None]:
     return site, schedule
 
 
-def reevaluate(reader: LogReader, site: SiteProfile, schedule: Schedule | None, batch_s: float = 600.0) -> Reevaluation:
+def reevaluate(reader: LogReader, site: SiteProfile, schedule: Schedule | None) -> Reevaluation:
     """Run the raw lines of a log through conversion, reconciliation and alarms again.
 
     Python's cyclic garbage collector is paused meanwhile: a replay makes
@@ -55,7 +55,7 @@ def reevaluate(reader: LogReader, site: SiteProfile, schedule: Schedule | None, 
     """
     gc.disable()
     try:
-        return _reevaluate(reader, site, schedule, batch_s)
+        return _reevaluate(reader, site, schedule)
     finally:
         gc.enable()
 
@@ -103,7 +103,7 @@ def _batches(reader: LogReader, site: SiteProfile, clock: str):
             yield from batches
 
 
-def _reevaluate(reader: LogReader, site: SiteProfile, schedule: Schedule | None, batch_s: float) -> Reevaluation:
+def _reevaluate(reader: LogReader, site: SiteProfile, schedule: Schedule | None) -> Reevaluation:
     clock = reader.firing().get("clock") or "wall"
     pipeline = Pipeline(site, schedule, clock)
     engine = AlarmEngine(site, schedule)

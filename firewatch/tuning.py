@@ -142,15 +142,6 @@ def load_data(reader: LogReader, site: SiteProfile, channel: str | None = None, 
     start = float(t[0])
     for a, b in _runs(ok_py):
         seg = slice(a, b)
-        frac_valid = valid[seg].mean()
-        if frac_valid > 0.5:
-            reason = "hold or slow ramp, thermocouple healthy"
-        elif faulted[seg].mean() > 0.5:
-            reason = "a sensor-fault alarm was active"
-        elif (~ok_ref[seg]).mean() > 0.5:
-            reason = f"{tc.name} failed or out of range"
-        else:
-            reason = f"ramping too fast (over {max_rate_c_per_h:g} °C/h, or lag over {max_lag_c:g} K)"
         # split the pyrometer's stretch into its valid and invalid runs
         for c, d in _runs(valid[seg]):
             windows.append({"start_s": round(float(t[a + c]) - start, 1), "end_s": round(float(t[a + d - 1]) - start, 1),
@@ -164,9 +155,7 @@ def load_data(reader: LogReader, site: SiteProfile, channel: str | None = None, 
                    f"ramping too fast (over {max_rate_c_per_h:g} °C/h, or lag over {max_lag_c:g} K)")
             windows.append({"start_s": round(float(t[a + c]) - start, 1), "end_s": round(float(t[a + d - 1]) - start, 1),
                             "points": int(d - c), "used": False, "reason": why})
-        del reason
     windows.sort(key=lambda w: w["start_s"])
-    lo, hi = py.range_c
     mean_ref = float(np.nanmean(ref.value[:n][valid])) if valid.any() else 1000.0
     u_ref = float(tolerance_uncertainty(tc.type, mean_ref, tc.tolerance_class))
     if not math.isfinite(u_ref):

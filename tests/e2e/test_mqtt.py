@@ -16,6 +16,7 @@ import pytest
 from firewatch.firinglog import LogReader
 from firewatch.profile import profiles_dir
 
+from ..ui.helpers import settle
 from .helpers import firewatch, free_port, start_sim_tcp, stop, wait_for
 
 MOSQUITTO = shutil.which("mosquitto") or ("/usr/sbin/mosquitto" if Path("/usr/sbin/mosquitto").exists() else None)
@@ -234,12 +235,7 @@ async def test_plant_view_of_three_kilns(tmp_path: Path, broker: Broker) -> None
         app = PlantApp(parse_mqtt_url(f"mqtt://127.0.0.1:{broker.port}/{p}"))
         async with app.run_test(size=(120, 30)) as pilot:
             async def until(predicate, timeout=60.0):
-                deadline = time.monotonic() + timeout
-                while time.monotonic() < deadline:
-                    await pilot.pause(0.2)
-                    if predicate():
-                        return
-                raise AssertionError("not in time")
+                await settle(pilot, predicate, timeout)
 
             def three_reporting() -> bool:
                 views = {v.kiln: v for v in app.plant.snapshot()}
