@@ -78,13 +78,13 @@ def tmux_process(command: str, seconds: float, name: str) -> tuple[float, float,
 def main() -> None:
     tmp = Path(tempfile.mkdtemp(prefix="fw-bench-"))
     log = make_log(tmp)
-    from firewatch.firinglog import LogReader
+    from firewatch.store.reader import LogReader
 
     t0 = time.perf_counter()
     with LogReader(log) as r:
         naive = r.series("tc2")
     t_naive = time.perf_counter() - t0
-    from firewatch.view import FiringView
+    from firewatch.store.view import FiringView
 
     view = FiringView(log)
     t0 = time.perf_counter()

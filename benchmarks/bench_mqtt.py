@@ -26,8 +26,8 @@ import numpy as np  # noqa: E402
 import paho.mqtt.client as mqtt  # noqa: E402
 
 from bench_recorder import cpu_seconds  # noqa: E402
-from firewatch.mqtt import parse_mqtt_url  # noqa: E402
-from firewatch.plant import PlantState  # noqa: E402
+from firewatch.services.mqtt import parse_mqtt_url  # noqa: E402
+from firewatch.services.plant import PlantState  # noqa: E402
 
 KILNS = 50
 

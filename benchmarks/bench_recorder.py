@@ -131,8 +131,8 @@ def main() -> None:
     print(f"log size: {size / 1e6:.1f} MB for {samples} samples of {channels} channels ({measured} measured + derived)")
     print(f"  per measured channel-hour at {RATE_HZ} Hz (derived included): {size / (measured * hours) / 1e6:.2f} MB; at 1 Hz about {size / (measured * hours * RATE_HZ) / 1e3:.0f} kB")
 
-    from simulator.run import Simulation
-    from simulator.scenario import load_scenario
+    from firewatch.simulator.run import Simulation
+    from firewatch.simulator.scenario import load_scenario
 
     t0 = time.perf_counter()
     n = sum(len(c) for c in Simulation(load_scenario()).chunks())

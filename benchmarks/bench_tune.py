@@ -13,12 +13,12 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from firewatch.firinglog import LogReader  # noqa: E402
-from firewatch.replay import profiles_from_log  # noqa: E402
-from firewatch.tuning import fit, load_data  # noqa: E402
-from simulator import serve  # noqa: E402
-from simulator.run import Simulation  # noqa: E402
-from simulator.scenario import load_scenario  # noqa: E402
+from firewatch.store.reader import LogReader  # noqa: E402
+from firewatch.services.replay import profiles_from_log  # noqa: E402
+from firewatch.firing.tuning import fit, load_data  # noqa: E402
+from firewatch.simulator import serve  # noqa: E402
+from firewatch.simulator.run import Simulation  # noqa: E402
+from firewatch.simulator.scenario import load_scenario  # noqa: E402
 
 
 def main() -> None:
@@ -44,7 +44,7 @@ def main() -> None:
     print(f"fit, linear in temperature: {t_lin:.2f} s")
     import numpy as np
 
-    from firewatch.tuning import reconcile_with
+    from firewatch.firing.tuning import reconcile_with
 
     idx = np.unique(np.linspace(0, data.t.size - 1, 2000).astype(int))
     t0 = time.perf_counter()

@@ -12,8 +12,7 @@ import importlib
 import sys
 from collections.abc import Sequence
 
-from . import __version__
-
+from firewatch import __version__
 __all__ = ["main", "UsageError", "Parser"]
 
 #: subcommand name -> module under firewatch.commands

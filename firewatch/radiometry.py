@@ -10,10 +10,10 @@ The public face of :mod:`firewatch.physics.planck`, :mod:`~firewatch.physics.ban
 
 from __future__ import annotations
 
-from .physics._warnings import OutOfRangeWarning, RangeError
-from .physics.bands import Band, band_radiance
-from .physics.constants import C1L, C2, C2_ITS90, SIGMA, WIEN_B
-from .physics.corrections import (
+from firewatch.physics._warnings import OutOfRangeWarning, RangeError
+from firewatch.physics.bands import Band, band_radiance
+from firewatch.physics.constants import C1L, C2, C2_ITS90, SIGMA, WIEN_B
+from firewatch.physics.corrections import (
     correct_ratio,
     correct_single_band,
     effective_transmission,
@@ -22,14 +22,14 @@ from .physics.corrections import (
     wien_ratio,
     wien_single_band,
 )
-from .physics.planck import (
+from firewatch.physics.planck import (
     blackbody_fraction,
     planck_radiance,
     rayleigh_jeans_radiance,
     total_radiance,
     wien_radiance,
 )
-from .physics.windows import (
+from firewatch.physics.windows import (
     MATERIALS,
     Window,
     band_effective_transmission,

@@ -10,8 +10,8 @@ The public face of :mod:`firewatch.physics.thermocouples` and
 
 from __future__ import annotations
 
-from .physics._warnings import OutOfRangeWarning, RangeError
-from .physics.thermocouples import (
+from firewatch.physics._warnings import OutOfRangeWarning, RangeError
+from firewatch.physics.thermocouples import (
     TYPES,
     emf_range,
     emf_to_temperature,
@@ -21,7 +21,7 @@ from .physics.thermocouples import (
     temperature_range,
     temperature_to_emf,
 )
-from .physics.tolerances import TOLERANCE_CLASSES, tolerance, tolerance_uncertainty
+from firewatch.physics.tolerances import TOLERANCE_CLASSES, tolerance, tolerance_uncertainty
 
 __all__ = [
     "TYPES",

@@ -6,7 +6,7 @@ Deterministic for a seed; runs on simulated time at any speed. Its physics
 
 from __future__ import annotations
 
-from .kiln import Controller, KilnModel, KilnParameters
-from .scenario import Fault, Scenario, load_scenario
+from firewatch.simulator.kiln import Controller, KilnModel, KilnParameters
+from firewatch.simulator.scenario import Fault, Scenario, load_scenario
 
 __all__ = ["Controller", "Fault", "KilnModel", "KilnParameters", "Scenario", "load_scenario"]

@@ -17,7 +17,7 @@ from firewatch.physics.bands import Band
 from firewatch.physics.corrections import indicated_ratio, indicated_single_band
 from firewatch.physics.thermocouples import temperature_range, temperature_to_emf
 from firewatch.physics.windows import Window
-from firewatch.profile import Pyrometer, Thermocouple
+from firewatch.settings.profile import Pyrometer, Thermocouple
 from firewatch.transport.records import Status
 
 __all__ = ["thermocouple_emf", "pyrometer_reading", "band_of"]

@@ -29,7 +29,7 @@ import math
 from dataclasses import dataclass, field
 
 from firewatch.physics.constants import SIGMA, ZERO_CELSIUS
-from firewatch.schedule import Schedule
+from firewatch.settings.schedule import Schedule
 
 __all__ = ["KilnParameters", "KilnModel", "Controller"]
 

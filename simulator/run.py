@@ -13,9 +13,9 @@ from firewatch.physics.thermocouples import seebeck
 from firewatch.transport.native import encode
 from firewatch.transport.records import Status, Value
 
-from .instruments import band_of, pyrometer_reading, thermocouple_emf
-from .kiln import Controller, KilnModel
-from .scenario import Fault, Scenario
+from firewatch.simulator.instruments import band_of, pyrometer_reading, thermocouple_emf
+from firewatch.simulator.kiln import Controller, KilnModel
+from firewatch.simulator.scenario import Fault, Scenario
 
 __all__ = ["Line", "Simulation"]
 

@@ -49,11 +49,11 @@ from dataclasses import dataclass, field, fields, replace
 from pathlib import Path
 from typing import Any
 
-from firewatch._tomlcheck import ProfileError, TomlReader, in_range
-from firewatch.profile import SiteProfile, load_site, profiles_dir, resolve_profile
-from firewatch.schedule import Schedule, load_schedule
+from firewatch.settings._tomlcheck import ProfileError, TomlReader, in_range
+from firewatch.settings.profile import SiteProfile, load_site, profiles_dir, resolve_profile
+from firewatch.settings.schedule import Schedule, load_schedule
 
-from .kiln import KilnParameters
+from firewatch.simulator.kiln import KilnParameters
 
 __all__ = ["FAULT_KINDS", "Fault", "Scenario", "load_scenario", "parse_fault", "DEMO_SCENARIO"]
 

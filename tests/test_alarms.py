@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from firewatch.alarms import AlarmEngine, Debounce
-from firewatch.profile import load_site
+from firewatch.firing.alarms import AlarmEngine, Debounce
+from firewatch.settings.profile import load_site
 from firewatch.transport.records import Status
 
 SITE = load_site()  # demo site: over_temperature_c = 1260, no_data_s = 30, frozen_s = 900

@@ -7,8 +7,8 @@ from pathlib import Path
 import pytest
 
 from firewatch.cli import main
-from firewatch.profile import load_site, profiles_dir
-from firewatch.schedule import load_schedule
+from firewatch.settings.profile import load_site, profiles_dir
+from firewatch.settings.schedule import load_schedule
 
 SHIPPED = sorted(p.name for p in profiles_dir().glob("*.toml"))
 

@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from firewatch.progress import ProgressTracker
-from firewatch.schedule import load_schedule
+from firewatch.firing.progress import ProgressTracker
+from firewatch.settings.schedule import load_schedule
 
 SCHED = load_schedule(
     "p.toml",

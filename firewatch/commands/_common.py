@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import datetime as dt
 
-from ..cli import UsageError
+from firewatch.cli import UsageError
 
 __all__ = ["iso", "open_log", "duration_text"]
 
@@ -24,7 +24,8 @@ def duration_text(seconds: float) -> str:
 
 
 def open_log(path: str, option: str = "FILE.db"):
-    from ..firinglog import LogError, LogReader
+    from firewatch.store._common import LogError
+    from firewatch.store.reader import LogReader
 
     try:
         return LogReader(path)

@@ -12,9 +12,8 @@ import sys
 import warnings
 from typing import Any
 
-from ..cli import UsageError
-from . import _args
-
+from firewatch.cli import UsageError
+from firewatch.commands import _args
 __all__ = ["add_parser", "run"]
 
 MATERIAL_NAMES = ("fused-silica", "sapphire", "borosilicate", "calcium-fluoride")
@@ -92,19 +91,19 @@ def run(args: argparse.Namespace) -> int:
 
 # -- helpers -------------------------------------------------------------
 def _c(value: float | None, args: argparse.Namespace) -> float | None:
-    from ..units import to_celsius
+    from firewatch.settings.units import to_celsius
 
     return None if value is None else float(to_celsius(value, args.units))
 
 
 def _show(value_c: float, args: argparse.Namespace, digits: int = 2) -> str:
-    from ..units import from_celsius, symbol
+    from firewatch.settings.units import from_celsius, symbol
 
     return f"{float(from_celsius(value_c, args.units)):.{digits}f} {symbol(args.units)}"
 
 
 def _show_delta(delta: float, args: argparse.Namespace) -> str:
-    from ..units import delta_from_celsius, symbol
+    from firewatch.settings.units import delta_from_celsius, symbol
 
     sym = "K" if args.units == "K" else symbol(args.units)
     return f"{float(delta_from_celsius(delta, args.units)):.2f} {sym}"
@@ -131,7 +130,7 @@ def _fail(option: str, exc: Exception) -> UsageError:
 
 
 def _tc(args: argparse.Namespace) -> tuple[dict[str, Any], list[tuple[str, str]]]:
-    from ..physics.thermocouples import check_type, emf_to_temperature, temperature_to_emf
+    from firewatch.physics.thermocouples import check_type, emf_to_temperature, temperature_to_emf
 
     try:
         letter = check_type(args.type)
@@ -165,7 +164,7 @@ def _tc(args: argparse.Namespace) -> tuple[dict[str, Any], list[tuple[str, str]]
 
 
 def _band(args: argparse.Namespace, option: str = "--band"):
-    from ..physics.bands import Band
+    from firewatch.physics.bands import Band
 
     if getattr(args, "band_file", None):
         try:
@@ -179,8 +178,8 @@ def _band(args: argparse.Namespace, option: str = "--band"):
 
 
 def _pyro(args: argparse.Namespace) -> tuple[dict[str, Any], list[tuple[str, str]]]:
-    from ..physics.corrections import correct_single_band, effective_transmission, indicated_single_band
-    from ..physics.windows import Window
+    from firewatch.physics.corrections import correct_single_band, effective_transmission, indicated_single_band
+    from firewatch.physics.windows import Window
 
     band = _band(args)
     if args.window:
@@ -241,8 +240,8 @@ def _pyro(args: argparse.Namespace) -> tuple[dict[str, Any], list[tuple[str, str
 
 
 def _ratio(args: argparse.Namespace) -> tuple[dict[str, Any], list[tuple[str, str]]]:
-    from ..physics.bands import Band
-    from ..physics.corrections import correct_ratio
+    from firewatch.physics.bands import Band
+    from firewatch.physics.corrections import correct_ratio
 
     band1, band2 = Band(*args.band1), Band(*args.band2)
     indicated_c = _c(args.indicated, args)
@@ -274,8 +273,8 @@ def _ratio(args: argparse.Namespace) -> tuple[dict[str, Any], list[tuple[str, st
 
 
 def _window(args: argparse.Namespace) -> tuple[dict[str, Any], list[tuple[str, str]]]:
-    from ..physics.bands import Band
-    from ..physics.windows import Window, material, refractive_index, slab_transmission
+    from firewatch.physics.bands import Band
+    from firewatch.physics.windows import Window, material, refractive_index, slab_transmission
 
     try:
         mat = material(args.material)
@@ -284,7 +283,7 @@ def _window(args: argparse.Namespace) -> tuple[dict[str, Any], list[tuple[str, s
     band = Band(*args.band)
     t_c = 1000.0 if args.temperature is None else _c(args.temperature, args)
     try:
-        from ..physics.windows import band_effective_transmission
+        from firewatch.physics.windows import band_effective_transmission
 
         tau = float(band_effective_transmission(band, Window(mat), t_c + 273.15))
     except (ValueError, Warning) as exc:

@@ -19,16 +19,16 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 def check_file(path: str) -> tuple[str, list[str]]:
     """The kind of file found and its problems (empty when valid)."""
-    from firewatch._tomlcheck import ProfileError, TomlReader
-    from firewatch.profile import check_site
-    from firewatch.schedule import check_schedule
+    from firewatch.settings._tomlcheck import ProfileError, TomlReader
+    from firewatch.settings.profile import check_site
+    from firewatch.settings.schedule import check_schedule
 
     try:
         reader = TomlReader(path)
     except ProfileError as exc:
         return "file", exc.problems
     if "scenario" in reader.data:
-        from simulator.scenario import load_scenario
+        from firewatch.simulator.scenario import load_scenario
 
         try:
             load_scenario(path)

@@ -10,9 +10,8 @@ import tempfile
 import time
 from pathlib import Path
 
-from ..cli import UsageError
-from . import _args
-
+from firewatch.cli import UsageError
+from firewatch.commands import _args
 __all__ = ["add_parser", "run", "start_demo"]
 
 
@@ -40,7 +39,8 @@ def start_demo(log: Path, speed: float, faults: list[str]) -> tuple[subprocess.P
         [sys.executable, "-m", "firewatch", "record", "--port", f"socket://127.0.0.1:{port}", "--clock", "device", "--log", str(log)],
         stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
     )
-    from ..firinglog import LogError, LogReader
+    from firewatch.store._common import LogError
+    from firewatch.store.reader import LogReader
 
     deadline = time.monotonic() + 30.0
     while time.monotonic() < deadline:
@@ -80,7 +80,7 @@ def run(args: argparse.Namespace) -> int:
     sim = rec = None
     try:
         sim, rec = start_demo(log, args.speed, args.fault)
-        from ..ui import run_watch
+        from firewatch.ui import run_watch
 
         return run_watch(log)
     finally:

@@ -6,8 +6,8 @@ import argparse
 import csv
 import sys
 
-from ..cli import UsageError
-from ._common import iso, open_log
+from firewatch.cli import UsageError
+from firewatch.commands._common import iso, open_log
 
 __all__ = ["add_parser", "run", "export_csv"]
 
@@ -24,7 +24,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 def export_csv(reader, out) -> int:
     """Write the CSV; return the number of rows."""
-    from ..transport.records import Status
+    from firewatch.transport.records import Status
 
     channels = reader.query("SELECT id, name, unit, kind FROM channel ORDER BY id")
     start = reader.firing().get("started_t")

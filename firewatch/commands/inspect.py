@@ -7,7 +7,7 @@ import json
 import sys
 from typing import Any
 
-from ._common import duration_text, iso, open_log
+from firewatch.commands._common import duration_text, iso, open_log
 
 __all__ = ["add_parser", "run", "summary"]
 

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from ..cli import UsageError
+from firewatch.cli import UsageError
 
 __all__ = ["add_parser", "run"]
 
@@ -17,7 +17,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from ..mqtt import parse_mqtt_url
+    from firewatch.services.mqtt import parse_mqtt_url
 
     try:
         url = parse_mqtt_url(args.mqtt)
@@ -26,7 +26,7 @@ def run(args: argparse.Namespace) -> int:
         raise UsageError(f"--mqtt: {exc}") from None
     except ImportError:
         raise UsageError("--mqtt: the plant view needs paho-mqtt: pip install 'firewatch[mqtt]'") from None
-    from ..ui.plant import PlantApp
+    from firewatch.ui.plant import PlantApp
 
     PlantApp(url).run()
     return 0

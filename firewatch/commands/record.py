@@ -4,9 +4,8 @@ from __future__ import annotations
 
 import argparse
 
-from ..cli import UsageError
-from . import _args
-
+from firewatch.cli import UsageError
+from firewatch.commands import _args
 __all__ = ["add_parser", "run", "load_profiles"]
 
 
@@ -28,9 +27,9 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 def load_profiles(site_path: str | None, schedule_path: str | None):
     """The site and schedule, defaulting to the demo ones; UsageError names the bad option."""
-    from firewatch._tomlcheck import ProfileError
-    from firewatch.profile import load_site, profiles_dir
-    from firewatch.schedule import load_schedule
+    from firewatch.settings._tomlcheck import ProfileError
+    from firewatch.settings.profile import load_site, profiles_dir
+    from firewatch.settings.schedule import load_schedule
 
     try:
         site = load_site(site_path)
@@ -46,15 +45,15 @@ def load_profiles(site_path: str | None, schedule_path: str | None):
 def run(args: argparse.Namespace) -> int:
     from pathlib import Path
 
-    from firewatch.firinglog import LogError
-    from firewatch.recorder import Recorder
+    from firewatch.store._common import LogError
+    from firewatch.services.recorder import Recorder
 
     site, schedule = load_profiles(args.site, args.schedule)
     log = Path(args.log)
     if not log.parent.exists():
         raise UsageError(f"--log: directory {log.parent} does not exist")
     if args.mqtt:
-        from firewatch.mqtt import parse_mqtt_url
+        from firewatch.services.mqtt import parse_mqtt_url
 
         try:
             parse_mqtt_url(args.mqtt)

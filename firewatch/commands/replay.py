@@ -6,9 +6,9 @@ import argparse
 import json
 import sys
 
-from ..cli import UsageError
-from . import _args
-from ._common import duration_text, iso, open_log
+from firewatch.cli import UsageError
+from firewatch.commands import _args
+from firewatch.commands._common import duration_text, iso, open_log
 
 __all__ = ["add_parser", "run"]
 
@@ -29,10 +29,10 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from .._tomlcheck import ProfileError
-    from ..profile import load_site
-    from ..replay import alarm_summary, profiles_from_log, reevaluate
-    from ..schedule import load_schedule
+    from firewatch.settings._tomlcheck import ProfileError
+    from firewatch.settings.profile import load_site
+    from firewatch.services.replay import alarm_summary, profiles_from_log, reevaluate
+    from firewatch.settings.schedule import load_schedule
 
     reader = open_log(args.log)
     with reader:
@@ -49,7 +49,7 @@ def run(args: argparse.Namespace) -> int:
             raise UsageError(f"--{'site' if args.site else 'schedule'}: {exc.problems[0]}") from None
         if not args.headless:
             try:
-                from ..ui import run_replay
+                from firewatch.ui import run_replay
             except ImportError:
                 raise UsageError("the replay dashboard is not part of this version; use --headless") from None
             return run_replay(args.log, site, schedule, speed=args.speed, site_path=args.site)

@@ -6,9 +6,8 @@ import argparse
 import sys
 from pathlib import Path
 
-from ..cli import UsageError
-from . import _args
-
+from firewatch.cli import UsageError
+from firewatch.commands import _args
 __all__ = ["add_parser", "run"]
 
 
@@ -20,7 +19,7 @@ def _host_port(text: str) -> tuple[str, int]:
 
 
 def _fault(text: str):
-    from simulator.scenario import parse_fault
+    from firewatch.simulator.scenario import parse_fault
 
     try:
         return parse_fault(text)
@@ -49,9 +48,9 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from firewatch._tomlcheck import ProfileError
-    from simulator.run import Simulation
-    from simulator.scenario import load_scenario
+    from firewatch.settings._tomlcheck import ProfileError
+    from firewatch.simulator.run import Simulation
+    from firewatch.simulator.scenario import load_scenario
 
     try:
         scenario = load_scenario(args.scenario)
@@ -76,13 +75,13 @@ def run(args: argparse.Namespace) -> int:
     def announce(text: str) -> None:
         print(text, flush=True)
 
-    from simulator import serve
+    from firewatch.simulator import serve
 
     if args.to_log:
         path = Path(args.to_log)
         if not path.parent.exists():
             raise UsageError(f"--to-log: directory {path.parent} does not exist")
-        from firewatch.firinglog import LogError
+        from firewatch.store._common import LogError
 
         try:
             result = serve.to_log(sim, path)

@@ -7,8 +7,8 @@ import datetime as dt
 import json
 import sys
 
-from ..cli import UsageError
-from ._common import iso, open_log
+from firewatch.cli import UsageError
+from firewatch.commands._common import iso, open_log
 
 __all__ = ["add_parser", "run"]
 
@@ -29,10 +29,10 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from .._tomlcheck import ProfileError
-    from ..profile import load_site
-    from ..replay import profiles_from_log
-    from ..tuning import TuneError, fit, load_data
+    from firewatch.settings._tomlcheck import ProfileError
+    from firewatch.settings.profile import load_site
+    from firewatch.services.replay import profiles_from_log
+    from firewatch.firing.tuning import TuneError, fit, load_data
 
     with open_log(args.log) as reader:
         try:
@@ -83,7 +83,7 @@ def run(args: argparse.Namespace) -> int:
         comment = (f"tuned by firewatch tune from {args.log} (firing from {iso(start)}) at {when}: 95 % CI "
                    f"{result.ci95[0]:.3f}-{result.ci95[1]:.3f}, {result.points_used} points, residual sd {result.residual_c['sd']:.2f} K")
         try:
-            from ..apply import apply_tuning
+            from firewatch.firing.profile_writer import apply_tuning
 
             apply_tuning(args.apply, data.py.name, values, comment)
         except FileNotFoundError:

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from ._common import open_log
+from firewatch.commands._common import open_log
 
 __all__ = ["add_parser", "run"]
 
@@ -19,13 +19,13 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 def run(args: argparse.Namespace) -> int:
     open_log(args.log).close()  # a clear message for a missing or foreign file, before the screen opens
-    from ..ui import run_watch
+    from firewatch.ui import run_watch
 
     if args.site:
         from pathlib import Path
 
         if not Path(args.site).is_file():
-            from ..cli import UsageError
+            from firewatch.cli import UsageError
 
             raise UsageError(f"--site: no such file {args.site!r}")
     return run_watch(args.log, site_path=args.site)

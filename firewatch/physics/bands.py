@@ -45,9 +45,9 @@ from pathlib import Path
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from ._warnings import OutOfRangeWarning, RangeError
-from .constants import C2
-from .planck import check_temperature, planck_radiance
+from firewatch.physics._warnings import OutOfRangeWarning, RangeError
+from firewatch.physics.constants import C2
+from firewatch.physics.planck import check_temperature, planck_radiance
 
 __all__ = ["Band", "TABLE_T_MIN_K", "TABLE_T_MAX_K", "band_radiance"]
 

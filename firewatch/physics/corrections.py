@@ -57,10 +57,10 @@ from typing import overload
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from ._warnings import OutOfRangeWarning
-from .bands import Band, _flag_outside
-from .constants import C2, ZERO_CELSIUS
-from .windows import Window
+from firewatch.physics._warnings import OutOfRangeWarning
+from firewatch.physics.bands import Band, _flag_outside
+from firewatch.physics.constants import C2, ZERO_CELSIUS
+from firewatch.physics.windows import Window
 
 __all__ = [
     "check_fraction",

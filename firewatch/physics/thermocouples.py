@@ -40,8 +40,8 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from ._its90_data import FORWARD, INVERSE
-from ._warnings import OutOfRangeWarning, RangeError
+from firewatch.physics._its90_data import FORWARD, INVERSE
+from firewatch.physics._warnings import OutOfRangeWarning, RangeError
 
 __all__ = [
     "TYPES",

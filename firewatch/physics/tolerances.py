@@ -24,7 +24,7 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from .thermocouples import check_type
+from firewatch.physics.thermocouples import check_type
 
 __all__ = ["TOLERANCE_CLASSES", "tolerance", "tolerance_uncertainty"]
 

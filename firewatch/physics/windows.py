@@ -48,8 +48,8 @@ from dataclasses import dataclass, field
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from .bands import Band
-from .planck import check_temperature, check_wavelength
+from firewatch.physics.bands import Band
+from firewatch.physics.planck import check_temperature, check_wavelength
 
 __all__ = [
     "WindowMaterial",

@@ -5,6 +5,6 @@ Imports nothing from the model, the physics or the interface.
 
 from __future__ import annotations
 
-from .records import Malformed, ReadingSet, Status, Value
+from firewatch.transport.records import Malformed, ReadingSet, Status, Value
 
 __all__ = ["Malformed", "ReadingSet", "Status", "Value"]

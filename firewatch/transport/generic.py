@@ -25,7 +25,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
-from .records import Malformed, ReadingSet, Status, Value
+from firewatch.transport.records import Malformed, ReadingSet, Status, Value
 
 __all__ = ["ChannelMap", "GenericParser"]
 

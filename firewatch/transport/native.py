@@ -31,7 +31,7 @@ import binascii
 import math
 import re
 
-from .records import Malformed, ReadingSet, Status, Value
+from firewatch.transport.records import Malformed, ReadingSet, Status, Value
 
 __all__ = ["TAG", "crc16", "encode", "NativeParser"]
 

@@ -16,7 +16,7 @@ from dataclasses import dataclass
 
 import serial
 
-from .framing import LineFramer
+from firewatch.transport.framing import LineFramer
 
 __all__ = ["PortSettings", "PortEvent", "PortReader", "open_port", "PortError"]
 

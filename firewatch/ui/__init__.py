@@ -1,8 +1,8 @@
 """The dashboard (textual): watch a live firing, replay a finished one, and the demo.
 
 Nothing outside this package imports it; it reads the model
-(:mod:`firewatch.view`) and writes operator actions through
-:mod:`firewatch.actions`. textual is imported only here, by the commands
+(:mod:`firewatch.store.view`) and writes operator actions through
+:mod:`firewatch.store.actions`. textual is imported only here, by the commands
 that draw.
 """
 
@@ -12,14 +12,14 @@ __all__ = ["run_watch", "run_replay"]
 
 
 def run_watch(log, show_cautions: bool | None = None, site_path=None) -> int:
-    from .app import FirewatchApp
+    from firewatch.ui.app import FirewatchApp
 
     FirewatchApp(log, mode="live", show_cautions=show_cautions, site_path=site_path).run()
     return 0
 
 
 def run_replay(log, site=None, schedule=None, speed: float = 60.0, show_cautions: bool | None = None, site_path=None) -> int:
-    from .app import FirewatchApp
+    from firewatch.ui.app import FirewatchApp
 
     FirewatchApp(log, mode="replay", site=site, schedule=schedule, speed=speed, show_cautions=show_cautions, site_path=site_path).run()
     return 0

@@ -8,10 +8,10 @@ from pathlib import Path
 from textual.app import App
 from textual.reactive import reactive
 
-from ..actions import ActionQueue
-from ..view import FiringView
-from .dashboard import DashboardScreen
-from .screens import CautionsScreen
+from firewatch.store.actions import ActionQueue
+from firewatch.store.view import FiringView
+from firewatch.ui.dashboard import DashboardScreen
+from firewatch.ui.screens import CautionsScreen
 
 __all__ = ["FirewatchApp", "cautions_marker"]
 

@@ -21,10 +21,10 @@ from textual.message import Message
 from textual.screen import Screen
 from textual.widgets import Footer, Static, TabbedContent, TabPane
 
-from ..view import FiringView, Moment
-from . import format as fmt
-from .screens import HelpScreen, NoteScreen, ShelveScreen
-from .widgets import AlarmList, ChartData, EventList, ReadingsPanel, SchedulePanel, TrendChart
+from firewatch.store.view import FiringView, Moment
+from firewatch.ui import format as fmt
+from firewatch.ui.screens import HelpScreen, NoteScreen, ShelveScreen
+from firewatch.ui.widgets import AlarmList, ChartData, EventList, ReadingsPanel, SchedulePanel, TrendChart
 
 __all__ = ["DashboardScreen", "SPEEDS"]
 
@@ -282,7 +282,7 @@ class DashboardScreen(Screen):
         self._request(chart=True)
 
     def action_tune(self) -> None:
-        from .tuning import TuningScreen
+        from firewatch.ui.tuning import TuningScreen
 
         self.app.push_screen(TuningScreen(self.view.path, self.view.site, getattr(self.app, "site_path", None)))
 

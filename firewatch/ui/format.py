@@ -9,7 +9,7 @@ from __future__ import annotations
 import datetime as dt
 import math
 
-from ..units import delta_from_celsius, from_celsius, symbol
+from firewatch.settings.units import delta_from_celsius, from_celsius, symbol
 
 __all__ = ["temp", "delta", "rate", "duration", "clock", "STATE_WORDS", "PRIORITY_WORDS", "delta_from_celsius"]
 

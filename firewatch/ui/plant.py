@@ -11,9 +11,8 @@ from textual.binding import Binding
 from textual.screen import Screen
 from textual.widgets import DataTable, Footer, Static
 
-from ..plant import PlantState
-from . import format as fmt
-
+from firewatch.services.plant import PlantState
+from firewatch.ui import format as fmt
 __all__ = ["PlantApp", "KilnScreen"]
 
 STALE_S = 30.0
@@ -141,7 +140,7 @@ class PlantScreen(Screen):
         self.notify(f"{n} acknowledgement(s) sent; each kiln applies them if its site enables plant actions")
 
     def action_help(self) -> None:
-        from .screens import HelpScreen
+        from firewatch.ui.screens import HelpScreen
 
         self.app.push_screen(HelpScreen([("↑ ↓", "choose a kiln"), ("Enter", "open the kiln: its values and alarms"),
                                          ("a", "(in a kiln) acknowledge the chosen alarm"), ("A", "acknowledge every alarm of every kiln"),

@@ -88,8 +88,8 @@ class TuningScreen(Screen):
 
     @work(thread=True, exclusive=True)
     def load(self) -> None:
-        from ..firinglog import LogReader
-        from ..tuning import TuneError, fit, load_data
+        from firewatch.store.reader import LogReader
+        from firewatch.firing.tuning import TuneError, fit, load_data
 
         try:
             with LogReader(self.log_path) as reader:
@@ -125,7 +125,7 @@ class TuningScreen(Screen):
     def redraw(self) -> None:
         import time
 
-        from ..tuning import reconcile_with
+        from firewatch.firing.tuning import reconcile_with
 
         status = self.query_one("#tune-status", Static)
         if self.data is None:
@@ -182,8 +182,8 @@ class TuningScreen(Screen):
         def done(yes: bool) -> None:
             if not yes:
                 return
-            from .._tomlcheck import ProfileError
-            from ..apply import apply_tuning
+            from firewatch.settings._tomlcheck import ProfileError
+            from firewatch.firing.profile_writer import apply_tuning
 
             values = {"emissivity": self.emissivity}
             if self.gray != 1.0:

@@ -13,11 +13,10 @@ from textual.reactive import reactive
 from textual.widgets import DataTable, Static
 from textual_plot import HiResMode, PlotWidget
 
-from ..transport.records import Status
-from ..units import symbol
-from ..view import Moment, status_text
-from . import format as fmt
-
+from firewatch.transport.records import Status
+from firewatch.settings.units import symbol
+from firewatch.store.view import Moment, status_text
+from firewatch.ui import format as fmt
 __all__ = ["ReadingsPanel", "SchedulePanel", "TrendChart", "AlarmList", "EventList", "ChartData"]
 
 ABNORMAL = "bold reverse"
@@ -174,7 +173,7 @@ class TrendChart(PlotWidget):
         self.margin_bottom = 2
 
     def draw(self, data: ChartData) -> None:
-        from ..units import from_celsius
+        from firewatch.settings.units import from_celsius
 
         self.clear()
         to_h = lambda t: (np.asarray(t) - data.origin) / 3600.0  # noqa: E731

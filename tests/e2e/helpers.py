@@ -65,7 +65,8 @@ def wait_for(predicate, timeout: float = 30.0, interval: float = 0.1):
 
 def samples(log: Path) -> int:
     """Committed samples, read the way a viewer does (read-only, short transaction)."""
-    from firewatch.firinglog import LogError, LogReader
+    from firewatch.store._common import LogError
+    from firewatch.store.reader import LogReader
 
     try:
         with LogReader(log) as r:

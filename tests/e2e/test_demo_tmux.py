@@ -11,7 +11,7 @@ from pathlib import Path
 
 import pytest
 
-from .helpers import ROOT, env
+from tests.e2e.helpers import ROOT, env
 
 pytestmark = pytest.mark.skipif(shutil.which("tmux") is None, reason="tmux is installed by .ci/run")
 

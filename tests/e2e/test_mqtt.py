@@ -13,11 +13,11 @@ from pathlib import Path
 
 import pytest
 
-from firewatch.firinglog import LogReader
-from firewatch.profile import profiles_dir
+from firewatch.store.reader import LogReader
+from firewatch.settings.profile import profiles_dir
 
-from ..ui.helpers import settle
-from .helpers import firewatch, free_port, start_sim_tcp, stop, wait_for
+from tests.ui.helpers import settle
+from tests.e2e.helpers import firewatch, free_port, start_sim_tcp, stop, wait_for
 
 MOSQUITTO = shutil.which("mosquitto") or ("/usr/sbin/mosquitto" if Path("/usr/sbin/mosquitto").exists() else None)
 pytestmark = pytest.mark.skipif(MOSQUITTO is None, reason="mosquitto is installed by .ci/run")
@@ -219,7 +219,7 @@ def test_actions_over_mqtt_only_when_enabled(tmp_path: Path, broker: Broker, acc
 
 
 async def test_plant_view_of_three_kilns(tmp_path: Path, broker: Broker) -> None:
-    from firewatch.mqtt import parse_mqtt_url
+    from firewatch.services.mqtt import parse_mqtt_url
     from firewatch.ui.plant import KilnScreen, PlantApp
 
     p = f"larchmoor-{os.getpid()}-plant"

@@ -10,11 +10,11 @@ from pathlib import Path
 
 import pytest
 
-from firewatch.firinglog import LogReader
+from firewatch.store.reader import LogReader
 from firewatch.transport.native import encode
 from firewatch.transport.records import Value
 
-from .helpers import firewatch, free_port, inspect, run, samples, start_sim_tcp, stop, wait_for
+from tests.e2e.helpers import firewatch, free_port, inspect, run, samples, start_sim_tcp, stop, wait_for
 
 
 def test_tcp_end_to_end(tmp_path: Path) -> None:

@@ -6,9 +6,9 @@ import hashlib
 import json
 from pathlib import Path
 
-from firewatch.profile import profiles_dir
+from firewatch.settings.profile import profiles_dir
 
-from .helpers import inspect, run
+from tests.e2e.helpers import inspect, run
 
 
 def test_replay_headless(tmp_path: Path) -> None:

@@ -6,7 +6,7 @@ import csv
 import sqlite3
 from pathlib import Path
 
-from .helpers import inspect, run
+from tests.e2e.helpers import inspect, run
 
 
 def test_to_log_and_export(tmp_path: Path) -> None:

@@ -8,15 +8,15 @@ from pathlib import Path
 
 import pytest
 
-from firewatch.firinglog import LogReader
-from firewatch.profile import load_site, profiles_dir
-from firewatch.replay import profiles_from_log
-from firewatch.tuning import TuneError, fit, load_data
-from simulator import serve
-from simulator.run import Simulation
-from simulator.scenario import load_scenario, parse_fault
+from firewatch.store.reader import LogReader
+from firewatch.settings.profile import load_site, profiles_dir
+from firewatch.services.replay import profiles_from_log
+from firewatch.firing.tuning import TuneError, fit, load_data
+from firewatch.simulator import serve
+from firewatch.simulator.run import Simulation
+from firewatch.simulator.scenario import load_scenario, parse_fault
 
-from .helpers import run
+from tests.e2e.helpers import run
 
 DATA = Path(__file__).resolve().parents[1] / "data"
 TRUE_EMISSIVITY = 0.80  # the simulated ware's (the profile believes 0.88)

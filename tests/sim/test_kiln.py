@@ -7,13 +7,13 @@ import pytest
 
 from firewatch.physics.bands import Band
 from firewatch.physics.constants import SIGMA, ZERO_CELSIUS
-from firewatch.profile import Pyrometer, load_site
-from firewatch.schedule import load_schedule
+from firewatch.settings.profile import Pyrometer, load_site
+from firewatch.settings.schedule import load_schedule
 from firewatch.transport.native import NativeParser
-from simulator.instruments import pyrometer_reading
-from simulator.kiln import Controller, KilnModel, KilnParameters
-from simulator.run import Simulation
-from simulator.scenario import load_scenario, parse_fault
+from firewatch.simulator.instruments import pyrometer_reading
+from firewatch.simulator.kiln import Controller, KilnModel, KilnParameters
+from firewatch.simulator.run import Simulation
+from firewatch.simulator.scenario import load_scenario, parse_fault
 
 
 def test_steady_state_heat_balance() -> None:

@@ -6,9 +6,9 @@ from pathlib import Path
 
 import pytest
 
-from simulator import serve
-from simulator.run import Simulation
-from simulator.scenario import load_scenario, parse_fault
+from firewatch.simulator import serve
+from firewatch.simulator.run import Simulation
+from firewatch.simulator.scenario import load_scenario, parse_fault
 
 
 @pytest.fixture(scope="session")

@@ -7,15 +7,15 @@ from pathlib import Path
 
 import pytest
 
-from firewatch.actions import ActionQueue
-from firewatch.firinglog import LogReader
+from firewatch.store.actions import ActionQueue
+from firewatch.store.reader import LogReader
 from firewatch.ui.app import FirewatchApp, cautions_marker
 from firewatch.ui.dashboard import DashboardScreen
 from firewatch.ui.screens import CautionsScreen, HelpScreen, NoteScreen, ShelveScreen
 from firewatch.ui.widgets import AlarmList, ReadingsPanel
 
-from ..e2e.helpers import firewatch, samples, start_sim_tcp, stop, wait_for
-from .helpers import settle
+from tests.e2e.helpers import firewatch, samples, start_sim_tcp, stop, wait_for
+from tests.ui.helpers import settle
 
 
 def dashboard(app: FirewatchApp) -> DashboardScreen:

@@ -5,14 +5,14 @@ from __future__ import annotations
 import shutil
 from pathlib import Path
 
-from firewatch.profile import load_site
+from firewatch.settings.profile import load_site
 from firewatch.ui.app import FirewatchApp
 from firewatch.ui.tuning import ConfirmScreen, TuningScreen
-from simulator import serve
-from simulator.run import Simulation
-from simulator.scenario import load_scenario
+from firewatch.simulator import serve
+from firewatch.simulator.run import Simulation
+from firewatch.simulator.scenario import load_scenario
 
-from .helpers import settle
+from tests.ui.helpers import settle
 
 DATA = Path(__file__).resolve().parents[1] / "data"
 

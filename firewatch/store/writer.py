@@ -1,167 +1,30 @@
-"""The firing log: one SQLite file per firing, WAL mode, one writer, any number of readers.
+"""The one writer of a firing log (the recorder, or ``sim --to-log``).
 
-The schema is documented in docs/log-format.md and versioned in
-``meta.schema_version``. The recorder (and ``sim --to-log``) is the only
-writer; a lock file beside the log (``FILE.db.lock``, held with ``flock``,
-released by the kernel even on SIGKILL) refuses a second one. Readers open
-the file read-only and keep their transactions short.
-
-Durability: the recorder commits at least once a second with
-``synchronous=FULL``, so a crash or power cut loses at most what was not yet
-committed; SQLite's WAL keeps the file intact through SIGKILL.
+A lock file beside the log (``FILE.db.lock``, held with ``flock``, released by
+the kernel even on SIGKILL) refuses a second writer. Durability: the recorder
+commits at least once a second with ``synchronous=FULL``, so a crash or power
+cut loses at most what was not yet committed; SQLite's WAL keeps the file
+intact through SIGKILL.
 """
 
 from __future__ import annotations
 
 import fcntl
-import json
 import os
 import socket
 import sqlite3
 import time
-from collections.abc import Iterable, Iterator
-from dataclasses import dataclass
+from collections.abc import Iterable
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
-from . import __version__
-from .pipeline import Batch, ChannelInfo
+from firewatch import __version__
+from firewatch.firing.pipeline import Batch, ChannelInfo
+from firewatch.store._common import SCHEMA_VERSION, LogError, LogLocked, _connect, schema_sql
 
-__all__ = ["SCHEMA_VERSION", "LogError", "LogLocked", "LogWriter", "LogReader", "open_reader"]
-
-SCHEMA_VERSION = 1
-
-SCHEMA = """
-CREATE TABLE meta(key TEXT PRIMARY KEY, value TEXT NOT NULL);
-CREATE TABLE firing(
-    id INTEGER PRIMARY KEY CHECK (id = 1),
-    created_utc REAL NOT NULL,
-    started_t REAL,
-    ended_t REAL,
-    site_name TEXT,
-    kiln TEXT,
-    site_profile TEXT,
-    schedule_name TEXT,
-    schedule TEXT,
-    clock TEXT NOT NULL
-);
-CREATE TABLE session(
-    id INTEGER PRIMARY KEY,
-    started_utc REAL NOT NULL,
-    ended_utc REAL,
-    end_reason TEXT,
-    port TEXT,
-    pid INTEGER,
-    host TEXT,
-    firewatch_version TEXT,
-    sqlite_version TEXT,
-    site_profile TEXT,
-    schedule TEXT
-);
-CREATE TABLE channel(
-    id INTEGER PRIMARY KEY,
-    name TEXT NOT NULL UNIQUE,
-    kind TEXT NOT NULL,
-    unit TEXT NOT NULL,
-    source TEXT,
-    description TEXT
-);
-CREATE TABLE raw_line(
-    id INTEGER PRIMARY KEY,
-    session_id INTEGER NOT NULL,
-    received_utc REAL NOT NULL,
-    line BLOB NOT NULL,
-    ok INTEGER NOT NULL,
-    reason TEXT
-);
-CREATE TABLE sample(
-    id INTEGER PRIMARY KEY,
-    session_id INTEGER NOT NULL,
-    t REAL NOT NULL,
-    received_utc REAL NOT NULL,
-    device_time REAL,
-    seq INTEGER,
-    raw_id INTEGER
-);
-CREATE INDEX sample_t ON sample(t);
-CREATE TABLE reading(
-    channel_id INTEGER NOT NULL,
-    sample_id INTEGER NOT NULL,
-    t REAL NOT NULL,
-    value REAL,
-    status INTEGER NOT NULL,
-    PRIMARY KEY (channel_id, sample_id)
-) WITHOUT ROWID;
-CREATE TABLE event(
-    id INTEGER PRIMARY KEY,
-    t REAL NOT NULL,
-    kind TEXT NOT NULL,
-    channel TEXT,
-    detail TEXT
-);
-CREATE INDEX event_t ON event(t);
-CREATE TABLE gap(
-    id INTEGER PRIMARY KEY,
-    start_t REAL NOT NULL,
-    end_t REAL NOT NULL,
-    reason TEXT NOT NULL
-);
-CREATE TABLE alarm(
-    id INTEGER PRIMARY KEY,
-    kind TEXT NOT NULL,
-    channel TEXT,
-    cause TEXT,
-    priority TEXT NOT NULL,
-    raised_t REAL NOT NULL,
-    cleared_t REAL,
-    state TEXT NOT NULL,
-    message TEXT,
-    evidence TEXT
-);
-CREATE TABLE alarm_state(
-    id INTEGER PRIMARY KEY,
-    alarm_id INTEGER NOT NULL,
-    t REAL NOT NULL,
-    state TEXT NOT NULL,
-    detail TEXT
-);
-CREATE INDEX alarm_state_alarm ON alarm_state(alarm_id);
-CREATE TABLE trend_minute(
-    channel_id INTEGER NOT NULL,
-    minute INTEGER NOT NULL,
-    lo REAL NOT NULL,
-    hi REAL NOT NULL,
-    n INTEGER NOT NULL,
-    PRIMARY KEY (channel_id, minute)
-) WITHOUT ROWID;
-CREATE VIEW readings AS
-    SELECT c.name AS channel, r.t AS t, r.value AS value, r.status AS status, c.unit AS unit
-    FROM reading r JOIN channel c ON c.id = r.channel_id;
-"""
-
-
-class LogError(Exception):
-    """A firing log that cannot be used: the message names the file and the reason."""
-
-
-class LogLocked(LogError):
-    """Another recorder is writing this log."""
-
-
-def _connect(path: Path, read_only: bool) -> sqlite3.Connection:
-    if read_only:
-        uri = f"file:{path.resolve()}?mode=ro"
-        try:
-            con = sqlite3.connect(uri, uri=True, timeout=5.0, check_same_thread=False)
-            con.execute("SELECT count(*) FROM sqlite_master").fetchone()
-        except sqlite3.OperationalError:
-            # A WAL log whose -shm file cannot be made read-only: open normally, never write.
-            con = sqlite3.connect(str(path), timeout=5.0, check_same_thread=False)
-            con.execute("PRAGMA query_only=1")
-        return con
-    return sqlite3.connect(str(path), timeout=5.0, isolation_level=None, check_same_thread=False)
+__all__ = ["LogWriter"]
 
 
 class LogWriter:
@@ -227,7 +90,7 @@ class LogWriter:
             self.con.execute("PRAGMA journal_mode=WAL")
             self.con.execute(f"PRAGMA synchronous={'FULL' if durable else 'NORMAL'}")
             if new:
-                self.con.executescript("BEGIN;\n" + SCHEMA + "\nCOMMIT;")
+                self.con.executescript("BEGIN;\n" + schema_sql() + "\nCOMMIT;")
         except sqlite3.DatabaseError as exc:
             raise LogError(f"{self.path}: not a firing log ({exc})") from None
         if new:
@@ -362,118 +225,3 @@ class LogWriter:
             os.close(self._lock_fd)
         except OSError:
             pass
-
-
-@dataclass
-class Series:
-    """One channel's readings: times (UTC s), values (NaN where none) and status codes."""
-
-    t: np.ndarray
-    value: np.ndarray
-    status: np.ndarray
-
-
-class LogReader:
-    """Read-only access to a firing log, in short transactions (safe beside a live recorder)."""
-
-    def __init__(self, path: str | Path) -> None:
-        self.path = Path(path)
-        if not self.path.is_file():
-            raise LogError(f"{self.path}: no such firing log")
-        try:
-            self.con = _connect(self.path, read_only=True)
-            version = self.con.execute("SELECT value FROM meta WHERE key='schema_version'").fetchone()
-        except sqlite3.DatabaseError as exc:
-            raise LogError(f"{self.path}: not a firing log ({exc})") from None
-        if version is None:
-            raise LogError(f"{self.path}: not a firing log (no schema version)")
-        if int(version[0]) > SCHEMA_VERSION:
-            raise LogError(f"{self.path}: log schema {version[0]} is newer than this firewatch reads ({SCHEMA_VERSION})")
-
-    def close(self) -> None:
-        self.con.close()
-
-    def __enter__(self) -> LogReader:
-        return self
-
-    def __exit__(self, *exc: object) -> None:
-        self.close()
-
-    def query(self, sql: str, params: Iterable[Any] = ()) -> list[tuple]:
-        return self.con.execute(sql, tuple(params)).fetchall()
-
-    def firing(self) -> dict[str, Any]:
-        cur = self.con.execute("SELECT * FROM firing WHERE id = 1")
-        row = cur.fetchone()
-        if row is None:
-            return {}
-        return dict(zip([d[0] for d in cur.description], row))
-
-    def channels(self) -> list[ChannelInfo]:
-        return [ChannelInfo(*r) for r in self.query("SELECT name, kind, unit, source, description FROM channel ORDER BY id")]
-
-    def series(self, channel: str, start_t: float | None = None, end_t: float | None = None) -> Series:
-        sql = "SELECT r.t, r.value, r.status FROM reading r JOIN channel c ON c.id = r.channel_id WHERE c.name = ?"
-        params: list[Any] = [channel]
-        if start_t is not None:
-            sql += " AND r.t >= ?"
-            params.append(start_t)
-        if end_t is not None:
-            sql += " AND r.t <= ?"
-            params.append(end_t)
-        rows = self.query(sql + " ORDER BY r.sample_id", params)
-        if not rows:
-            return Series(np.empty(0), np.empty(0), np.empty(0, dtype=np.int64))
-        arr = np.array([(r[0], np.nan if r[1] is None else r[1], r[2]) for r in rows], dtype=float)
-        return Series(arr[:, 0], arr[:, 1], arr[:, 2].astype(np.int64))
-
-    def raw_lines(self, batch_size: int = 5000) -> Iterator[list[tuple[float, bytes, int]]]:
-        """All raw lines in order, in batches: ``(received_utc, line, session_id)``."""
-        last = 0
-        while True:
-            rows = self.query(
-                "SELECT id, received_utc, line, session_id FROM raw_line WHERE id > ? ORDER BY id LIMIT ?", (last, batch_size)
-            )
-            if not rows:
-                return
-            last = rows[-1][0]
-            yield [(r[1], bytes(r[2]), r[3]) for r in rows]
-
-    def gaps(self) -> list[dict[str, Any]]:
-        return [
-            {"start_t": r[0], "end_t": r[1], "reason": r[2]}
-            for r in self.query("SELECT start_t, end_t, reason FROM gap ORDER BY start_t")
-        ]
-
-    def events(self, kinds: Iterable[str] | None = None, limit: int | None = None) -> list[dict[str, Any]]:
-        sql = "SELECT t, kind, channel, detail FROM event"
-        params: list[Any] = []
-        if kinds:
-            kinds = list(kinds)
-            sql += f" WHERE kind IN ({','.join('?' * len(kinds))})"
-            params += kinds
-        sql += " ORDER BY t, id"
-        if limit:
-            sql += " LIMIT ?"
-            params.append(limit)
-        return [{"t": r[0], "kind": r[1], "channel": r[2], "detail": r[3]} for r in self.query(sql, params)]
-
-    def alarms(self) -> list[dict[str, Any]]:
-        out = []
-        for r in self.query("SELECT id, kind, channel, cause, priority, raised_t, cleared_t, state, message, evidence FROM alarm ORDER BY raised_t, id"):
-            states = [
-                {"t": s[0], "state": s[1], "detail": s[2]}
-                for s in self.query("SELECT t, state, detail FROM alarm_state WHERE alarm_id = ? ORDER BY t, id", (r[0],))
-            ]
-            out.append(
-                {
-                    "id": r[0], "kind": r[1], "channel": r[2], "cause": r[3], "priority": r[4], "raised_t": r[5],
-                    "cleared_t": r[6], "state": r[7], "message": r[8],
-                    "evidence": json.loads(r[9]) if r[9] else None, "states": states,
-                }
-            )
-        return out
-
-
-def open_reader(path: str | Path) -> LogReader:
-    return LogReader(path)

@@ -33,7 +33,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ._tomlcheck import ProfileError, TomlReader, in_range, one_of
+from firewatch.settings._tomlcheck import ProfileError, TomlReader, in_range, one_of
 
 __all__ = ["Segment", "CriticalRange", "Schedule", "load_schedule", "check_schedule", "ProfileError"]
 

@@ -21,14 +21,15 @@ from pathlib import Path
 
 import numpy as np
 
-from .firinglog import LogWriter
-from .pipeline import Batch, Pipeline
-from .profile import SiteProfile
-from .schedule import Schedule
-from .transport.generic import ChannelMap, GenericParser
-from .transport.native import NativeParser
-from .transport.ports import PortEvent, PortReader, PortSettings
-from .transport.records import Malformed, ReadingSet
+from firewatch.store.outbox import Outbox
+from firewatch.store.writer import LogWriter
+from firewatch.firing.pipeline import Batch, Pipeline
+from firewatch.settings.profile import SiteProfile
+from firewatch.settings.schedule import Schedule
+from firewatch.transport.generic import ChannelMap, GenericParser
+from firewatch.transport.native import NativeParser
+from firewatch.transport.ports import PortEvent, PortReader, PortSettings
+from firewatch.transport.records import Malformed, ReadingSet
 
 __all__ = ["Ingest", "Recorder", "make_parser", "GAP_S", "SQLITE_WAL_FIX"]
 
@@ -171,7 +172,7 @@ class Recorder:
 
     def run(self, install_signals: bool = True) -> str:
         """Record until stopped; return the reason it stopped."""
-        from .pipeline import channel_table
+        from firewatch.firing.pipeline import channel_table
 
         writer = LogWriter(
             self.log_path,
@@ -198,7 +199,7 @@ class Recorder:
         self.engine = attach_alarms(ingest, self.site, self.schedule)
         if self.mqtt_url:
             self._start_mqtt(writer, ingest)
-        from .actions import ActionQueue
+        from firewatch.store.actions import ActionQueue
 
         try:
             self.actions: ActionQueue | None = ActionQueue(self.log_path)
@@ -253,20 +254,15 @@ class Recorder:
 
     def _start_mqtt(self, writer: LogWriter, ingest: Ingest) -> None:
         """Publish through the outbox: messages are written with the readings, sent by a thread."""
-        from . import mqtt
+        from firewatch.services import mqtt
 
         url = mqtt.parse_mqtt_url(self.mqtt_url)
         kiln = mqtt.kiln_id_for(self.site)
-        for statement in mqtt.OUTBOX_SCHEMA.split(";"):
-            if statement.strip():
-                writer.execute(statement)
+        self.outbox = outbox = Outbox(writer)
         engine = self.engine
 
         def enqueue(messages) -> None:
-            now = ingest.timeline(self.clock_fn())
-            for topic, payload, qos, retain in messages:
-                writer.execute("INSERT INTO mqtt_outbox(topic, payload, qos, retain, created_t) VALUES (?, ?, ?, ?, ?)",
-                               (topic, payload, qos, int(retain), now))
+            outbox.enqueue(messages, ingest.timeline(self.clock_fn()))
 
         def on_batch(batch: Batch) -> None:
             first = writer.execute("SELECT coalesce(max(id), 0) + 1 FROM sample").fetchone()[0]
@@ -288,12 +284,8 @@ class Recorder:
         pub = self.publisher
         acked = pub.acked()
         if acked:
-            stamp = self.clock_fn()
-            writer.con.executemany("UPDATE mqtt_outbox SET sent_utc = ? WHERE id = ?", [(stamp, i) for i in acked])
-        rows = writer.execute(
-            "SELECT id, topic, payload, qos, retain FROM mqtt_outbox WHERE sent_utc IS NULL AND id > ? ORDER BY id LIMIT 20000",
-            (self._handed,),
-        ).fetchall()
+            self.outbox.mark_sent(acked, self.clock_fn())
+        rows = self.outbox.unsent_after(self._handed)
         if rows:
             pub.hand(rows)
             self._handed = rows[-1][0]
@@ -390,7 +382,7 @@ class AlarmLog:
         return i
 
     def sink(self, tr) -> None:
-        from .alarms import evidence_json
+        from firewatch.firing.alarms import evidence_json
 
         a = tr.alarm
         w = self.writer
@@ -407,7 +399,7 @@ class AlarmLog:
 
     def restore_into(self, engine) -> int:
         """Give the engine back the alarms still open in the log; return how many."""
-        from .alarms import Alarm
+        from firewatch.firing.alarms import Alarm
 
         rows = self.writer.execute(
             "SELECT id, kind, channel, cause, priority, raised_t, cleared_t, state, message, evidence FROM alarm WHERE state != 'normal'"
@@ -422,7 +414,7 @@ class AlarmLog:
 
 def attach_alarms(ingest: Ingest, site: SiteProfile, schedule: Schedule | None):
     """Evaluate alarms on every batch the ingest writes; return the engine."""
-    from .alarms import AlarmEngine
+    from firewatch.firing.alarms import AlarmEngine
 
     log = AlarmLog(ingest.writer)
     engine = AlarmEngine(site, schedule, sink=log.sink, next_id=log.next_id)

@@ -17,11 +17,11 @@ from typing import Any
 
 import numpy as np
 
-from ._tomlcheck import ProfileError
-from .firinglog import LogReader
-from .profile import SiteProfile, load_site
-from .schedule import Schedule, load_schedule
-from .transport.records import Status
+from firewatch.settings._tomlcheck import ProfileError
+from firewatch.store.reader import LogReader
+from firewatch.settings.profile import SiteProfile, load_site
+from firewatch.settings.schedule import Schedule, load_schedule
+from firewatch.transport.records import Status
 
 __all__ = ["FiringView", "Moment", "Trend", "AlarmRow"]
 

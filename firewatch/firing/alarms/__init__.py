@@ -57,9 +57,9 @@ from typing import Any
 
 import numpy as np
 
-from .profile import SiteProfile
-from .schedule import Schedule
-from .transport.records import Status
+from firewatch.settings.profile import SiteProfile
+from firewatch.settings.schedule import Schedule
+from firewatch.transport.records import Status
 
 __all__ = [
     "KINDS",

@@ -33,21 +33,9 @@ from collections import deque
 from dataclasses import dataclass
 from urllib.parse import urlparse
 
-__all__ = ["BrokerURL", "parse_mqtt_url", "TOPIC_VERSION", "OUTBOX_SCHEMA", "Publisher", "kiln_id_for", "topic", "start_client"]
+__all__ = ["BrokerURL", "parse_mqtt_url", "TOPIC_VERSION", "Publisher", "kiln_id_for", "topic", "start_client"]
 
 TOPIC_VERSION = 1
-OUTBOX_SCHEMA = """
-CREATE TABLE IF NOT EXISTS mqtt_outbox(
-    id INTEGER PRIMARY KEY,
-    topic TEXT NOT NULL,
-    payload BLOB NOT NULL,
-    qos INTEGER NOT NULL,
-    retain INTEGER NOT NULL,
-    created_t REAL NOT NULL,
-    sent_utc REAL
-);
-CREATE INDEX IF NOT EXISTS mqtt_outbox_unsent ON mqtt_outbox(sent_utc, id);
-"""
 
 
 @dataclass(frozen=True)

@@ -15,7 +15,7 @@ import time
 from dataclasses import dataclass, field
 from typing import Any
 
-from .mqtt import BrokerURL, start_client, topic
+from firewatch.services.mqtt import BrokerURL, start_client, topic
 
 __all__ = ["KilnView", "PlantState"]
 

@@ -30,7 +30,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .schedule import Schedule
+from firewatch.settings.schedule import Schedule
 
 __all__ = ["ProgressTracker", "Snapshot", "PLAN_CHANNELS"]
 

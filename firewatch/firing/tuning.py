@@ -28,19 +28,18 @@ from __future__ import annotations
 import math
 import warnings
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, Protocol
 
 import numpy as np
 from scipy.optimize import least_squares
 
-from .firinglog import LogReader
-from .physics._warnings import FirewatchWarning
-from .physics.bands import Band
-from .physics.corrections import correct_single_band
-from .physics.tolerances import tolerance_uncertainty
-from .physics.windows import Window
-from .profile import Pyrometer, SiteProfile
-from .transport.records import Status
+from firewatch.physics._warnings import FirewatchWarning
+from firewatch.physics.bands import Band
+from firewatch.physics.corrections import correct_single_band
+from firewatch.physics.tolerances import tolerance_uncertainty
+from firewatch.physics.windows import Window
+from firewatch.settings.profile import Pyrometer, SiteProfile
+from firewatch.transport.records import Status
 
 __all__ = ["TuneError", "TuneData", "FitResult", "load_data", "fit", "reconcile_with"]
 
@@ -48,6 +47,22 @@ BLOCK_S = 600.0
 MIN_POINTS = 300
 MIN_BLOCKS = 3
 MAX_CI_WIDTH = 0.2
+
+
+class SeriesLike(Protocol):
+    """One channel over the firing: times (s), values and statuses as equal-length arrays."""
+
+    t: np.ndarray
+    value: np.ndarray
+    status: np.ndarray
+
+
+class FiringSource(Protocol):
+    """What tuning reads from a firing: a firing log's reader satisfies it (the model does not import the store)."""
+
+    def series(self, channel: str) -> SeriesLike: ...
+
+    def alarms(self) -> list[dict[str, Any]]: ...
 
 
 class TuneError(Exception):
@@ -97,7 +112,7 @@ def _runs(mask: np.ndarray) -> list[tuple[int, int]]:
     return list(zip(np.flatnonzero(d == 1), np.flatnonzero(d == -1)))
 
 
-def load_data(reader: LogReader, site: SiteProfile, channel: str | None = None, reference: str | None = None,
+def load_data(reader: FiringSource, site: SiteProfile, channel: str | None = None, reference: str | None = None,
               max_rate_c_per_h: float = 90.0, max_lag_c: float = 1.5) -> TuneData:
     """Read what a fit needs and mark the valid stretches, each used or rejected with its reason."""
     singles = [p for p in site.pyrometers if p.kind == "single"]

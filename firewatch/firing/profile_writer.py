@@ -6,8 +6,8 @@ from pathlib import Path
 
 import tomlkit
 
-from ._tomlcheck import ProfileError
-from .profile import load_site
+from firewatch.settings._tomlcheck import ProfileError
+from firewatch.settings.profile import load_site
 
 __all__ = ["apply_tuning"]
 

@@ -12,7 +12,7 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
-from ._tomllines import key_lines, line_of
+from firewatch.settings._tomllines import key_lines, line_of
 
 __all__ = ["ProfileError", "TomlReader", "MISSING"]
 

@@ -30,17 +30,17 @@ from pathlib import Path
 
 import numpy as np
 
-from .physics._warnings import FirewatchWarning
-from .physics.bands import Band
-from .physics.corrections import correct_ratio, correct_single_band
-from .physics.thermocouples import emf_to_temperature
-from .physics.tolerances import tolerance_uncertainty
-from .physics.windows import Window
-from .profile import Pyrometer, SiteProfile
-from .progress import PLAN_CHANNELS, ProgressTracker
-from .schedule import Schedule
-from .transport.records import Malformed, ReadingSet, Status
-from .trend import TrailingSlope
+from firewatch.physics._warnings import FirewatchWarning
+from firewatch.physics.bands import Band
+from firewatch.physics.corrections import correct_ratio, correct_single_band
+from firewatch.physics.thermocouples import emf_to_temperature
+from firewatch.physics.tolerances import tolerance_uncertainty
+from firewatch.physics.windows import Window
+from firewatch.settings.profile import Pyrometer, SiteProfile
+from firewatch.firing.progress import PLAN_CHANNELS, ProgressTracker
+from firewatch.settings.schedule import Schedule
+from firewatch.transport.records import Malformed, ReadingSet, Status
+from firewatch.firing.rates import TrailingSlope
 
 __all__ = ["Batch", "Pipeline", "ChannelInfo", "channel_table"]
 

@@ -12,11 +12,11 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from ._tomlcheck import MISSING, ProfileError, TomlReader, in_range, one_of
-from .physics.thermocouples import TYPES as TC_TYPES
-from .physics.thermocouples import temperature_range
-from .physics.tolerances import TOLERANCE_CLASSES
-from .physics.windows import MATERIALS
+from firewatch.settings._tomlcheck import MISSING, ProfileError, TomlReader, in_range, one_of
+from firewatch.physics.thermocouples import TYPES as TC_TYPES
+from firewatch.physics.thermocouples import temperature_range
+from firewatch.physics.tolerances import TOLERANCE_CLASSES
+from firewatch.physics.windows import MATERIALS
 
 __all__ = [
     "ProfileError",
@@ -38,11 +38,11 @@ def profiles_dir() -> Path:
     An installed firewatch carries them as the package ``firewatch.profiles``;
     a source checkout has them at the top of the repository.
     """
-    here = Path(__file__).resolve().parent
-    for candidate in (here / "profiles", here.parent / "profiles"):
+    package = Path(__file__).resolve().parents[1]  # firewatch/
+    for candidate in (package / "profiles", package.parent / "profiles"):
         if (candidate / DEMO_SITE).is_file():
             return candidate
-    return here / "profiles"
+    return package / "profiles"
 
 
 DEMO_SITE = "demo-site.toml"

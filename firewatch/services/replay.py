@@ -1,8 +1,8 @@
 """Re-evaluating a recorded firing: conversion, reconciliation and alarms again, with other settings.
 
 The firing log is opened read-only and never changed: the raw lines are
-parsed again and run through a fresh :class:`~firewatch.pipeline.Pipeline`
-and :class:`~firewatch.alarms.AlarmEngine` in memory.
+parsed again and run through a fresh :class:`~firewatch.firing.pipeline.Pipeline`
+and :class:`~firewatch.firing.alarms.AlarmEngine` in memory.
 """
 
 from __future__ import annotations
@@ -13,12 +13,12 @@ from typing import Any
 
 import numpy as np
 
-from .alarms import AlarmEngine, Transition
-from .firinglog import LogReader
-from .pipeline import Pipeline
-from .profile import SiteProfile, load_site
-from .recorder import GAP_S, make_parser
-from .schedule import Schedule, load_schedule
+from firewatch.firing.alarms import AlarmEngine, Transition
+from firewatch.store.reader import LogReader
+from firewatch.firing.pipeline import Pipeline
+from firewatch.settings.profile import SiteProfile, load_site
+from firewatch.services.recorder import GAP_S, make_parser
+from firewatch.settings.schedule import Schedule, load_schedule
 
 __all__ = ["Reevaluation", "reevaluate", "profiles_from_log"]
 
@@ -69,7 +69,7 @@ def _parse_job(job: tuple[str, SiteProfile, str, int, int]) -> list:
     path, site, clock, lo, hi = job
     import sqlite3
 
-    from .pipeline import to_columns
+    from firewatch.firing.pipeline import to_columns
 
     con = sqlite3.connect(f"file:{path}?mode=ro", uri=True)
     try:

@@ -1,0 +1,7 @@
+"""Long-running jobs: the recorder, MQTT publishing, the plant state and replay.
+
+:mod:`.recorder` reads a port, runs the firing model and is the log's only writer;
+:mod:`.mqtt` connects to a broker and publishes from the log's outbox;
+:mod:`.plant` keeps the plant-wide state seen over MQTT; :mod:`.replay` runs a recorded
+firing through the model again. Imports the store, the firing model and the transport.
+"""

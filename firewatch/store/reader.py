@@ -1,0 +1,132 @@
+"""Read-only access to a firing log, in short transactions (safe beside a live recorder)."""
+
+from __future__ import annotations
+
+import json
+import sqlite3
+from collections.abc import Iterable, Iterator
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from firewatch.firing.pipeline import ChannelInfo
+from firewatch.store._common import SCHEMA_VERSION, LogError, _connect
+
+__all__ = ["Series", "LogReader", "open_reader"]
+
+
+@dataclass
+class Series:
+    """One channel's readings: times (UTC s), values (NaN where none) and status codes."""
+
+    t: np.ndarray
+    value: np.ndarray
+    status: np.ndarray
+
+
+class LogReader:
+    """Read-only access to a firing log, in short transactions (safe beside a live recorder)."""
+
+    def __init__(self, path: str | Path) -> None:
+        self.path = Path(path)
+        if not self.path.is_file():
+            raise LogError(f"{self.path}: no such firing log")
+        try:
+            self.con = _connect(self.path, read_only=True)
+            version = self.con.execute("SELECT value FROM meta WHERE key='schema_version'").fetchone()
+        except sqlite3.DatabaseError as exc:
+            raise LogError(f"{self.path}: not a firing log ({exc})") from None
+        if version is None:
+            raise LogError(f"{self.path}: not a firing log (no schema version)")
+        if int(version[0]) > SCHEMA_VERSION:
+            raise LogError(f"{self.path}: log schema {version[0]} is newer than this firewatch reads ({SCHEMA_VERSION})")
+
+    def close(self) -> None:
+        self.con.close()
+
+    def __enter__(self) -> LogReader:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    def query(self, sql: str, params: Iterable[Any] = ()) -> list[tuple]:
+        return self.con.execute(sql, tuple(params)).fetchall()
+
+    def firing(self) -> dict[str, Any]:
+        cur = self.con.execute("SELECT * FROM firing WHERE id = 1")
+        row = cur.fetchone()
+        if row is None:
+            return {}
+        return dict(zip([d[0] for d in cur.description], row))
+
+    def channels(self) -> list[ChannelInfo]:
+        return [ChannelInfo(*r) for r in self.query("SELECT name, kind, unit, source, description FROM channel ORDER BY id")]
+
+    def series(self, channel: str, start_t: float | None = None, end_t: float | None = None) -> Series:
+        sql = "SELECT r.t, r.value, r.status FROM reading r JOIN channel c ON c.id = r.channel_id WHERE c.name = ?"
+        params: list[Any] = [channel]
+        if start_t is not None:
+            sql += " AND r.t >= ?"
+            params.append(start_t)
+        if end_t is not None:
+            sql += " AND r.t <= ?"
+            params.append(end_t)
+        rows = self.query(sql + " ORDER BY r.sample_id", params)
+        if not rows:
+            return Series(np.empty(0), np.empty(0), np.empty(0, dtype=np.int64))
+        arr = np.array([(r[0], np.nan if r[1] is None else r[1], r[2]) for r in rows], dtype=float)
+        return Series(arr[:, 0], arr[:, 1], arr[:, 2].astype(np.int64))
+
+    def raw_lines(self, batch_size: int = 5000) -> Iterator[list[tuple[float, bytes, int]]]:
+        """All raw lines in order, in batches: ``(received_utc, line, session_id)``."""
+        last = 0
+        while True:
+            rows = self.query(
+                "SELECT id, received_utc, line, session_id FROM raw_line WHERE id > ? ORDER BY id LIMIT ?", (last, batch_size)
+            )
+            if not rows:
+                return
+            last = rows[-1][0]
+            yield [(r[1], bytes(r[2]), r[3]) for r in rows]
+
+    def gaps(self) -> list[dict[str, Any]]:
+        return [
+            {"start_t": r[0], "end_t": r[1], "reason": r[2]}
+            for r in self.query("SELECT start_t, end_t, reason FROM gap ORDER BY start_t")
+        ]
+
+    def events(self, kinds: Iterable[str] | None = None, limit: int | None = None) -> list[dict[str, Any]]:
+        sql = "SELECT t, kind, channel, detail FROM event"
+        params: list[Any] = []
+        if kinds:
+            kinds = list(kinds)
+            sql += f" WHERE kind IN ({','.join('?' * len(kinds))})"
+            params += kinds
+        sql += " ORDER BY t, id"
+        if limit:
+            sql += " LIMIT ?"
+            params.append(limit)
+        return [{"t": r[0], "kind": r[1], "channel": r[2], "detail": r[3]} for r in self.query(sql, params)]
+
+    def alarms(self) -> list[dict[str, Any]]:
+        out = []
+        for r in self.query("SELECT id, kind, channel, cause, priority, raised_t, cleared_t, state, message, evidence FROM alarm ORDER BY raised_t, id"):
+            states = [
+                {"t": s[0], "state": s[1], "detail": s[2]}
+                for s in self.query("SELECT t, state, detail FROM alarm_state WHERE alarm_id = ? ORDER BY t, id", (r[0],))
+            ]
+            out.append(
+                {
+                    "id": r[0], "kind": r[1], "channel": r[2], "cause": r[3], "priority": r[4], "raised_t": r[5],
+                    "cleared_t": r[6], "state": r[7], "message": r[8],
+                    "evidence": json.loads(r[9]) if r[9] else None, "states": states,
+                }
+            )
+        return out
+
+
+def open_reader(path: str | Path) -> LogReader:
+    return LogReader(path)

@@ -1,0 +1,106 @@
+-- The firing log's schema (version 1); documented in docs/log-format.md.
+CREATE TABLE meta(key TEXT PRIMARY KEY, value TEXT NOT NULL);
+CREATE TABLE firing(
+    id INTEGER PRIMARY KEY CHECK (id = 1),
+    created_utc REAL NOT NULL,
+    started_t REAL,
+    ended_t REAL,
+    site_name TEXT,
+    kiln TEXT,
+    site_profile TEXT,
+    schedule_name TEXT,
+    schedule TEXT,
+    clock TEXT NOT NULL
+);
+CREATE TABLE session(
+    id INTEGER PRIMARY KEY,
+    started_utc REAL NOT NULL,
+    ended_utc REAL,
+    end_reason TEXT,
+    port TEXT,
+    pid INTEGER,
+    host TEXT,
+    firewatch_version TEXT,
+    sqlite_version TEXT,
+    site_profile TEXT,
+    schedule TEXT
+);
+CREATE TABLE channel(
+    id INTEGER PRIMARY KEY,
+    name TEXT NOT NULL UNIQUE,
+    kind TEXT NOT NULL,
+    unit TEXT NOT NULL,
+    source TEXT,
+    description TEXT
+);
+CREATE TABLE raw_line(
+    id INTEGER PRIMARY KEY,
+    session_id INTEGER NOT NULL,
+    received_utc REAL NOT NULL,
+    line BLOB NOT NULL,
+    ok INTEGER NOT NULL,
+    reason TEXT
+);
+CREATE TABLE sample(
+    id INTEGER PRIMARY KEY,
+    session_id INTEGER NOT NULL,
+    t REAL NOT NULL,
+    received_utc REAL NOT NULL,
+    device_time REAL,
+    seq INTEGER,
+    raw_id INTEGER
+);
+CREATE INDEX sample_t ON sample(t);
+CREATE TABLE reading(
+    channel_id INTEGER NOT NULL,
+    sample_id INTEGER NOT NULL,
+    t REAL NOT NULL,
+    value REAL,
+    status INTEGER NOT NULL,
+    PRIMARY KEY (channel_id, sample_id)
+) WITHOUT ROWID;
+CREATE TABLE event(
+    id INTEGER PRIMARY KEY,
+    t REAL NOT NULL,
+    kind TEXT NOT NULL,
+    channel TEXT,
+    detail TEXT
+);
+CREATE INDEX event_t ON event(t);
+CREATE TABLE gap(
+    id INTEGER PRIMARY KEY,
+    start_t REAL NOT NULL,
+    end_t REAL NOT NULL,
+    reason TEXT NOT NULL
+);
+CREATE TABLE alarm(
+    id INTEGER PRIMARY KEY,
+    kind TEXT NOT NULL,
+    channel TEXT,
+    cause TEXT,
+    priority TEXT NOT NULL,
+    raised_t REAL NOT NULL,
+    cleared_t REAL,
+    state TEXT NOT NULL,
+    message TEXT,
+    evidence TEXT
+);
+CREATE TABLE alarm_state(
+    id INTEGER PRIMARY KEY,
+    alarm_id INTEGER NOT NULL,
+    t REAL NOT NULL,
+    state TEXT NOT NULL,
+    detail TEXT
+);
+CREATE INDEX alarm_state_alarm ON alarm_state(alarm_id);
+CREATE TABLE trend_minute(
+    channel_id INTEGER NOT NULL,
+    minute INTEGER NOT NULL,
+    lo REAL NOT NULL,
+    hi REAL NOT NULL,
+    n INTEGER NOT NULL,
+    PRIMARY KEY (channel_id, minute)
+) WITHOUT ROWID;
+CREATE VIEW readings AS
+    SELECT c.name AS channel, r.t AS t, r.value AS value, r.status AS status, c.unit AS unit
+    FROM reading r JOIN channel c ON c.id = r.channel_id;
