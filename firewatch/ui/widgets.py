@@ -75,14 +75,13 @@ class ReadingsPanel(Static):
                     text = Text("Δ —")
                 table.add_row("", "", text)
         for cj in self.site.cold_junctions:
-            table.add_row(cj, f"{fmt.temp(m.value(cj), u)} {symbol(u)}", "cold junction")
+            table.add_row(cj, f"{fmt.temp(m.value(cj), u)} {symbol(u)}", self._stale(m, cj, "cold junction"))
         return table
 
     @staticmethod
     def _stale(m: Moment, name: str, note: str) -> Text:
-        age = m.age_s.get(name, math.inf)
-        if age > 30:
-            return Text(f"STALE {fmt.duration(age)}", style=ABNORMAL)
+        if name in m.stale:  # the model decided (older than the site's no_data_s); the row says so
+            return Text(f"STALE {fmt.duration_units(m.age_s.get(name))}", style=ABNORMAL)
         return Text(note)
 
 
@@ -225,6 +224,11 @@ class AlarmList(DataTable):
                 if a.id == selected:
                     self.move_cursor(row=i)
         self._announce()
+
+    @property
+    def alarms(self) -> list:
+        """The alarms listed, in their order on the screen."""
+        return list(getattr(self, "_rows", []))
 
     @property
     def selected_id(self) -> int | None:
