@@ -285,9 +285,16 @@ class ActionQueue:
         return int(cur.lastrowid or 0)
 
     def pending(self) -> list[Action]:
+        return self._select("applied_utc IS NULL", ())
+
+    def get(self, action_id: int) -> Action | None:
+        """One action as it was queued (None if there is no such row)."""
+        return next(iter(self._select("id = ?", (action_id,))), None)
+
+    def _select(self, where: str, params: tuple) -> list[Action]:
         rows = self.con.execute(
             "SELECT id, submitted_utc, kind, alarm_id, coalesce(reason, ''), duration_s, coalesce(text, ''), source, about_t "
-            "FROM action WHERE applied_utc IS NULL ORDER BY id"
+            f"FROM action WHERE {where} ORDER BY id", params
         ).fetchall()
         return [Action(r[2], r[7], alarm_id=r[3], reason=r[4], duration_s=r[5], text=r[6], about_t=r[8], id=r[0],
                        submitted_utc=r[1]) for r in rows]
@@ -302,10 +309,6 @@ class ActionQueue:
         """The result the recorder logged for an action, or None while it is pending."""
         row = self.con.execute("SELECT applied_utc, result FROM action WHERE id = ?", (action_id,)).fetchone()
         return None if row is None or row[0] is None else (row[1] or "")
-
-    def get(self, action_id: int) -> Action | None:
-        """One action as it was queued (None if there is no such row)."""
-        return next(iter(self._rows(action_id)), None)
 
     def results(self) -> list[tuple[int, str, str | None]]:
         return self.con.execute("SELECT id, kind, result FROM action ORDER BY id").fetchall()

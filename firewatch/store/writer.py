@@ -47,16 +47,19 @@ def take_lock(path: Path, holder: str, wait_brief_s: float = BRIEF_WAIT_S, clock
         Another process holds the lock; the message names it.
     """
     fd = os.open(f"{path}.lock", os.O_RDWR | os.O_CREAT, 0o644)
-    deadline = clock() + wait_brief_s
+    deadline: float | None = None
     while True:
         try:
             fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
             break
         except BlockingIOError:
             who = os.pread(fd, 200, 0).decode(errors="replace").strip() or "another process"
-            if BRIEF_HOLDER in who and clock() < deadline:
-                threading.Event().wait(0.02)  # a brief write lasts milliseconds; flock has no timeout
-                continue
+            if BRIEF_HOLDER in who:
+                now = clock()
+                deadline = now + wait_brief_s if deadline is None else deadline
+                if now < deadline:
+                    threading.Event().wait(0.02)  # a brief write lasts milliseconds; flock has no timeout
+                    continue
             os.close(fd)
             if BRIEF_HOLDER in who:
                 raise LogLocked(f"{path} is being written by {who}; try again") from None
