@@ -50,7 +50,7 @@ def sqlite_note(version: str) -> str:
         return ""
     if parts >= SQLITE_WAL_FIX:
         return ""
-    return " (older than 3.51.3, which fixed a WAL-reset bug; firewatch keeps to one writing connection)"
+    return "older than 3.51.3, which fixed a WAL-reset bug; firewatch keeps to one writing connection"
 
 
 def make_parser(site: SiteProfile) -> NativeParser | GenericParser:
@@ -220,7 +220,8 @@ class Recorder:
             self.actions = None
             self._say(f"operator actions unavailable ({exc}); recording goes on")
         # the SQLite note is kept with the session (and shown by inspect), not printed at every start
-        sqlite_text = f"SQLite {sqlite3.sqlite_version}{sqlite_note(sqlite3.sqlite_version)}"
+        note = sqlite_note(sqlite3.sqlite_version)
+        sqlite_text = f"SQLite {sqlite3.sqlite_version}" + (f" ({note})" if note else "")
         now = self.clock_fn()
         writer.event(ingest.timeline(now), "start", f"recording {self.url}; {sqlite_text}")
         writer.commit()

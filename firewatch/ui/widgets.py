@@ -258,11 +258,17 @@ class EventList(DataTable):
         self.add_columns("time", "event", "detail")
         self._key: list = []
 
+    @property
+    def events(self) -> list:
+        """The events listed, newest first."""
+        return list(getattr(self, "_events", []))
+
     def show(self, events) -> None:
         key = [(e["t"], e["kind"]) for e in events]
         if key == self._key:
             return
         self._key = key
+        self._events = list(events)
         self.clear()
         for e in events:
             self.add_row(fmt.clock(e["t"])[11:], e["kind"], (e["detail"] or "")[:160])
