@@ -23,10 +23,17 @@ from pathlib import Path
 from firewatch.settings.profile import SiteProfile
 from firewatch.settings.schedule import Schedule
 from firewatch.store._common import LogError, LogLocked
-from firewatch.store.actions import Action, ActionFileError, ActionQueue, apply_action, check_action, default_source
+from firewatch.store.actions import (
+    Action,
+    ActionFileError,
+    ActionQueue,
+    apply_action,
+    check_action,
+    default_source,
+)
 from firewatch.store.writer import BriefWrite
 
-__all__ = ["ActionDesk", "Outcome", "FOLLOW_UP_S"]
+__all__ = ["FOLLOW_UP_S", "ActionDesk", "Outcome"]
 
 FOLLOW_UP_S = 10.0
 """A queued action the recorder has not applied after this long is reported as waiting, seconds (the

@@ -162,7 +162,7 @@ class AlarmActions(Protocol):
 
 
 def _utc(t: float) -> str:
-    return dt.datetime.fromtimestamp(t, dt.timezone.utc).strftime("%Y-%m-%d %H:%M:%SZ")
+    return dt.datetime.fromtimestamp(t, dt.UTC).strftime("%Y-%m-%d %H:%M:%SZ")
 
 
 def apply_action(action: Action, engine: AlarmActions | None, event: Callable[[float, str, str], None], now: float,

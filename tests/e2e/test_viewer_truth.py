@@ -13,10 +13,15 @@ import pytest
 
 from firewatch.services.desk import ActionDesk
 from firewatch.store.reader import LogReader
-from firewatch.store.view import HEARTBEAT_STALE_S, LIVE, NO_DATA, RECORDER_STOPPED, FiringView
+from firewatch.store.view import (
+    HEARTBEAT_STALE_S,
+    LIVE,
+    NO_DATA,
+    RECORDER_STOPPED,
+    FiringView,
+)
 from firewatch.transport.native import encode
 from firewatch.transport.records import Value
-
 from tests.e2e.helpers import firewatch, inspect, run, samples, stop, wait_for
 
 SITE = """\

@@ -14,7 +14,6 @@ from firewatch.store.actions import ActionQueue, actions_path, default_source
 from firewatch.store.reader import LogReader
 from firewatch.store.view import FiringView
 from firewatch.store.writer import BRIEF_HOLDER, release_lock, take_lock
-
 from tests.store.conftest import T0, Bench, Clock
 
 

@@ -10,10 +10,16 @@ from pathlib import Path
 
 import pytest
 
-from firewatch.store.actions import (Action, ActionFileError, ActionQueue, actions_path, apply_action, default_source,
-                                     mqtt_action)
+from firewatch.store.actions import (
+    Action,
+    ActionFileError,
+    ActionQueue,
+    actions_path,
+    apply_action,
+    default_source,
+    mqtt_action,
+)
 from firewatch.store.reader import LogReader
-
 from tests.store.conftest import T0, Bench, Clock
 
 

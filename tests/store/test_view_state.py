@@ -11,9 +11,15 @@ from pathlib import Path
 
 import pytest
 
-from firewatch.store.view import (FIRING_ENDED, HEARTBEAT_STALE_S, LIVE, NO_DATA, RECORDER_STOPPED, FiringView)
+from firewatch.store.view import (
+    FIRING_ENDED,
+    HEARTBEAT_STALE_S,
+    LIVE,
+    NO_DATA,
+    RECORDER_STOPPED,
+    FiringView,
+)
 from firewatch.store.writer import LogWriter
-
 from tests.store.conftest import T0, Bench, Clock
 
 

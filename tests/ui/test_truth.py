@@ -22,7 +22,6 @@ from firewatch.ui.app import FirewatchApp
 from firewatch.ui.dashboard import DashboardScreen
 from firewatch.ui.screens import NoteScreen
 from firewatch.ui.widgets import AlarmList, EventList, ReadingsPanel
-
 from tests.e2e.helpers import firewatch, samples, start_sim_tcp, stop, wait_for
 from tests.ui.helpers import settle
 
