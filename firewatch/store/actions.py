@@ -181,7 +181,8 @@ def apply_action(action: Action, engine: AlarmActions | None, event: Callable[[f
     now : float
         Now on the firing's time line (UTC s).
     now_utc : float, optional
-        The wall clock, to say how late a queued action is applied.
+        The wall clock: a queued action applied late says so, and a queued
+        note is dated when it was typed (its submission, on the time line).
     refused : str, optional
         A reason decided before (actions over MQTT not enabled, a payload
         that does not parse): the action is logged as refused with it.
@@ -199,6 +200,8 @@ def apply_action(action: Action, engine: AlarmActions | None, event: Callable[[f
             refused = str(exc)
     if refused is None and action.kind == "note":
         when = now if action.about_t is None else action.about_t
+        if action.about_t is None and action.submitted_utc is not None and now_utc is not None:
+            when = action.submitted_utc + (now - now_utc)  # when it was typed, on the firing's time line
         written = "" if action.about_t is None else f"; written {_utc(now_utc if now_utc is not None else now)}"
         event(when, "note", f"{_clean(action.text, MAX_TEXT)} ({action.source}{written})")
         result = "note logged"

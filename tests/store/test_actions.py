@@ -162,8 +162,13 @@ def test_a_late_action_says_when_it_was_submitted_and_a_replay_note_its_moment(t
     late = Action("acknowledge", "ann", alarm_id=1, submitted_utc=T0 + 21, id=4)
     apply_action(late, bench.engine, bench.writer.event, T0 + 81, now_utc=T0 + 81)
     assert _events(bench, "action")[-1]["detail"].endswith("(submitted 2027-01-15 08:00:21Z, applied 60 s later)")
+    # a queued note applied late is dated when it was typed, on the firing's time line (here 100 s ahead of UTC)
+    typed = Action("note", "ann", text="door ajar", submitted_utc=T0 + 30, id=5)
+    apply_action(typed, bench.engine, bench.writer.event, T0 + 190, now_utc=T0 + 90)
+    assert [e["t"] for e in _events(bench, "note")] == [T0 + 130]
+    assert _events(bench, "action")[-1]["detail"].endswith("applied 60 s later)")
     note = Action("note", "ann", text="glaze crawling here", about_t=T0 + 3)
     apply_action(note, bench.engine, bench.writer.event, T0 + 90, now_utc=T0 + 90)
-    (logged,) = _events(bench, "note")
+    logged = _events(bench, "note")[0]
     assert logged["t"] == T0 + 3  # about the moment shown in replay
     assert logged["detail"] == "glaze crawling here (ann; written 2027-01-15 08:01:30Z)"
