@@ -167,12 +167,15 @@ class FiringView:
     # -- bounds -------------------------------------------------------------------------
     def refresh_bounds(self) -> bool:
         """Re-read the first and latest sample (a live log grows); True if there is news."""
-        row = self.reader.query("SELECT min(t), max(t), max(id) FROM sample")[0]
-        news = (row[2] or 0) != self.last_sample_id
-        self.start_t, self.end_t, self.last_sample_id = row[0], row[1], row[2] or 0
+        # one aggregate per query: SQLite answers a lone min() or max() from the index, several together by a scan
+        newest = self.reader.query("SELECT id, received_utc FROM sample ORDER BY id DESC LIMIT 1")
+        last_id = newest[0][0] if newest else 0
+        news = last_id != self.last_sample_id
         if news:
-            got = self.reader.query("SELECT received_utc FROM sample WHERE id = ?", (self.last_sample_id,))
-            self.end_received_utc = got[0][0] if got else None
+            self.last_sample_id = last_id
+            self.end_received_utc = newest[0][1] if newest else None
+            self.start_t = self.reader.query("SELECT min(t) FROM sample")[0][0]
+            self.end_t = self.reader.query("SELECT max(t) FROM sample")[0][0]
         return news
 
     def sample_at(self, t: float) -> int | None:
