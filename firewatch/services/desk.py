@@ -96,7 +96,8 @@ class ActionDesk:
     @property
     def waiting(self) -> list[int]:
         """Actions handed to the recorder and not yet applied."""
-        return sorted(self._waiting)
+        with self._lock:
+            return sorted(self._waiting)
 
     # -- submitting -----------------------------------------------------------------------
     def submit(self, kind: str, *, alarm_id: int | None = None, reason: str = "", duration_s: float | None = None,
