@@ -91,12 +91,18 @@ def main() -> None:
     for _ in range(20):
         view.moment(view.start_t + random.random() * (view.end_t - view.start_t))
     t_moment = (time.perf_counter() - t0) / 20
+    view.live()  # the first live read fetches every channel; later ones without news reuse it
+    t0 = time.perf_counter()
+    for _ in range(20):
+        view.live()  # what the live poller does every second when the line is silent: state, ages, alarms, events
+    t_live_idle = (time.perf_counter() - t0) / 20
     view.close()
 
     first, seeks = asyncio.run(first_screen_and_seeks(log))
     seeks.sort()
     print(f"baseline: load one channel in full ({naive.t.size} readings)  {t_naive * 1e3:7.1f} ms")
     print(f"baseline: one moment (every channel at a time)           {t_moment * 1e3:7.1f} ms")
+    print(f"live poll without news (state, ages, alarms, events)     {t_live_idle * 1e3:7.1f} ms, ratio to one moment {t_live_idle / t_moment:.2f}")
     print(f"open the 72 h log and draw the first screen (160x48)    {first * 1e3:7.1f} ms (target <= 1500), ratio to loading one channel {first / t_naive:.2f}")
     print(f"seek, median / worst of 20 (moment + chart)             {seeks[10] * 1e3:7.1f} / {seeks[-1] * 1e3:.1f} ms (target <= 100)")
 

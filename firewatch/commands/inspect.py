@@ -54,6 +54,7 @@ def summary(reader) -> dict[str, Any]:
             }
         )
     sessions = reader.query("SELECT count(*) FROM session")[0][0]
+    recorder_sessions = _sessions(reader)
     return {
         "site": firing.get("site_name"),
         "kiln": firing.get("kiln"),
@@ -63,11 +64,28 @@ def summary(reader) -> dict[str, Any]:
         "end": iso(end),
         "duration_s": None if start is None else round(end - start, 3),
         "sessions": sessions,
+        "recorder_sessions": recorder_sessions,
         "samples": samples,
         "malformed_lines": malformed,
         "gaps": gaps,
         "alarms": alarms,
     }
+
+
+def _sessions(reader) -> list[dict[str, Any]]:
+    """Each recorder session with the SQLite it wrote with and what that means (issue 10 item 9: said here, not
+    on the operator's terminal at every start)."""
+    from firewatch.services.recorder import sqlite_note
+
+    rows = reader.query("SELECT started_utc, ended_utc, end_reason, port, host, pid, firewatch_version, sqlite_version "
+                        "FROM session ORDER BY id")
+    return [
+        {
+            "started": iso(r[0]), "ended": iso(r[1]), "end_reason": r[2], "port": r[3], "host": r[4], "pid": r[5],
+            "firewatch_version": r[6], "sqlite_version": r[7], "sqlite_note": sqlite_note(r[7] or ""),
+        }
+        for r in rows
+    ]
 
 
 def run(args: argparse.Namespace) -> int:
@@ -89,7 +107,11 @@ def run(args: argparse.Namespace) -> int:
     table.add_row("start", info["start"] or "no data")
     table.add_row("end", info["end"] or "no data")
     table.add_row("duration", duration_text(info["duration_s"]) if info["duration_s"] is not None else "-")
-    table.add_row("recorder sessions", str(info["sessions"]))
+    table.add_row("recorder sessions", "\n".join(
+        f"{x['started']} to {x['ended'] or 'open (killed, or still recording)'}"
+        f"{' (' + x['end_reason'] + ')' if x['end_reason'] else ''}; SQLite {x['sqlite_version']}"
+        f"{' (' + x['sqlite_note'] + ')' if x['sqlite_note'] else ''}"
+        for x in info["recorder_sessions"]) or "none")
     table.add_row("samples", ", ".join(f"{k} {v}" for k, v in info["samples"].items()))
     table.add_row("malformed lines", str(info["malformed_lines"]))
     table.add_row("gaps", "none" if not info["gaps"] else "\n".join(f"{g['start']} +{g['seconds']:.0f} s ({g['reason']})" for g in info["gaps"]))

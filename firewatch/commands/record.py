@@ -23,6 +23,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--for", dest="seconds", type=_args.positive, metavar="SECONDS", help="stop after this long")
     p.add_argument("--clock", choices=("wall", "device"), help="time readings on receipt or by the line's own time (default: the site profile's)")
     p.add_argument("--mqtt", metavar="URL", help="also publish to mqtt://HOST:PORT/PREFIX (or mqtts://); credentials from the site profile and the environment")
+    p.add_argument("-v", "--verbose", action="store_true", help="also say which SQLite the log is written with (always kept in the log; see inspect)")
 
 
 def load_profiles(site_path: str | None, schedule_path: str | None):
@@ -62,7 +63,8 @@ def run(args: argparse.Namespace) -> int:
             raise UsageError(f"--mqtt: {exc}") from None
         except ImportError:
             raise UsageError("--mqtt: publishing needs paho-mqtt: pip install 'firewatch[mqtt]'") from None
-    recorder = Recorder(args.port, site, schedule, log, clock=args.clock, duration_s=args.seconds, mqtt_url=args.mqtt)
+    recorder = Recorder(args.port, site, schedule, log, clock=args.clock, duration_s=args.seconds, mqtt_url=args.mqtt,
+                        verbose=args.verbose)
     try:
         recorder.run()
     except LogError as exc:

@@ -21,8 +21,9 @@ from pathlib import Path
 
 import numpy as np
 
+from firewatch.store.actions import ActionFileError, ActionQueue, apply_action, mqtt_action
 from firewatch.store.outbox import Outbox
-from firewatch.store.writer import LogWriter
+from firewatch.store.writer import BriefWrite, LogWriter
 from firewatch.firing.pipeline import Batch, Pipeline
 from firewatch.settings.profile import SiteProfile
 from firewatch.settings.schedule import Schedule
@@ -31,7 +32,7 @@ from firewatch.transport.native import NativeParser
 from firewatch.transport.ports import PortEvent, PortReader, PortSettings
 from firewatch.transport.records import Malformed, ReadingSet
 
-__all__ = ["Ingest", "Recorder", "make_parser", "GAP_S", "SQLITE_WAL_FIX"]
+__all__ = ["Ingest", "Recorder", "make_parser", "GAP_S", "SQLITE_WAL_FIX", "sqlite_note", "AlarmLog", "attach_alarms"]
 
 GAP_S = 5.0
 """A silence longer than this between readings is recorded as a gap, seconds (after a restart or a
@@ -39,6 +40,17 @@ disconnect the gap is recorded whatever its length)."""
 
 SQLITE_WAL_FIX = (3, 51, 3)
 """First SQLite release without the WAL-reset bug (SQLite's documentation: 3.7.0 to 3.51.2)."""
+
+
+def sqlite_note(version: str) -> str:
+    """What to say about an SQLite version: empty if it has the WAL-reset fix, else why firewatch is still safe."""
+    try:
+        parts = tuple(int(x) for x in version.split("."))
+    except ValueError:
+        return ""
+    if parts >= SQLITE_WAL_FIX:
+        return ""
+    return "older than 3.51.3, which fixed a WAL-reset bug; firewatch keeps to one writing connection"
 
 
 def make_parser(site: SiteProfile) -> NativeParser | GenericParser:
@@ -143,6 +155,7 @@ class Recorder:
         clock_fn: Callable[[], float] = time.time,
         out=sys.stderr,
         mqtt_url: str | None = None,
+        verbose: bool = False,
     ) -> None:
         self.url = url
         self.site = site
@@ -155,6 +168,8 @@ class Recorder:
         self.out = out
         self.stop_event = threading.Event()
         self.mqtt_url = mqtt_url
+        self.verbose = verbose
+        self._unmarked: dict[int | None, str] = {}
         self.publisher = None
         self._handed = 0
         self.latencies: list[float] = []
@@ -199,22 +214,23 @@ class Recorder:
         self.engine = attach_alarms(ingest, self.site, self.schedule)
         if self.mqtt_url:
             self._start_mqtt(writer, ingest)
-        from firewatch.store.actions import ActionQueue
-
         try:
             self.actions: ActionQueue | None = ActionQueue(self.log_path)
-        except sqlite3.Error as exc:
+        except (ActionFileError, sqlite3.Error) as exc:
             self.actions = None
             self._say(f"operator actions unavailable ({exc}); recording goes on")
-        version = tuple(int(x) for x in sqlite3.sqlite_version.split("."))
-        note = "" if version >= SQLITE_WAL_FIX else " (older than 3.51.3, which fixed a WAL-reset bug; firewatch keeps to one writing connection)"
+        # the SQLite note is kept with the session (and shown by inspect), not printed at every start
+        note = sqlite_note(sqlite3.sqlite_version)
+        sqlite_text = f"SQLite {sqlite3.sqlite_version}" + (f" ({note})" if note else "")
         now = self.clock_fn()
-        writer.event(ingest.timeline(now), "start", f"recording {self.url}; SQLite {sqlite3.sqlite_version}{note}")
+        writer.event(ingest.timeline(now), "start", f"recording {self.url}; {sqlite_text}")
         writer.commit()
         self._say(
-            f"recording {self.url} to {self.log_path} ({'continuing the firing' if writer.continuing else 'new firing'}); "
-            f"SQLite {sqlite3.sqlite_version}{note}. Stop with Ctrl-C or SIGTERM."
+            f"recording {self.url} to {self.log_path} ({'continuing the firing' if writer.continuing else 'new firing'}). "
+            "Stop with Ctrl-C or SIGTERM."
         )
+        if self.verbose:
+            self._say(sqlite_text)
         inp = self.site.input
         reader = PortReader(
             self.url,
@@ -290,22 +306,10 @@ class Recorder:
             pub.hand(rows)
             self._handed = rows[-1][0]
         for topic, body in pub.actions():
-            source = f"mqtt {topic} ({body.get('source', 'unnamed')})"
+            action, refused = mqtt_action(topic, body)
             if not self.site.mqtt.accept_actions:
-                writer.event(now, "action", f"refused from {source}: actions over MQTT are not enabled in the site profile")
-                continue
-            kind = body.get("action")
-            alarm_id = body.get("alarm_id")
-            try:
-                if kind == "acknowledge":
-                    result = self.engine.acknowledge(int(alarm_id), now, by=source)
-                elif kind == "shelve":
-                    result = self.engine.shelve(int(alarm_id), now, str(body.get("reason", "")), now + float(body.get("minutes", 0)) * 60.0, by=source)
-                else:
-                    result = f"refused: unknown action {kind!r}"
-            except (KeyError, TypeError, ValueError) as exc:
-                result = f"refused: {exc}"
-            writer.event(now, "action", f"{kind} from {source}: {result}")
+                refused = "actions over MQTT are not enabled in the site profile"
+            apply_action(action, self.engine, writer.event, now, self.clock_fn(), refused=refused)
 
     def _apply_actions(self, writer: LogWriter, now: float) -> None:
         """Apply what viewers asked for (acknowledge, shelve, note) and log each with its source."""
@@ -317,22 +321,17 @@ class Recorder:
             self._say(f"cannot read operator actions: {exc}")
             return
         for action in pending:
+            if action.id in self._unmarked:
+                result = self._unmarked[action.id]  # applied already; only its mark failed
+            else:
+                result = apply_action(action, self.engine, writer.event, now, self.clock_fn())
             try:
-                if action.kind == "acknowledge":
-                    result = self.engine.acknowledge(action.alarm_id, now, by=action.source)
-                elif action.kind == "shelve":
-                    result = self.engine.shelve(action.alarm_id, now, action.reason, now + float(action.duration_s), by=action.source)
-                elif action.kind == "unshelve":
-                    result = self.engine.unshelve(action.alarm_id, now, by=action.source)
-                else:
-                    writer.event(now, "note", f"{action.text} ({action.source})")
-                    result = "note logged"
-            except KeyError:
-                result = f"no alarm {action.alarm_id}"
-            except (ValueError, TypeError) as exc:
-                result = f"refused: {exc}"
-            writer.event(now, "action", f"{action.kind} from {action.source}: {result}")
-            self.actions.mark_applied(action.id, result)
+                if action.id is not None:
+                    self.actions.mark_applied(action.id, result)
+                self._unmarked.pop(action.id, None)
+            except sqlite3.Error as exc:  # a busy side file must not end the recorder, nor apply twice
+                self._unmarked[action.id] = result
+                self._say(f"cannot mark operator action {action.id} applied ({exc}); retrying")
 
     def _cycle(self, writer: LogWriter, ingest: Ingest) -> None:
         lines: list[tuple[float, bytes]] = []
@@ -362,6 +361,7 @@ class Recorder:
         self._apply_actions(writer, now)
         if self.publisher is not None:
             self._mqtt_cycle(writer, now)
+        writer.heartbeat()  # lines or not: viewers tell a silent line from a stopped recorder by it
         writer.commit()
         done = self.clock_fn()
         if lines and len(self.latencies) < 2_000_000:
@@ -371,8 +371,8 @@ class Recorder:
 class AlarmLog:
     """Writes alarm transitions into the firing log (``alarm``, ``alarm_state`` and an event each)."""
 
-    def __init__(self, writer: LogWriter) -> None:
-        self.writer = writer
+    def __init__(self, writer: LogWriter | BriefWrite) -> None:
+        self.writer = writer  # the recorder's writer, or a viewer's brief write (firewatch.services.desk)
         row = writer.execute("SELECT coalesce(max(id), 0) FROM alarm").fetchone()
         self._next = int(row[0]) + 1
 

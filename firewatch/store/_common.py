@@ -21,7 +21,7 @@ from pathlib import Path
 
 __all__ = ["SCHEMA_VERSION", "LogError", "LogLocked", "schema_sql"]
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
 """The schema this firewatch writes and the newest it reads."""
 
 

@@ -1,4 +1,4 @@
--- The firing log's schema (version 1); documented in docs/log-format.md.
+-- The firing log's schema (version 2); documented in docs/log-format.md.
 CREATE TABLE meta(key TEXT PRIMARY KEY, value TEXT NOT NULL);
 CREATE TABLE firing(
     id INTEGER PRIMARY KEY CHECK (id = 1),
@@ -17,6 +17,7 @@ CREATE TABLE session(
     started_utc REAL NOT NULL,
     ended_utc REAL,
     end_reason TEXT,
+    heartbeat_utc REAL,
     port TEXT,
     pid INTEGER,
     host TEXT,

@@ -1,16 +1,27 @@
-"""What a viewer shows, read from a firing log: values at a moment, decimated trends, alarms as they stood.
+"""What a viewer shows, read from a firing log: what is true now, values at a moment, decimated trends, alarms.
 
-The same :class:`FiringView` serves a live firing (``watch``: the moment is
-the newest reading, polled) and a finished one (``replay``: the moment is a
-cursor). Every read is a short read-only query, so a live recorder is never
-held up and the WAL never grows behind a viewer. Trends are decimated in
-SQL (min and max per screen column), so a three-day firing draws at once.
+The same :class:`FiringView` serves a live firing (``watch``: :meth:`FiringView.live`,
+polled) and a finished one (``replay``: :meth:`FiringView.moment` at a cursor).
+Every read is a short read-only query, so a live recorder is never held up
+and the WAL never grows behind a viewer. Trends are decimated in SQL (min and
+max per screen column), so a three-day firing draws at once.
+
+Live, the state comes from facts, never from the last row alone: the
+recorder's heartbeat (``session.heartbeat_utc``, written every cycle whether
+lines arrive or not), whether its session ended and why, and the wall-clock
+age of the newest sample against the site's ``no_data_s``. So a dead line
+reads NO DATA, a stopped recorder RECORDER STOPPED, each value older than
+``no_data_s`` is marked stale on its own row, and alarms raised after the
+last sample (no-data above all) are listed as soon as the recorder logs them.
+These decisions are made here, so that widgets only draw them.
 """
 
 from __future__ import annotations
 
+import json
 import math
 import threading
+import time
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -19,11 +30,49 @@ import numpy as np
 
 from firewatch.settings._tomlcheck import ProfileError
 from firewatch.store.reader import LogReader
-from firewatch.settings.profile import SiteProfile, load_site
+from firewatch.settings.profile import AlarmSettings, SiteProfile, load_site
 from firewatch.settings.schedule import Schedule, load_schedule
 from firewatch.transport.records import Status
 
-__all__ = ["FiringView", "Moment", "Trend", "AlarmRow"]
+__all__ = ["FiringView", "Moment", "Trend", "AlarmRow", "ViewState", "HEARTBEAT_STALE_S",
+           "LIVE", "NO_DATA", "RECORDER_STOPPED", "FIRING_ENDED", "REPLAY"]
+
+HEARTBEAT_STALE_S = 5.0
+"""A recorder whose heartbeat is older than this is taken as stopped, seconds. It writes one every cycle
+(half a second), so this allows a slow commit or two and still says so within a few seconds."""
+
+LIVE, NO_DATA, RECORDER_STOPPED, FIRING_ENDED, REPLAY = "live", "no-data", "recorder-stopped", "firing-ended", "replay"
+_LABELS = {LIVE: "LIVE", NO_DATA: "NO DATA", RECORDER_STOPPED: "RECORDER STOPPED", FIRING_ENDED: "FIRING ENDED", REPLAY: "REPLAY"}
+
+
+@dataclass(frozen=True)
+class ViewState:
+    """What is true of a firing log now, for the header: one of LIVE, NO DATA, RECORDER STOPPED, FIRING ENDED.
+
+    ``data_age_s`` is the wall-clock time since the newest sample was received
+    (None before the first); ``since_utc`` is when the recorder stopped (its
+    session's end, or its last heartbeat) or, for NO DATA, when the data
+    stopped; ``reason`` says why the recorder stopped; ``recorder`` is
+    ``running``, ``stopped`` or ``unknown`` (a log written before heartbeats).
+    Durations are wall-clock seconds; so is ``since_utc``.
+    """
+
+    kind: str
+    data_age_s: float | None = None
+    since_utc: float | None = None
+    reason: str = ""
+    recorder: str = "running"
+    silent_s: float | None = None
+    """NO DATA: how long the line has been silent (since the newest sample, or since the recorder started)."""
+
+    @property
+    def label(self) -> str:
+        return _LABELS[self.kind]
+
+    @property
+    def fresh(self) -> bool:
+        """Live data from a running recorder: nothing to warn about."""
+        return self.kind == LIVE
 
 
 @dataclass
@@ -51,6 +100,9 @@ class Moment:
     age_s: dict[str, float] = field(default_factory=dict)
     alarms: list[AlarmRow] = field(default_factory=list)
     events: list[dict[str, Any]] = field(default_factory=list)
+    stale: frozenset[str] = frozenset()
+    """Channels whose value is older than the site's ``no_data_s``: each row says so."""
+    state: ViewState = field(default_factory=lambda: ViewState(REPLAY))
 
     def value(self, name: str) -> float:
         return self.values.get(name, math.nan)
@@ -91,8 +143,15 @@ class FiringView:
         self._ids = {name: cid for cid, name in self.reader.query("SELECT id, name FROM channel")}
         self.start_t: float | None = None
         self.end_t: float | None = None
+        self.end_received_utc: float | None = None
         self.last_sample_id = 0
+        self._latest: tuple[int, dict[str, tuple[float, float, int]]] = (-1, {})
         self.refresh_bounds()
+
+    @property
+    def no_data_s(self) -> float:
+        """The site's ``no_data_s``: older values are stale, and a line silent this long is NO DATA."""
+        return self.site.alarms.no_data_s if self.site is not None else AlarmSettings().no_data_s
 
     def _locked_query(self, sql: str, params=()):
         with self._lock:
@@ -108,60 +167,140 @@ class FiringView:
     # -- bounds -------------------------------------------------------------------------
     def refresh_bounds(self) -> bool:
         """Re-read the first and latest sample (a live log grows); True if there is news."""
-        row = self.reader.query("SELECT min(t), max(t), max(id) FROM sample")[0]
-        news = (row[2] or 0) != self.last_sample_id
-        self.start_t, self.end_t, self.last_sample_id = row[0], row[1], row[2] or 0
+        # one aggregate per query: SQLite answers a lone min() or max() from the index, several together by a scan
+        newest = self.reader.query("SELECT id, received_utc FROM sample ORDER BY id DESC LIMIT 1")
+        last_id = newest[0][0] if newest else 0
+        news = last_id != self.last_sample_id
+        if news:
+            self.last_sample_id = last_id
+            self.end_received_utc = newest[0][1] if newest else None
+            self.start_t = self.reader.query("SELECT min(t) FROM sample")[0][0]
+            self.end_t = self.reader.query("SELECT max(t) FROM sample")[0][0]
         return news
 
     def sample_at(self, t: float) -> int | None:
         row = self.reader.query("SELECT max(id) FROM sample WHERE t <= ?", (t,))[0]
         return row[0]
 
+    # -- the live state ------------------------------------------------------------------
+    def session(self) -> dict[str, Any] | None:
+        """The latest recorder session: start, end and reason, heartbeat (None before the first)."""
+        columns = {r[1] for r in self.reader.query("PRAGMA table_info(session)")}
+        beat = "heartbeat_utc" if "heartbeat_utc" in columns else "NULL"  # a log from before heartbeats
+        rows = self.reader.query(
+            f"SELECT id, started_utc, ended_utc, end_reason, {beat}, port, host, pid FROM session ORDER BY id DESC LIMIT 1"
+        )
+        if not rows:
+            return None
+        keys = ("id", "started_utc", "ended_utc", "end_reason", "heartbeat_utc", "port", "host", "pid")
+        return dict(zip(keys, rows[0]))
+
+    def state(self, now_utc: float | None = None, plan_segment: float = math.nan) -> ViewState:
+        """What is true of the log at ``now_utc`` (wall clock): LIVE, NO DATA, RECORDER STOPPED or FIRING ENDED.
+
+        Call :meth:`refresh_bounds` first (``live`` does). ``plan_segment`` is
+        the schedule's segment at the newest sample: a stopped recorder whose
+        schedule had run to its end means the firing ended.
+        """
+        now = time.time() if now_utc is None else now_utc
+        session = self.session()
+        data_age = None if self.end_received_utc is None else max(now - self.end_received_utc, 0.0)
+        if session is None:
+            return ViewState(RECORDER_STOPPED, data_age, None, "no recorder has written this log", "stopped")
+        stopped_at, reason = None, ""
+        if session["ended_utc"] is not None:
+            stopped_at, reason = session["ended_utc"], session["end_reason"] or "stopped"
+        elif session["heartbeat_utc"] is not None and now - session["heartbeat_utc"] > HEARTBEAT_STALE_S:
+            stopped_at = session["heartbeat_utc"]
+            reason = "no heartbeat since: killed, hung, or unable to write"
+        if stopped_at is not None:
+            done = self.schedule is not None and math.isfinite(plan_segment) and plan_segment >= len(self.schedule.segments)
+            return ViewState(FIRING_ENDED if done else RECORDER_STOPPED, data_age, stopped_at, reason, "stopped")
+        recorder = "running" if session["heartbeat_utc"] is not None else "unknown"
+        if data_age is None:  # no sample yet: silent since the recorder started
+            if now - session["started_utc"] > self.no_data_s:
+                return ViewState(NO_DATA, None, session["started_utc"], "", recorder, now - session["started_utc"])
+            return ViewState(LIVE, None, None, "", recorder)
+        if data_age > self.no_data_s:
+            return ViewState(NO_DATA, data_age, self.end_received_utc, "", recorder, data_age)
+        return ViewState(LIVE, data_age, None, "", recorder)
+
+    def live(self, now_utc: float | None = None, events: int = 30) -> Moment:
+        """The log as it is now: newest values with their ages, the alarms as they stand, the latest events, the state."""
+        now = time.time() if now_utc is None else now_utc
+        self.refresh_bounds()
+        data_age = 0.0 if self.end_received_utc is None else max(now - self.end_received_utc, 0.0)
+        m = Moment(self.end_t if self.end_t is not None else now)
+        sid = self.last_sample_id
+        if self._latest[0] != sid:  # one query per channel only when there is news
+            self._latest = (sid, self._rows_at(sid) if sid else {})
+        for name, (rt, value, status) in self._latest[1].items():
+            m.values[name], m.status[name] = value, status
+            # time on the firing's line since the value, plus the wall-clock silence since the newest sample
+            m.age_s[name] = m.t - rt + data_age
+        m.stale = frozenset(n for n, age in m.age_s.items() if age > self.no_data_s)
+        m.alarms = self.alarms_now()
+        m.events = self._events("", (), events)
+        m.state = self.state(now, m.value("plan.segment"))
+        return m
+
+    def _rows_at(self, sid: int) -> dict[str, tuple[float, float, int]]:
+        out = {}
+        for name, cid in self._ids.items():
+            row = self.reader.query(
+                "SELECT t, value, status FROM reading WHERE channel_id = ? AND sample_id <= ? ORDER BY sample_id DESC LIMIT 1",
+                (cid, sid),
+            )
+            if row:
+                rt, value, status = row[0]
+                out[name] = (float(rt), math.nan if value is None else float(value), int(status))
+        return out
+
+    def _events(self, where: str, params: tuple, limit: int) -> list[dict[str, Any]]:
+        return [
+            {"t": r[0], "kind": r[1], "channel": r[2], "detail": r[3]}
+            for r in self.reader.query(
+                f"SELECT t, kind, channel, detail FROM event WHERE kind NOT IN ('malformed') {where} ORDER BY t DESC, id DESC LIMIT ?",
+                (*params, limit),
+            )
+        ]
+
     # -- a moment -----------------------------------------------------------------------
     def moment(self, t: float | None = None, events: int = 30) -> Moment:
-        """Values, alarms and recent events at ``t`` (the newest reading when None)."""
+        """Values, alarms as they stood and recent events at ``t`` (the newest reading when None), for replay."""
         if t is None:
             t = self.end_t if self.end_t is not None else 0.0
         m = Moment(t)
         sid = self.sample_at(t)
         if sid is not None:
-            for name, cid in self._ids.items():
-                row = self.reader.query(
-                    "SELECT t, value, status FROM reading WHERE channel_id = ? AND sample_id <= ? ORDER BY sample_id DESC LIMIT 1",
-                    (cid, sid),
-                )
-                if row:
-                    rt, value, status = row[0]
-                    m.values[name] = math.nan if value is None else float(value)
-                    m.status[name] = int(status)
-                    m.age_s[name] = t - rt
+            for name, (rt, value, status) in self._rows_at(sid).items():
+                m.values[name], m.status[name] = value, status
+                m.age_s[name] = t - rt
+        m.stale = frozenset(n for n, age in m.age_s.items() if age > self.no_data_s)
         m.alarms = self.alarms_at(t)
-        m.events = [
-            {"t": r[0], "kind": r[1], "channel": r[2], "detail": r[3]}
-            for r in self.reader.query(
-                "SELECT t, kind, channel, detail FROM event WHERE t <= ? AND kind NOT IN ('malformed') ORDER BY t DESC, id DESC LIMIT ?",
-                (t, events),
-            )
-        ]
+        m.events = self._events("AND t <= ?", (t,), events)
         return m
 
     def alarms_at(self, t: float) -> list[AlarmRow]:
-        """Alarms not normal at ``t``, with their state then (most urgent first)."""
+        """Alarms not normal at ``t``, with their state then (most urgent first): replay."""
         rows = self.reader.query(
             "SELECT a.id, a.kind, a.channel, a.cause, a.priority, a.raised_t, a.message, a.evidence, "
             "(SELECT s.state FROM alarm_state s WHERE s.alarm_id = a.id AND s.t <= ? ORDER BY s.t DESC, s.id DESC LIMIT 1) "
             "FROM alarm a WHERE a.raised_t <= ?",
             (t, t),
         )
-        import json
+        return _urgent_first(rows)
 
-        out = [
-            AlarmRow(r[0], r[1], r[2], r[3], r[4], r[8], r[5], r[6] or "", json.loads(r[7]) if r[7] else None)
-            for r in rows
-            if r[8] and r[8] != "normal"
-        ]
-        order = {"high": 0, "medium": 1, "low": 2}
-        return sorted(out, key=lambda a: (order.get(a.priority, 3), a.state != "active-unacknowledged", a.raised_t))
+    def alarms_now(self) -> list[AlarmRow]:
+        """Alarms not normal as they stand now, whenever they were raised (most urgent first): live.
+
+        A no-data alarm is raised after the last sample; listing alarms "as they
+        stood at the newest sample" would hide exactly it.
+        """
+        rows = self.reader.query(
+            "SELECT id, kind, channel, cause, priority, raised_t, message, evidence, state FROM alarm WHERE state != 'normal'"
+        )
+        return _urgent_first(rows)
 
     def alarm_times(self) -> list[tuple[float, int, str]]:
         """Every alarm's raise time, id and kind (for marks and for jumping)."""
@@ -204,6 +343,16 @@ class FiringView:
             return np.empty(0), np.empty(0)
         t = np.linspace(t0, t1, points)
         return t, self.schedule.planned_temperature(t - self.start_t)
+
+
+def _urgent_first(rows: list[tuple]) -> list[AlarmRow]:
+    out = [
+        AlarmRow(r[0], r[1], r[2], r[3], r[4], r[8], r[5], r[6] or "", json.loads(r[7]) if r[7] else None)
+        for r in rows
+        if r[8] and r[8] != "normal"
+    ]
+    order = {"high": 0, "medium": 1, "low": 2}
+    return sorted(out, key=lambda a: (order.get(a.priority, 3), a.state != "active-unacknowledged", a.raised_t))
 
 
 def status_text(code: int) -> str:

@@ -13,6 +13,7 @@ import fcntl
 import os
 import socket
 import sqlite3
+import threading
 import time
 from collections.abc import Iterable
 from pathlib import Path
@@ -24,7 +25,65 @@ from firewatch import __version__
 from firewatch.firing.pipeline import Batch, ChannelInfo
 from firewatch.store._common import SCHEMA_VERSION, LogError, LogLocked, _connect, schema_sql
 
-__all__ = ["LogWriter"]
+__all__ = ["LogWriter", "BriefWrite", "take_lock", "release_lock", "BRIEF_HOLDER", "BRIEF_WAIT_S"]
+
+BRIEF_HOLDER = "a viewer's brief write"
+"""Written into the lock file by a viewer that holds the lock for one operator action."""
+BRIEF_WAIT_S = 2.0
+"""How long a writer waits for a viewer's brief write to finish before giving up, seconds (a brief write
+takes milliseconds; a recorder's lock is never waited for)."""
+
+
+def take_lock(path: Path, holder: str, wait_brief_s: float = BRIEF_WAIT_S, clock=time.monotonic) -> int:
+    """Take the log's writer lock ``FILE.db.lock`` (``flock``, exclusive, never blocking); return its descriptor.
+
+    One writer at a time, always: the recorder for a whole session, or a viewer
+    for one operator action. A viewer's brief write is waited for (polled for up
+    to ``wait_brief_s``); any other holder is refused at once.
+
+    Raises
+    ------
+    LogLocked
+        Another process holds the lock; the message names it.
+    """
+    fd = os.open(f"{path}.lock", os.O_RDWR | os.O_CREAT, 0o644)
+    deadline: float | None = None
+    while True:
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+            break
+        except BlockingIOError:
+            who = os.pread(fd, 200, 0).decode(errors="replace").strip() or "another process"
+            if BRIEF_HOLDER in who:
+                now = clock()
+                deadline = now + wait_brief_s if deadline is None else deadline
+                if now < deadline:
+                    threading.Event().wait(0.02)  # a brief write lasts milliseconds; flock has no timeout
+                    continue
+            os.close(fd)
+            if BRIEF_HOLDER in who:
+                raise LogLocked(f"{path} is being written by {who}; try again") from None
+            raise LogLocked(f"{path} is already being recorded by {who}; one recorder per log") from None
+    os.ftruncate(fd, 0)
+    os.pwrite(fd, f"{holder}\n".encode(), 0)
+    return fd
+
+
+def release_lock(fd: int) -> None:
+    """Give the writer lock back (the kernel does it too if the process dies)."""
+    try:
+        fcntl.flock(fd, fcntl.LOCK_UN)
+        os.close(fd)
+    except OSError:
+        pass
+
+
+def _upgrade(con: sqlite3.Connection) -> None:
+    """Bring a version 1 log to version 2 in place (adds ``session.heartbeat_utc``); inside the caller's transaction."""
+    columns = {r[1] for r in con.execute("PRAGMA table_info(session)")}
+    if "heartbeat_utc" not in columns:
+        con.execute("ALTER TABLE session ADD COLUMN heartbeat_utc REAL")
+    con.execute("UPDATE meta SET value = ? WHERE key = 'schema_version'", (str(SCHEMA_VERSION),))
 
 
 class LogWriter:
@@ -68,15 +127,7 @@ class LogWriter:
         self._clock = clock_fn
         if self.path.parent and not self.path.parent.exists():
             raise LogError(f"{self.path}: directory {self.path.parent} does not exist")
-        self._lock_fd = os.open(f"{self.path}.lock", os.O_RDWR | os.O_CREAT, 0o644)
-        try:
-            fcntl.flock(self._lock_fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
-        except BlockingIOError:
-            holder = os.pread(self._lock_fd, 64, 0).decode(errors="replace").strip() or "another process"
-            os.close(self._lock_fd)
-            raise LogLocked(f"{self.path} is already being recorded by {holder}; one recorder per log") from None
-        os.ftruncate(self._lock_fd, 0)
-        os.pwrite(self._lock_fd, f"pid {os.getpid()} on {socket.gethostname()}\n".encode(), 0)
+        self._lock_fd = take_lock(self.path, f"pid {os.getpid()} on {socket.gethostname()}")
         try:
             self._open(channels, site_name, kiln, site_text, schedule_name, schedule_text, clock, port, durable)
         except Exception:
@@ -93,6 +144,7 @@ class LogWriter:
                 self.con.executescript("BEGIN;\n" + schema_sql() + "\nCOMMIT;")
         except sqlite3.DatabaseError as exc:
             raise LogError(f"{self.path}: not a firing log ({exc})") from None
+        stored_version = SCHEMA_VERSION
         if new:
             self.con.execute("BEGIN")
             self.con.executemany(
@@ -111,6 +163,7 @@ class LogWriter:
                 raise LogError(f"{self.path}: not a firing log ({exc})") from None
             if version is None or int(version[0]) > SCHEMA_VERSION:
                 raise LogError(f"{self.path}: log schema {version[0] if version else '?'} is newer than this firewatch reads ({SCHEMA_VERSION})")
+            stored_version = int(version[0])
         self.continuing = not new
         self.last_t: float | None = None
         if self.continuing:
@@ -118,6 +171,8 @@ class LogWriter:
             self.last_t = row[0]
         self._channel_ids: dict[str, int] = {r[1]: r[0] for r in self.con.execute("SELECT id, name FROM channel")}
         self.con.execute("BEGIN")
+        if stored_version < SCHEMA_VERSION:
+            _upgrade(self.con)
         for ch in channels:
             if ch.name not in self._channel_ids:
                 cur = self.con.execute(
@@ -126,8 +181,9 @@ class LogWriter:
                 )
                 self._channel_ids[ch.name] = int(cur.lastrowid)
         cur = self.con.execute(
-            "INSERT INTO session(started_utc, port, pid, host, firewatch_version, sqlite_version, site_profile, schedule) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
-            (self._clock(), port, os.getpid(), socket.gethostname(), __version__, sqlite3.sqlite_version, site_text, schedule_text),
+            "INSERT INTO session(started_utc, heartbeat_utc, port, pid, host, firewatch_version, sqlite_version, site_profile, schedule) "
+            "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            (now := self._clock(), now, port, os.getpid(), socket.gethostname(), __version__, sqlite3.sqlite_version, site_text, schedule_text),
         )
         self.session_id = int(cur.lastrowid)
         self.con.execute("COMMIT")
@@ -204,6 +260,14 @@ class LogWriter:
         """For the alarm engine: a statement inside the writer's transaction."""
         return self.con.execute(sql, tuple(params))
 
+    def heartbeat(self) -> None:
+        """Say "still recording" (``session.heartbeat_utc``, wall clock), inside the open transaction.
+
+        The recorder calls it every cycle, lines or not, so viewers can tell a
+        silent line (fresh heartbeat, old data) from a stopped recorder (old heartbeat).
+        """
+        self.con.execute("UPDATE session SET heartbeat_utc = ? WHERE id = ?", (self._clock(), self.session_id))
+
     def commit(self) -> None:
         self.con.execute("COMMIT")
         self.con.execute("BEGIN")
@@ -220,8 +284,70 @@ class LogWriter:
             self._release()
 
     def _release(self) -> None:
+        release_lock(self._lock_fd)
+
+
+class BriefWrite:
+    """A viewer's short turn as the log's only writer: one operator action while no recorder runs.
+
+    Takes the writer lock (refused at once if a recorder holds it), opens the
+    log, and offers what the alarm log needs (``execute``, ``event``) inside one
+    transaction; leaving the ``with`` block commits (or rolls back on an error),
+    closes and releases the lock. No session is opened: a brief write is not a
+    recording.
+
+    Raises
+    ------
+    LogLocked
+        A recorder holds the log (its actions go through the side channel).
+    LogError
+        The file is not a firing log this firewatch can write.
+    """
+
+    def __init__(self, path: str | Path, clock_fn=time.time) -> None:
+        self.path = Path(path)
+        self._clock = clock_fn
+        if not self.path.is_file():
+            raise LogError(f"{self.path}: no such firing log")
+        self._lock_fd = take_lock(self.path, f"{BRIEF_HOLDER}, pid {os.getpid()} on {socket.gethostname()}")
         try:
-            fcntl.flock(self._lock_fd, fcntl.LOCK_UN)
-            os.close(self._lock_fd)
-        except OSError:
-            pass
+            self.con = _connect(self.path, read_only=False)
+            self.con.execute("PRAGMA synchronous=FULL")
+            version = self.con.execute("SELECT value FROM meta WHERE key='schema_version'").fetchone()
+            if version is None or int(version[0]) > SCHEMA_VERSION:
+                self.con.close()
+                raise LogError(f"{self.path}: not a firing log this firewatch writes (schema {version[0] if version else '?'})")
+            self.con.execute("BEGIN IMMEDIATE")
+        except sqlite3.DatabaseError as exc:
+            release_lock(self._lock_fd)
+            raise LogError(f"{self.path}: not a firing log ({exc})") from None
+        except Exception:
+            release_lock(self._lock_fd)
+            raise
+
+    def __enter__(self) -> BriefWrite:
+        return self
+
+    def __exit__(self, exc_type, exc, tb) -> None:
+        try:
+            if self.con.in_transaction:
+                self.con.execute("COMMIT" if exc_type is None else "ROLLBACK")
+            self.con.close()
+        finally:
+            release_lock(self._lock_fd)
+
+    def commit(self) -> None:
+        """Make what was written durable now, still holding the lock."""
+        self.con.execute("COMMIT")
+        self.con.execute("BEGIN IMMEDIATE")
+
+    def timeline_now(self) -> float:
+        """Now on the firing's time line: the wall clock, shifted as the newest sample was (device clock)."""
+        row = self.con.execute("SELECT t - received_utc FROM sample ORDER BY id DESC LIMIT 1").fetchone()
+        return self._clock() + (row[0] if row and row[0] is not None else 0.0)
+
+    def execute(self, sql: str, params: Iterable[Any] = ()) -> sqlite3.Cursor:
+        return self.con.execute(sql, tuple(params))
+
+    def event(self, t: float, kind: str, detail: str = "", channel: str | None = None) -> None:
+        self.con.execute("INSERT INTO event(t, kind, channel, detail) VALUES (?, ?, ?, ?)", (t, kind, channel, detail))

@@ -1,8 +1,8 @@
 """The dashboard (textual): watch a live firing, replay a finished one, and the demo.
 
 Nothing outside this package imports it; it reads the model
-(:mod:`firewatch.store.view`) and writes operator actions through
-:mod:`firewatch.store.actions`. textual is imported only here, by the commands
+(:mod:`firewatch.store.view`) and hands operator actions to
+:mod:`firewatch.services.desk`. textual is imported only here, by the commands
 that draw.
 """
 

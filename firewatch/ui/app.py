@@ -1,4 +1,4 @@
-"""The textual application: a thin shell holding the units, the action queue and the screens."""
+"""The textual application: a thin shell holding the units, the action desk and the screens."""
 
 from __future__ import annotations
 
@@ -8,7 +8,7 @@ from pathlib import Path
 from textual.app import App
 from textual.reactive import reactive
 
-from firewatch.store.actions import ActionQueue
+from firewatch.services.desk import ActionDesk
 from firewatch.store.view import FiringView
 from firewatch.ui.dashboard import DashboardScreen
 from firewatch.ui.screens import CautionsScreen
@@ -33,7 +33,7 @@ class FirewatchApp(App):
     """Units people read: C or F."""
 
     def __init__(self, log, mode: str = "live", site=None, schedule=None, speed: float = 60.0,
-                 show_cautions: bool | None = None, actions: ActionQueue | None = None, site_path=None) -> None:
+                 show_cautions: bool | None = None, desk: ActionDesk | None = None, site_path=None) -> None:
         super().__init__()
         self.site_path = site_path
         """The site profile file the tuning screen may write (None: accepting is not offered)."""
@@ -41,7 +41,8 @@ class FirewatchApp(App):
         self.mode = mode
         self.view = FiringView(self.log_path, site=site, schedule=schedule)
         self.speed = speed
-        self.actions = actions if actions is not None else (ActionQueue(self.log_path) if mode == "live" else None)
+        # live and in replay: written at once while no recorder holds the log, else handed to the recorder
+        self.desk = desk if desk is not None else ActionDesk(self.log_path, self.view.site, self.view.schedule)
         marker = cautions_marker()
         self.show_cautions = (not marker.exists()) if show_cautions is None else show_cautions
         self._marker = marker if show_cautions is None else None
@@ -60,5 +61,4 @@ class FirewatchApp(App):
 
     def on_unmount(self) -> None:
         self.view.close()
-        if self.actions is not None:
-            self.actions.close()
+        self.desk.close()

@@ -1,10 +1,14 @@
 """The dashboard screen: readings, schedule, trend, alarms and events, live or replayed.
 
 Live (``watch``): a thread worker polls the log every second in short
-read-only transactions and posts what it read; numbers refresh when the
-log has news (at most twice a second), the chart every ten seconds.
-Replay: a cursor moves through the firing at 1x to 1000x, two steps a
-second; seeking and jumping between alarms move it at once.
+read-only transactions and posts what it read, news or not, since the state
+(LIVE, NO DATA, RECORDER STOPPED, FIRING ENDED), the values' ages and the
+alarms change when nothing arrives too; the chart is redrawn every ten
+seconds. Replay: a cursor moves through the firing at 1x to 1000x, two steps
+a second; seeking and jumping between alarms move it at once. What is true
+is decided by the model (:mod:`firewatch.store.view`); this screen draws it.
+Operator actions go through :class:`firewatch.services.desk.ActionDesk`,
+live and in replay.
 """
 
 from __future__ import annotations
@@ -21,7 +25,8 @@ from textual.message import Message
 from textual.screen import Screen
 from textual.widgets import Footer, Static, TabbedContent, TabPane
 
-from firewatch.store.view import FiringView, Moment
+from firewatch.services.desk import Outcome
+from firewatch.store.view import FIRING_ENDED, LIVE, NO_DATA, FiringView, Moment
 from firewatch.ui import format as fmt
 from firewatch.ui.screens import HelpScreen, NoteScreen, ShelveScreen
 from firewatch.ui.widgets import AlarmList, ChartData, EventList, ReadingsPanel, SchedulePanel, TrendChart
@@ -43,6 +48,14 @@ class LogRead(Message):
         self.moment = moment
         self.chart = chart
         self.end_t = end_t
+
+
+class ActionsSettled(Message):
+    """What became of operator actions handed to the recorder (from the poller)."""
+
+    def __init__(self, outcomes: list[Outcome]) -> None:
+        super().__init__()
+        self.outcomes = outcomes
 
 
 class DashboardScreen(Screen):
@@ -79,9 +92,9 @@ class DashboardScreen(Screen):
         ("?", "this help, with the cautions"),
         ("u", "switch °C / °F"),
         ("↑ ↓", "choose an alarm in the list"),
-        ("a", "acknowledge the chosen alarm (live)"),
+        ("a", "acknowledge the chosen alarm (live and replay)"),
         ("s", "shelve the chosen alarm with a reason and a time (live)"),
-        ("o", "add an operator note to the firing log (live)"),
+        ("o", "add a note to the log (replay: at the cursor)"),
         ("e", "alarms / events"),
         ("t", "the tuning screen: ↑↓ emissivity, ←→ transmission, f fitted value, Enter accept"),
         ("z  x  f", "zoom the trend in, out, fit the whole firing"),
@@ -115,6 +128,10 @@ class DashboardScreen(Screen):
         self._alarm_marks: list[float] = []
         self.chart_cursor: float | None = None
         """Where the chart last drew its cursor (tests wait on it)."""
+        self.headline = ""
+        """The header's state words as last drawn (LIVE …, NO DATA for …, RECORDER STOPPED since …)."""
+        self.last_outcome: Outcome | None = None
+        """What became of the last action submitted from this screen."""
 
     # -- layout ---------------------------------------------------------------------------
     def compose(self) -> ComposeResult:
@@ -156,19 +173,27 @@ class DashboardScreen(Screen):
             try:
                 # take the request first, then the cursor: a seek that lands meanwhile wakes us again
                 want_chart, self._want_chart = self._want_chart, False
-                news = view.refresh_bounds()
-                if self.mode == "live" and not news and not want_chart:
-                    continue
-                t = self.cursor if self.mode == "replay" else view.end_t
-                if t is None:
-                    continue
-                moment = view.moment(t)
+                if self.mode == "live":
+                    # every second, news or not: a silent line or a stopped recorder is news to the operator
+                    moment = view.live()
+                    t: float | None = moment.t
+                else:
+                    view.refresh_bounds()
+                    t = self.cursor
+                    if t is None:
+                        continue
+                    moment = view.moment(t)
                 chart = None
                 now = time.monotonic()
-                if want_chart or (self.mode == "live" and now - self._last_chart >= CHART_EVERY_S):
+                if t is not None and view.end_t is not None and (
+                        want_chart or (self.mode == "live" and now - self._last_chart >= CHART_EVERY_S)):
                     chart = self._chart_data(t)
                     self._last_chart = now
                 self.post_message(LogRead(moment, chart, view.end_t))
+                desk = getattr(self.app, "desk", None)
+                settled = desk.follow_up() if desk is not None and desk.waiting else []
+                if settled:
+                    self.post_message(ActionsSettled(settled))
             except Exception as exc:  # a busy or vanished log: say so, keep polling
                 if self._stop.is_set():
                     return
@@ -233,23 +258,39 @@ class DashboardScreen(Screen):
             self.chart_cursor = message.chart.cursor
         self._title(m)
 
+    def on_actions_settled(self, message: ActionsSettled) -> None:
+        for outcome in message.outcomes:
+            self.notify(outcome.text, severity="information" if outcome.ok else "warning", timeout=8)
+        self._request()
+
+    def _where(self, m: Moment) -> str:
+        """The header's first words: the state the model decided, drawn."""
+        if self.mode == "replay":
+            return f"REPLAY {'▶' if self.playing else '❚❚'} {self.speed}x {fmt.clock(m.t)}"
+        st = m.state
+        if st.kind == LIVE:
+            return f"LIVE {fmt.clock_short(m.t, time.time())}" if m.values else "LIVE · waiting for the first readings"
+        now = time.time()
+        if st.kind == NO_DATA:
+            last = f"last {fmt.clock_short(st.since_utc, now)}" if st.data_age_s is not None else "none since the recorder started"
+            return f"NO DATA for {fmt.duration_units(st.silent_s)} ({last})"
+        since = fmt.clock_short(st.since_utc, now)
+        return f"{st.label} {'since ' if st.kind != FIRING_ENDED else ''}{since} ({st.reason})"
+
     def _title(self, m: Moment) -> None:
         view = self.view
         firing = view.firing
         unack = [a for a in m.alarms if a.state in ("active-unacknowledged", "returned-unacknowledged", "latched")]
-        where = "LIVE" if self.mode == "live" else f"REPLAY {'▶' if self.playing else '❚❚'} {self.speed}x"
         alarm_text = f"ALARMS {len(m.alarms)} ({len(unack)} unack)" if m.alarms else "no alarms"
         title = self.query_one("#title", Static)
-        title.update(f"{where} {fmt.clock(m.t)} · {alarm_text} · {firing.get('site_name') or ''} · {firing.get('kiln') or ''}")
+        title.update(f"{self._where(m)} · {alarm_text} · {firing.get('site_name') or ''} · {firing.get('kiln') or ''}")
         title.set_class(bool(unack), "alarming")
+        title.set_class(self.mode == "live" and not m.state.fresh, "degraded")
+        self.headline = self._where(m)
         start = view.start_t
         line = f"t+{fmt.duration(m.t - start) if start else '—'}"
         if self.mode == "replay" and view.end_t and start:
             line += f" of {fmt.duration(view.end_t - start)}"
-        if self.mode == "live" and view.end_t is not None:
-            age = time.time() - view.end_t if view.firing.get("clock") == "wall" else 0.0
-            if age > 30:
-                line += f" · NO NEW DATA for {fmt.duration(age)}"
         legend = "trend " + "·".join(self._legend) + f" ({'°F' if self.app.unit == 'F' else '°C'}, h)" if self._legend else ""
         self.query_one("#cursorline", Static).update(f"{line} · {legend}")
         if not self._evidence:
@@ -264,14 +305,12 @@ class DashboardScreen(Screen):
     # -- actions ------------------------------------------------------------------------
     def check_action(self, action: str, parameters: tuple) -> bool | None:
         replay_only = {"play", "faster", "slower", "seek", "seek_to", "next_alarm", "previous_alarm"}
-        live_only = {"acknowledge", "shelve", "note"}
         if action in replay_only and self.mode != "replay":
             return False
-        if action in live_only:
-            if self.mode != "live":
-                return False
-            if action != "note" and self.selected_alarm is None:
-                return None  # shown dimmed: choose an alarm first
+        if action == "shelve" and self.mode != "live":
+            return False  # a shelf hides what is still to come: a finished firing has nothing to come
+        if action in ("acknowledge", "shelve") and self.selected_alarm is None:
+            return None  # shown dimmed: choose an alarm first
         return True
 
     def action_help(self) -> None:
@@ -291,12 +330,12 @@ class DashboardScreen(Screen):
         tabs.active = "events-tab" if tabs.active == "alarms-tab" else "alarms-tab"
 
     def _submit(self, kind: str, **kw) -> None:
-        try:
-            action_id = self.app.actions.submit(kind, **kw)
-        except ValueError as exc:
-            self.notify(str(exc), severity="error")
-            return
-        self.notify(f"{kind} sent to the recorder (#{action_id})")
+        """Hand an action to the desk and say what became of it: written, sent to the recorder, or refused."""
+        outcome = self.app.desk.submit(kind, **kw)
+        self.last_outcome = outcome
+        self.notify(outcome.text, severity="information" if outcome.ok else "error", timeout=8)
+        if outcome.written:
+            self._request()
 
     def action_acknowledge(self) -> None:
         if self.selected_alarm is not None:
@@ -315,9 +354,11 @@ class DashboardScreen(Screen):
         self.app.push_screen(ShelveScreen(f"alarm #{alarm_id}"), done)
 
     def action_note(self) -> None:
+        about = self.cursor if self.mode == "replay" else None  # a note in replay is about the moment shown
+
         def done(text) -> None:
             if text:
-                self._submit("note", text=text)
+                self._submit("note", text=text, about_t=about)
 
         self.app.push_screen(NoteScreen(), done)
 

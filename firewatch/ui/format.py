@@ -11,7 +11,8 @@ import math
 
 from firewatch.settings.units import delta_from_celsius, from_celsius, symbol
 
-__all__ = ["temp", "delta", "rate", "duration", "clock", "STATE_WORDS", "PRIORITY_WORDS", "delta_from_celsius"]
+__all__ = ["temp", "delta", "rate", "duration", "duration_units", "clock", "clock_short", "STATE_WORDS", "PRIORITY_WORDS",
+           "delta_from_celsius"]
 
 STATE_WORDS = {
     "active-unacknowledged": "ACTIVE UNACK",
@@ -57,3 +58,28 @@ def clock(t: float | None) -> str:
     if t is None or not math.isfinite(t):
         return "—"
     return dt.datetime.fromtimestamp(t, dt.timezone.utc).strftime("%Y-%m-%d %H:%M:%SZ")
+
+
+def duration_units(seconds: float | None) -> str:
+    """A duration with its units, never read as a clock: ``45 s``, ``12 min 46 s``, ``2 h 49 min``."""
+    if seconds is None or not math.isfinite(seconds):
+        return "—"
+    s = int(round(abs(seconds)))
+    sign = "-" if seconds < 0 and s else ""
+    h, rem = divmod(s, 3600)
+    m, sec = divmod(rem, 60)
+    if h:
+        return f"{sign}{h} h {m} min"
+    if m:
+        return f"{sign}{m} min {sec} s"
+    return f"{sign}{sec} s"
+
+
+def clock_short(t: float | None, now: float | None = None) -> str:
+    """A clock time: ``14:02:11Z``, with the date when it is not within the last day."""
+    if t is None or not math.isfinite(t):
+        return "—"
+    full = clock(t)
+    if now is not None and abs(now - t) > 20 * 3600:
+        return full
+    return full[11:]

@@ -75,14 +75,13 @@ class ReadingsPanel(Static):
                     text = Text("Δ —")
                 table.add_row("", "", text)
         for cj in self.site.cold_junctions:
-            table.add_row(cj, f"{fmt.temp(m.value(cj), u)} {symbol(u)}", "cold junction")
+            table.add_row(cj, f"{fmt.temp(m.value(cj), u)} {symbol(u)}", self._stale(m, cj, "cold junction"))
         return table
 
     @staticmethod
     def _stale(m: Moment, name: str, note: str) -> Text:
-        age = m.age_s.get(name, math.inf)
-        if age > 30:
-            return Text(f"STALE {fmt.duration(age)}", style=ABNORMAL)
+        if name in m.stale:  # the model decided (older than the site's no_data_s); the row says so
+            return Text(f"STALE {fmt.duration_units(m.age_s.get(name))}", style=ABNORMAL)
         return Text(note)
 
 
@@ -227,6 +226,11 @@ class AlarmList(DataTable):
         self._announce()
 
     @property
+    def alarms(self) -> list:
+        """The alarms listed, in their order on the screen."""
+        return list(getattr(self, "_rows", []))
+
+    @property
     def selected_id(self) -> int | None:
         rows = getattr(self, "_rows", [])
         if not rows or self.cursor_row is None or not 0 <= self.cursor_row < len(rows):
@@ -254,11 +258,17 @@ class EventList(DataTable):
         self.add_columns("time", "event", "detail")
         self._key: list = []
 
+    @property
+    def events(self) -> list:
+        """The events listed, newest first."""
+        return list(getattr(self, "_events", []))
+
     def show(self, events) -> None:
         key = [(e["t"], e["kind"]) for e in events]
         if key == self._key:
             return
         self._key = key
+        self._events = list(events)
         self.clear()
         for e in events:
             self.add_row(fmt.clock(e["t"])[11:], e["kind"], (e["detail"] or "")[:160])
