@@ -88,7 +88,9 @@ def run(args: argparse.Namespace) -> int:
         else:
             from firewatch.report.chart import chart_figure
 
-            chart_figure(record.chart, clock, Units(args.units)).savefig(out, dpi=200)
+            title = " · ".join(x for x in (record.site_name, record.kiln) if x) + "\n" + " · ".join(
+                x for x in (record.schedule_name, f"from {clock.full(record.start_t)}" if record.start_t else "", record.log_name) if x)
+            chart_figure(record.chart, clock, Units(args.units), title=title).savefig(out, dpi=200)
             what = "chart"
     except OSError as exc:
         raise UsageError(f"-o: cannot write {out}: {exc.strerror or exc}") from None

@@ -74,7 +74,7 @@ __all__ = [
     "Trace",
     "build_record",
     "readings_digest",
-    "decimate",
+    "envelope",
     "time_above",
     "passages",
 ]
@@ -125,11 +125,13 @@ def readings_digest(channels: Iterable[tuple[str, np.ndarray, np.ndarray, np.nda
         t = np.asarray(t, dtype=float) + 0.0  # + 0.0 turns -0.0 into 0.0
         v = np.asarray(value, dtype=float) + 0.0
         s = np.asarray(status, dtype=np.int64)
-        order = np.lexsort((v, s, t))  # NaN sorts last
+        if t.size > 1 and not bool(np.all(t[1:] > t[:-1])):  # already in order as a log keeps them, usually
+            order = np.lexsort((v, s, t))  # NaN sorts last
+            t, v, s = t[order], v[order], s[order]
         rows = np.empty(t.size, dtype=record)
-        rows["t"] = t[order]
-        rows["v"] = np.where(np.isnan(v[order]), np.nan, v[order])  # one NaN bit pattern
-        rows["s"] = s[order]
+        rows["t"] = t
+        rows["v"] = np.where(np.isnan(v), np.nan, v)  # one NaN bit pattern
+        rows["s"] = s
         h.update(name.encode("utf-8") + b"\n" + int(t.size).to_bytes(8, "big"))
         h.update(rows.tobytes())
     return h.hexdigest()
@@ -143,7 +145,9 @@ class FiringInputs:
     ``values`` holds each channel aligned with ``times`` (NaN where a sample
     has no value for it): at least the reference thermocouple, and where the
     log has them ``plan.segment``, ``plan.deviation`` and each pyrometer's
-    ``.reconciled``, ``.divergence`` and ``.allowed``.
+    ``.divergence`` and ``.allowed``. ``envelopes`` holds, for the chart, the
+    per-minute minimum and maximum of the reference and of each pyrometer's
+    ``.reconciled``: (minute centre times, minima, maxima).
     """
 
     site: SiteProfile | None
@@ -164,6 +168,7 @@ class FiringInputs:
     alarms: Sequence[Mapping[str, Any]] = ()
     notes: Sequence[tuple[float, str]] = ()
     samples: dict[str, int] = field(default_factory=dict)
+    envelopes: dict[str, tuple[np.ndarray, np.ndarray, np.ndarray]] = field(default_factory=dict)
     digest: str = ""
     log_name: str = ""
     firewatch_version: str = ""
@@ -549,13 +554,15 @@ def _crossing(t: np.ndarray, v: np.ndarray, i: int, level: float) -> float:
     return float(t[i - 1] + (level - a) / (b - a) * (t[i] - t[i - 1]))
 
 
-def passages(t: np.ndarray, v: np.ndarray, cr: CriticalRange, rate_c_per_h: np.ndarray | None = None,
+def passages(t: np.ndarray, v: np.ndarray, cr: CriticalRange, rate_window_s: float = 300.0,
              max_step_s: float = MAX_STEP_S) -> list[Passage]:
     """Passages of ``v`` through ``cr`` in the directions it applies to.
 
     A heating passage runs from the last upward crossing of ``low`` to the
     next upward crossing of ``high``; a cooling one from the last downward
-    crossing of ``high`` to the next downward crossing of ``low``.
+    crossing of ``high`` to the next downward crossing of ``low``. The fastest
+    rate is the largest trailing least-squares slope over ``rate_window_s``
+    at the readings inside the passage.
 
     Examples
     --------
@@ -569,7 +576,6 @@ def passages(t: np.ndarray, v: np.ndarray, cr: CriticalRange, rate_c_per_h: np.n
     if idx.size < 2:
         return []
     tt, vv = t[idx], v[idx]
-    rr = None if rate_c_per_h is None else rate_c_per_h[idx]
     zone = (vv >= cr.low_c).astype(np.int8) + (vv >= cr.high_c).astype(np.int8)
     changes = np.flatnonzero(np.diff(zone)) + 1
     out: list[Passage] = []
@@ -596,54 +602,54 @@ def passages(t: np.ndarray, v: np.ndarray, cr: CriticalRange, rate_c_per_h: np.n
             continue
         span = max(leave - enter, 1e-9)
         mean = (cr.high_c - cr.low_c) / span * 3600.0
-        inside = (tt >= enter) & (tt <= leave)
-        fastest = math.nan
-        if rr is not None and inside.any():
-            sel = np.abs(rr[inside])
-            if np.isfinite(sel).any():
-                fastest = float(np.nanmax(sel))
+        # the trailing slope needs the window before the entry, and only that
+        a = int(np.searchsorted(tt, enter - rate_window_s, side="left"))
+        b = int(np.searchsorted(tt, leave, side="right"))
+        slope = TrailingSlope(rate_window_s).update(tt[a:b], vv[a:b]) * 3600.0
+        inside = slope[tt[a:b] >= enter]
+        fastest = float(np.nanmax(np.abs(inside))) if np.isfinite(inside).any() else math.nan
         # readings missing (a gap, or no value) between the entry and the exit
         gap = bool(np.any(np.diff(tt[first - 1:k + 1]) > max_step_s)) or bool(np.any(np.diff(idx[first - 1:k + 1]) > 1))
         out.append(Passage(cr, direction, enter, leave, mean, fastest, gap))
     return out
 
 
-def decimate(t: np.ndarray, v: np.ndarray, buckets: int = CHART_BUCKETS, max_step_s: float = MAX_STEP_S,
+def envelope(t: np.ndarray, lo: np.ndarray, hi: np.ndarray, buckets: int = CHART_BUCKETS, step_s: float = 60.0,
              span: tuple[float, float] | None = None) -> tuple[np.ndarray, np.ndarray]:
-    """At most two points per time bucket (its min and max, in time order), with NaN breaking the line at gaps.
+    """A chart line through per-interval minima and maxima (the log's per-minute table), at most two points a bucket.
 
-    A gap (readings further apart than ``max_step_s``) or a run without values
-    starts a new piece; pieces are never joined by a line.
+    Each bucket gives its minimum and maximum, the minimum first where the
+    line rises and last where it falls, so a ramp draws as a clean line
+    and a spike keeps its height. A missing interval (a gap longer than
+    ``step_s``) breaks the line with NaN.
 
     Examples
     --------
-    >>> tt, vv = decimate(np.arange(10.0), np.array([0, 1, 2, 0, 1, 2, 0, 1, 2, 0.0]), buckets=2)
+    >>> tt, vv = envelope(np.array([30.0, 90.0, 150.0, 330.0]), np.array([0.0, 1.0, 2.0, 5.0]), np.array([1.0, 2.0, 3.0, 6.0]), buckets=10)
     >>> vv.tolist()
-    [0.0, 2.0, 2.0, 0.0]
+    [0.0, 1.0, 1.0, 2.0, 2.0, 3.0, nan, 5.0, 6.0]
     """
-    idx = np.flatnonzero(np.isfinite(v))
-    if idx.size == 0:
+    ok = np.isfinite(lo) & np.isfinite(hi)
+    t, lo, hi = t[ok], lo[ok], hi[ok]
+    if t.size == 0:
         return np.empty(0), np.empty(0)
-    tt, vv = t[idx], v[idx]
-    brk = np.concatenate([[False], (np.diff(tt) > max_step_s) | (np.diff(idx) > 1)])
-    t0, t1 = span if span is not None else (float(tt[0]), float(tt[-1]))
-    width = max((t1 - t0) / buckets, 1e-9)
-    b = np.clip(((tt - t0) / width).astype(np.int64), 0, buckets - 1)
+    t0, t1 = span if span is not None else (float(t[0]), float(t[-1]))
+    width = max((t1 - t0) / buckets, step_s)
+    b = np.floor((t - t0) / width).astype(np.int64)
+    brk = np.concatenate([[False], np.diff(t) > 1.5 * step_s])
     new = np.concatenate([[True], (b[1:] != b[:-1]) | brk[1:]])
     starts = np.flatnonzero(new)
-    gid = np.cumsum(new) - 1
-    n = tt.size
-    at = np.arange(n)
-    lo_v = np.minimum.reduceat(vv, starts)
-    hi_v = np.maximum.reduceat(vv, starts)
-    # the first index of each group's min and max, to keep them in time order
-    lo_i = np.minimum.reduceat(np.where(vv == lo_v[gid], at, n), starts)
-    hi_i = np.minimum.reduceat(np.where(vv == hi_v[gid], at, n), starts)
-    a_i, b_i = np.minimum(lo_i, hi_i), np.maximum(lo_i, hi_i)
+    ends = np.concatenate([starts[1:], [t.size]]) - 1
+    lo_v = np.minimum.reduceat(lo, starts)
+    hi_v = np.maximum.reduceat(hi, starts)
+    mid = 0.5 * (lo_v + hi_v)
+    rising = np.concatenate([[True], mid[1:] >= mid[:-1]])
+    first = np.where(rising, lo_v, hi_v)
+    second = np.where(rising, hi_v, lo_v)
     gap_after = np.concatenate([brk[starts[1:]], [False]])
-    out_t = np.stack([tt[a_i], tt[b_i], tt[b_i]], axis=1)
-    out_v = np.stack([vv[a_i], vv[b_i], np.full(starts.size, np.nan)], axis=1)
-    keep = np.stack([np.ones(starts.size, dtype=bool), a_i != b_i, gap_after], axis=1)
+    out_t = np.stack([t[starts] - 0.5 * step_s, t[ends] + 0.5 * step_s, t[ends] + 0.5 * step_s], axis=1)
+    out_v = np.stack([first, second, np.full(starts.size, np.nan)], axis=1)
+    keep = np.stack([np.ones(starts.size, dtype=bool), np.ones(starts.size, dtype=bool), gap_after], axis=1)
     return out_t[keep], out_v[keep]
 
 
@@ -721,9 +727,8 @@ def build_record(inputs: FiringInputs, hold_band_k: float = HOLD_BAND_K, max_ste
             finished = np.flatnonzero(np.isfinite(seg) & (seg >= n))
             done_t = float(times[finished[0]]) if finished.size else None
         window = site.alarms.rate_window_s if site is not None else 300.0
-        rate = TrailingSlope(window).update(times, ref) * 3600.0 if times.size else nan
         for cr in schedule.critical:
-            found = passages(times, ref, cr, rate, max_step_s)
+            found = passages(times, ref, cr, window, max_step_s)
             passages_ += found
             if not found:
                 not_passed.append(cr)
@@ -773,15 +778,15 @@ def build_record(inputs: FiringInputs, hold_band_k: float = HOLD_BAND_K, max_ste
 
     traces: list[Trace] = []
     span = (inputs.start_t, inputs.end_t) if inputs.start_t is not None and inputs.end_t is not None and inputs.end_t > inputs.start_t else None
-    if reference:
+    if reference and reference in inputs.envelopes:
         tc_type = site.thermocouple(reference).type if site is not None and site.thermocouple(reference) else ""
         traces.append(Trace(reference, f"{reference} reference thermocouple" + (f", type {tc_type}" if tc_type else ""),
-                            *decimate(times, ref, chart_buckets, max_step_s, span)))
+                            *envelope(*inputs.envelopes[reference], chart_buckets, span=span)))
     for py in site.pyrometers if site is not None else ():
-        rec = values.get(f"{py.name}.reconciled")
+        rec = inputs.envelopes.get(f"{py.name}.reconciled")
         if rec is not None:
             kind = "ratio" if py.kind == "ratio" else "single-band"
-            traces.append(Trace(py.name, f"{py.name} {kind} pyrometer, reconciled", *decimate(times, rec, chart_buckets, max_step_s, span)))
+            traces.append(Trace(py.name, f"{py.name} {kind} pyrometer, reconciled", *envelope(*rec, chart_buckets, span=span)))
     plan_t, plan_c = np.empty(0), np.empty(0)
     if schedule is not None and inputs.start_t is not None:
         bt, bc, _ = schedule.breakpoints()

@@ -91,13 +91,19 @@ def axes_rect(width_mm: float, height_mm: float, left_mm: float = 0.0, bottom_mm
     """The plot area inside a chart box, in figure fractions: room left for the temperature axis,
     above for the hours axis, below for the clock axis and the legend."""
     pw, ph = page_w_mm or width_mm, page_h_mm or height_mm
-    left, right, top, bottom = 13.0, 3.0, 11.0, 26.0
+    left, right, top, bottom = 15.0, 3.0, 11.0, 25.0
     return ((left_mm + left) / pw, (bottom_mm + bottom) / ph, (width_mm - left - right) / pw, (height_mm - top - bottom) / ph)
 
 
-def chart_figure(chart: ChartData, clock: Clock, units: Units, width_mm: float = 180.0, height_mm: float = 100.0) -> Figure:
-    """The chart alone on its own figure (for ``.png`` output)."""
-    fig = Figure(figsize=(width_mm / 25.4, height_mm / 25.4))
-    ax = fig.add_axes(axes_rect(width_mm, height_mm))
+def chart_figure(chart: ChartData, clock: Clock, units: Units, width_mm: float = 180.0, height_mm: float = 100.0,
+                 title: str = "") -> Figure:
+    """The chart alone on its own figure (``.png`` output, the HTML page); ``title`` (lines) names the firing above it."""
+    lines = [x for x in title.split("\n") if x]
+    top = 4.5 * len(lines) + (1.5 if lines else 0.0)
+    fig = Figure(figsize=(width_mm / 25.4, (height_mm + top) / 25.4))
+    for i, line in enumerate(lines):
+        fig.text(3.0 / width_mm, 1.0 - (1.5 + 4.5 * i) / (height_mm + top), line, fontsize=8.5 if i == 0 else 7.5,
+                 fontweight="bold" if i == 0 else "normal", va="top", ha="left", parse_math=False)
+    ax = fig.add_axes(axes_rect(width_mm, height_mm, page_h_mm=height_mm + top))
     draw_chart(ax, chart, clock, units, font_pt=8.0)
     return fig
