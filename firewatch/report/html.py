@@ -11,6 +11,7 @@ from pathlib import Path
 
 from firewatch.report.chart import chart_figure
 from firewatch.report.document import ChartBlock, Document, Fields, Table
+from firewatch.report.text import unbreakable
 
 __all__ = ["render_html", "write_html"]
 
@@ -40,6 +41,11 @@ def _e(text: str) -> str:
     return html.escape(text or "", quote=True)
 
 
+def _cell(text: str) -> str:
+    """Escaped, with a number kept on one line with its unit and a date with its time (as in the PDF)."""
+    return " ".join(_e(piece).replace(" ", "&nbsp;") for piece in unbreakable(text or ""))
+
+
 def _chart_svg(doc: Document) -> str:
     fig = chart_figure(doc.record.chart, doc.clock, doc.units, width_mm=180.0, height_mm=100.0)
     buf = io.StringIO()
@@ -62,7 +68,7 @@ def _table(t: Table) -> str:
         groups = t.groups or [False] * len(t.rows)
         for row, mark, group in zip(t.rows, marks, groups):
             cls = " ".join(c for c, on in (("mark", mark), ("group", group)) if on)
-            cells = "".join(f'<td class="{a}">{_e(text)}</td>' for text, (_, _, a) in zip(row, t.columns))
+            cells = "".join(f'<td class="{a}">{_cell(text)}</td>' for text, (_, _, a) in zip(row, t.columns))
             out.append(f'<tr class="{cls}">{cells}</tr>' if cls else f"<tr>{cells}</tr>")
         out.append("</tbody></table>")
     if t.note:
@@ -71,7 +77,7 @@ def _table(t: Table) -> str:
 
 
 def _fields(f: Fields) -> str:
-    return "<dl>" + "".join(f"<dt>{_e(k)}</dt><dd>{_e(v)}</dd>" for k, v in f.items) + "</dl>"
+    return "<dl>" + "".join(f"<dt>{_e(k)}</dt><dd>{_cell(v)}</dd>" for k, v in f.items) + "</dl>"
 
 
 def render_html(doc: Document, paper: str = "a4") -> str:

@@ -21,6 +21,7 @@ from matplotlib.font_manager import FontProperties
 
 from firewatch.report.chart import axes_rect, draw_chart
 from firewatch.report.document import ChartBlock, Document, Fields, Table
+from firewatch.report.text import unbreakable
 
 __all__ = ["PAPER", "write_pdf"]
 
@@ -67,12 +68,15 @@ class _Measure:
         return em * size * PT_MM * self.SAFETY
 
     def wrap(self, text: str, width_mm: float, size: float, bold: bool = False, family: str | None = None) -> list[str]:
-        """Greedy word wrap; a word longer than the line is cut."""
+        """Greedy wrap between the pieces :func:`unbreakable` allows; a piece longer than the line is cut."""
         space = self.width(" ", size, bold, family)
         lines: list[str] = []
         for para in (text or "").split("\n"):
             line, line_w = "", 0.0
-            for word in para.split(" "):
+            words: list[str] = []
+            for piece in unbreakable(para):  # a piece too long for any line may still break at its spaces
+                words += [piece] if self.width(piece, size, bold, family) <= width_mm else piece.split(" ")
+            for word in words:
                 w = self.width(word, size, bold, family)
                 if not line or line_w + space + w > width_mm:
                     if line:

@@ -17,7 +17,36 @@ from pathlib import Path
 
 from firewatch.settings.units import delta_from_celsius, from_celsius, symbol
 
-__all__ = ["duration", "Clock", "local_zone", "Units"]
+__all__ = ["duration", "Clock", "local_zone", "Units", "unbreakable"]
+
+_MONTHS = {"Jan", "Feb", "Mar", "Apr", "May", "Jun", "Jul", "Aug", "Sep", "Oct", "Nov", "Dec"}
+_UNITS = {"h", "min", "s", "K", "°C", "°F", "°C/h", "°F/h", "K/h"} | _MONTHS
+
+
+def _glued(prev: str, word: str) -> bool:
+    """Whether ``word`` must stay on the same line as the word before it."""
+    if not prev or not word:
+        return False
+    if prev[-1].isdigit() and word.rstrip(",;.)") in _UNITS:
+        return True  # 760 °C, 2 h, 14 Mar
+    return word[0].isdigit() and (prev in _MONTHS or prev in ("h", "min"))  # Mar 08:04:39, 1 h 27 min
+
+
+def unbreakable(text: str) -> list[str]:
+    """``text`` cut into the pieces a line may break between: a number stays with its unit, a date with its time.
+
+    Examples
+    --------
+    >>> unbreakable("outside 1 h 27 min of 2 h, largest −30.3 K at 14 Mar 08:04:39; ok")
+    ['outside', '1 h 27 min', 'of', '2 h,', 'largest', '−30.3 K', 'at', '14 Mar 08:04:39;', 'ok']
+    """
+    pieces: list[str] = []
+    for word in text.split(" "):
+        if pieces and _glued(pieces[-1].rsplit(" ", 1)[-1], word):
+            pieces[-1] += " " + word
+        else:
+            pieces.append(word)
+    return pieces
 
 
 def duration(seconds: float | None, signed: bool = False) -> str:
