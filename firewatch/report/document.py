@@ -31,6 +31,13 @@ STATE_WORDS = {
     "shelved": "shelved",
     "normal": "normal",
 }
+_END_WORDS = {
+    "active-unacknowledged": "still active and never acknowledged when the record ends",
+    "active-acknowledged": "still active when the record ends",
+    "returned-unacknowledged": "cleared, but never acknowledged",
+    "latched": "latched: never acknowledged",
+    "shelved": "still shelved when the record ends",
+}
 PRIORITY_WORDS = {"high": "HIGH", "medium": "MEDIUM", "low": "LOW"}
 
 
@@ -246,6 +253,8 @@ def build_document(record: FiringRecord, clock: Clock, units: Units, now: float 
                 state = "acknowledged" + (", back to normal" if s.state == "normal" else ", still active")
                 detail = f"by {s.by}"
             alarms.add(["", clock.stamp(s.t), state, detail])
+        if a.state != "normal":
+            alarms.add(["", "at the end", STATE_WORDS.get(a.state, a.state), _END_WORDS.get(a.state, "not back to normal")], mark=True)
     blocks.append(alarms)
     notes = Table("Operator notes", [("time", 0.16, "l"), ("note", 0.56, "l"), ("by", 0.28, "l")], empty="none")
     for n in r.notes:

@@ -189,15 +189,19 @@ def _table(p: _Pages, t: Table) -> None:
             p.rule(p.y - 0.5, width=0.5, colour="#555555")
             p.y += 0.6
 
+    note = p.measure.wrap(t.note, p.content_width, BODY_PT - 0.7) if t.note else []
+    note_h = len(note) * LINE * 0.92 + (0.4 if note else 0.0)
     p.room(LINE * 4.5)
     heading(False)
     if not t.rows:
+        p.room(LINE + note_h)
         p.text(MARGIN, p.y, t.empty, colour="#333333")
         p.y += LINE
-    for row, mark, group in zip(t.rows, t.marks or [False] * len(t.rows), t.groups or [False] * len(t.rows)):
+    last = len(t.rows) - 1
+    for i, (row, mark, group) in enumerate(zip(t.rows, t.marks or [False] * len(t.rows), t.groups or [False] * len(t.rows))):
         cells = [p.measure.wrap(text, w - 2 * pad, BODY_PT, bold=mark) for text, w in zip(row, widths)]
         height = max(len(c) for c in cells) * LINE + 0.5
-        if p.y + height > p.bottom:
+        if p.y + height + (note_h if i == last else 0.0) > p.bottom:  # the note stays with the table's last row
             p.new_page()
             heading(True)
         if group and p.y > MARGIN + 12.0:
@@ -206,11 +210,9 @@ def _table(p: _Pages, t: Table) -> None:
             for k, line in enumerate(lines):
                 p.text(x + (w - pad if align == "r" else 0.0), p.y + k * LINE, line, bold=mark, ha="right" if align == "r" else "left")
         p.y += height
-    if t.note:
-        for line in p.measure.wrap(t.note, p.content_width, BODY_PT - 0.7):
-            p.room(LINE)
-            p.text(MARGIN, p.y + 0.4, line, size=BODY_PT - 0.7, colour="#555555")
-            p.y += LINE * 0.92
+    for line in note:
+        p.text(MARGIN, p.y + 0.4, line, size=BODY_PT - 0.7, colour="#555555")
+        p.y += LINE * 0.92
     p.y += 3.5
 
 
