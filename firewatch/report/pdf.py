@@ -184,7 +184,7 @@ def _table(p: _Pages, t: Table) -> None:
         p.y += LINE * 1.55
         if any(h for h, _, _ in t.columns) and t.rows:
             for (h, _, align), x, w in zip(t.columns, xs, widths):
-                p.text(x + (w - pad if align == "r" else 0.0), p.y, h, colour="#555555", ha="right" if align == "r" else "left")
+                p.text(x + (w - 2 * pad if align == "r" else 0.0), p.y, h, colour="#555555", ha="right" if align == "r" else "left")
             p.y += LINE
             p.rule(p.y - 0.5, width=0.5, colour="#555555")
             p.y += 0.6
@@ -208,7 +208,7 @@ def _table(p: _Pages, t: Table) -> None:
             p.rule(p.y - 0.4, width=0.3, colour="#bbbbbb")
         for lines, x, w, (_, _, align) in zip(cells, xs, widths, t.columns):
             for k, line in enumerate(lines):
-                p.text(x + (w - pad if align == "r" else 0.0), p.y + k * LINE, line, bold=mark, ha="right" if align == "r" else "left")
+                p.text(x + (w - 2 * pad if align == "r" else 0.0), p.y + k * LINE, line, bold=mark, ha="right" if align == "r" else "left")
         p.y += height
     for line in note:
         p.text(MARGIN, p.y + 0.4, line, size=BODY_PT - 0.7, colour="#555555")

@@ -27,7 +27,7 @@ def _glued(prev: str, word: str) -> bool:
     """Whether ``word`` must stay on the same line as the word before it."""
     if not prev or not word:
         return False
-    if prev[-1].isdigit() and word.rstrip(",;.)") in _UNITS:
+    if prev[-1].isdigit() and word.rstrip(",;:.)") in _UNITS:
         return True  # 760 °C, 2 h, 14 Mar
     return word[0].isdigit() and (prev in _MONTHS or prev in ("h", "min"))  # Mar 08:04:39, 1 h 27 min
 
