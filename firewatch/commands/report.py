@@ -9,7 +9,7 @@ from pathlib import Path
 from firewatch.cli import UsageError
 from firewatch.commands import _args
 
-__all__ = ["add_parser", "run", "FORMATS"]
+__all__ = ["FORMATS", "add_parser", "run"]
 
 FORMATS = {".pdf": "pdf", ".html": "html", ".htm": "html", ".png": "png"}
 
@@ -59,7 +59,7 @@ def run(args: argparse.Namespace) -> int:
         except ProfileError as exc:
             raise UsageError(f"--site: {exc.problems[0]}") from None
     try:
-        import matplotlib  # noqa: F401  (the [report] extra)
+        import matplotlib
     except ImportError:
         sys.stderr.write("firewatch report: needs matplotlib: pip install 'firewatch-kiln[report]'\n")
         return 1

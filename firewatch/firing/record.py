@@ -55,28 +55,28 @@ from firewatch.settings.profile import SiteProfile
 from firewatch.settings.schedule import CriticalRange, Schedule
 
 __all__ = [
-    "MEASURED_KINDS",
     "DIGEST_NAME",
-    "FiringInputs",
-    "FiringRecord",
-    "Peak",
-    "Hold",
-    "SegmentRun",
-    "Passage",
+    "MEASURED_KINDS",
+    "AlarmRecord",
+    "AlarmStep",
+    "ChartData",
     "Deviation",
     "DivergenceStats",
+    "FiringInputs",
+    "FiringRecord",
     "Gap",
-    "Session",
-    "AlarmStep",
-    "AlarmRecord",
+    "Hold",
     "Note",
-    "ChartData",
+    "Passage",
+    "Peak",
+    "SegmentRun",
+    "Session",
     "Trace",
     "build_record",
-    "readings_digest",
     "envelope",
-    "time_above",
     "passages",
+    "readings_digest",
+    "time_above",
 ]
 
 MEASURED_KINDS = ("thermocouple", "cold_junction", "pyrometer")
@@ -659,7 +659,7 @@ def _parse_step(t: float, state: str, detail: str) -> AlarmStep:
     m = re.match(r"^acknowledged by (?P<by>.+?)(?:; cleared)?$", detail)
     if m:
         return AlarmStep(t, state, detail, by=m["by"])
-    m = re.match(r"^shelved by (?P<by>.+?) until (?P<until>-?[0-9.]+): ?(?P<reason>.*)$", detail, re.S)
+    m = re.match(r"^shelved by (?P<by>.+?) until (?P<until>-?[0-9.]+): ?(?P<reason>.*)$", detail, re.DOTALL)
     if m:
         return AlarmStep(t, state, detail, by=m["by"], reason=m["reason"], until_t=float(m["until"]))
     m = re.match(r"^unshelved by (?P<by>.+?);", detail)

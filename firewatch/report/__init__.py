@@ -4,6 +4,6 @@
 site's zone) and number formats; ``document`` turns a record into blocks of
 text and tables; ``chart`` draws the firing with matplotlib; ``pdf`` and
 ``html`` lay the blocks out. Nothing here computes a figure of the firing:
-the record has them all. matplotlib is imported only by ``chart`` and
-``pdf``, which only ``firewatch report`` loads.
+the record has them all. matplotlib is imported by ``chart``, ``pdf`` and
+``html`` (for its chart), which only ``firewatch report`` loads.
 """

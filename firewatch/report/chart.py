@@ -15,7 +15,7 @@ from firewatch.firing.record import ChartData
 from firewatch.report.text import Clock, Units
 from firewatch.settings.units import from_celsius
 
-__all__ = ["draw_chart", "chart_figure", "axes_rect"]
+__all__ = ["axes_rect", "chart_figure", "draw_chart"]
 
 _STYLES = (
     {"color": "#1a1a1a", "linestyle": "-", "linewidth": 1.3},
@@ -34,7 +34,9 @@ def _days(t: np.ndarray | float) -> np.ndarray:
 
 def draw_chart(ax: Axes, chart: ChartData, clock: Clock, units: Units, font_pt: float = 7.0) -> None:
     """Draw the firing into ``ax`` (an empty Axes)."""
-    conv = lambda c: from_celsius(np.asarray(c, dtype=float), units.unit)  # noqa: E731
+    def conv(c: np.ndarray | float) -> np.ndarray:
+        return from_celsius(np.asarray(c, dtype=float), units.unit)
+
     ax.tick_params(labelsize=font_pt)
     if chart.start_t is None or chart.end_t is None:
         ax.text(0.5, 0.5, "no readings in this log", transform=ax.transAxes, ha="center", va="center", fontsize=font_pt + 2)

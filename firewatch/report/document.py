@@ -15,13 +15,13 @@ from firewatch import __version__
 from firewatch.firing.record import DIGEST_NAME, FiringRecord
 from firewatch.report.text import Clock, Units, duration
 
-__all__ = ["Fields", "Table", "ChartBlock", "Document", "build_document", "CAUTIONS", "STATE_WORDS"]
+__all__ = ["CAUTIONS", "STATE_WORDS", "ChartBlock", "Document", "Fields", "Table", "build_document"]
 
 CAUTIONS = (
-    "firewatch is a monitoring aid, never a safety device: the kiln's own controller and an independent "
-    "over-temperature cut-out stay in charge, and this record does not replace them.",
-    "Follow the site's safety rules, the kiln maker's instructions and local codes; where the law requires "
-    "licensed practice, defer to it.",
+    ("firewatch is a monitoring aid, never a safety device: the kiln's own controller and an independent "
+     "over-temperature cut-out stay in charge, and this record does not replace them."),
+    ("Follow the site's safety rules, the kiln maker's instructions and local codes; where the law requires "
+     "licensed practice, defer to it."),
 )
 STATE_WORDS = {
     "active-unacknowledged": "raised, unacknowledged",

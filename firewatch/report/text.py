@@ -17,7 +17,7 @@ from pathlib import Path
 
 from firewatch.settings.units import delta_from_celsius, from_celsius, symbol
 
-__all__ = ["duration", "Clock", "local_zone", "Units", "unbreakable"]
+__all__ = ["Clock", "Units", "duration", "local_zone", "unbreakable"]
 
 _MONTHS = {"Jan", "Feb", "Mar", "Apr", "May", "Jun", "Jul", "Aug", "Sep", "Oct", "Nov", "Dec"}
 _UNITS = {"h", "min", "s", "K", "°C", "°F", "°C/h", "°F/h", "K/h"} | _MONTHS
@@ -62,9 +62,9 @@ def duration(seconds: float | None, signed: bool = False) -> str:
     if seconds is None or not math.isfinite(seconds):
         return "—"
     sign = ("−" if seconds < 0 else "+") if signed and round(seconds) != 0 else ("−" if seconds < 0 else "")
-    s = int(round(abs(seconds)))
+    s = round(abs(seconds))
     if s >= 3600:
-        m = int(round(s / 60.0))
+        m = round(s / 60.0)
         h, m = divmod(m, 60)
         text = f"{h} h {m} min" if m else f"{h} h"
     elif s >= 60:

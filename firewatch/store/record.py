@@ -13,13 +13,19 @@ from pathlib import Path
 import numpy as np
 
 from firewatch import __version__
-from firewatch.firing.record import MEASURED_KINDS, FiringInputs, FiringRecord, build_record, readings_digest
+from firewatch.firing.record import (
+    MEASURED_KINDS,
+    FiringInputs,
+    FiringRecord,
+    build_record,
+    readings_digest,
+)
 from firewatch.settings._tomlcheck import ProfileError
 from firewatch.settings.profile import SiteProfile, load_site
 from firewatch.settings.schedule import Schedule, load_schedule
 from firewatch.store.reader import LogReader
 
-__all__ = ["read_record", "load_record", "profiles_from_log"]
+__all__ = ["load_record", "profiles_from_log", "read_record"]
 
 _SAMPLE = np.dtype([("id", "i8"), ("t", "f8")])
 _FULL = np.dtype([("id", "i8"), ("t", "f8"), ("v", "f8"), ("s", "i8")])

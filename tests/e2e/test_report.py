@@ -153,7 +153,7 @@ def test_alarm_lifecycles_and_notes(record: FiringRecord) -> None:
 def _documented_recipe() -> str:
     doc = (ROOT / "docs" / "log-format.md").read_text()
     section = doc.split("## The readings digest", 1)[1]
-    return re.search(r"```python\n(.*?)```", section, re.S).group(1)
+    return re.search(r"```python\n(.*?)```", section, re.DOTALL).group(1)
 
 
 def test_digest_is_the_documented_one_and_covers_only_measured_readings(firing: Path, record: FiringRecord, tmp_path: Path) -> None:
@@ -199,7 +199,7 @@ def _page_png(pdf: Path, page: int, out: Path) -> np.ndarray:
 
 def _plot_frame(page: np.ndarray) -> tuple[int, int, int, int]:
     """Rows and columns of the chart's frame: the first two long dark lines below the title's rule, and the sides between them."""
-    h, w = page.shape
+    h = page.shape[0]
     rows = [int(r) for r in np.flatnonzero((page < 0.5).mean(axis=1) > 0.6) if 0.12 * h < r < 0.7 * h]
     top, bottom = rows[0], rows[1]
     cols = np.flatnonzero((page[top:bottom] < 0.5).mean(axis=0) > 0.9)
