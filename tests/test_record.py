@@ -174,3 +174,20 @@ def test_units_for_differences_and_rates() -> None:
     # degF differences: 9/5 of a kelvin (ITS-90 and the Fahrenheit scale's definition; arithmetic)
     assert Units("F").delta(10.0) == "+18.0 °F" and Units("F").rate(100.0) == "180 °F/h"
     assert Units("C").temperature(math.nan) == "—"
+
+
+def test_without_a_schedule_or_without_recorded_progress() -> None:
+    from firewatch.report.document import build_document
+
+    site = load_site()
+    t = np.arange(0.0, 2000.0)
+    ref = np.interp(t, [0, 1000, 2000], [20, 1050, 1050])
+    rec = build_record(FiringInputs(site=site, schedule=None, times=t, values={"tc2": ref}, start_t=0.0, end_t=1999.0))
+    assert rec.holds == () and rec.time_above_s is None and rec.segments == () and rec.peak.value_c == 1050.0
+    doc = build_document(rec, Clock.for_site("UTC"), Units("C"), now=0.0)
+    assert ("Schedule", "none recorded") in doc.header.items
+    # a schedule but no plan.* channels (progress not recorded): the hold is looked for over the whole firing
+    schedule = Schedule("s", (Segment("up", 600.0, 1050.0, 600.0),), start_c=20.0)
+    (hold,) = build_record(FiringInputs(site=site, schedule=schedule, times=t, values={"tc2": ref}, start_t=0.0, end_t=1999.0)).holds
+    # within 5 K of 1050 from 1045 (t = 1025/1030 x 1000 = 995.1, first reading 996) to the end, 1999: 1003 s (arithmetic)
+    assert hold.reached and hold.achieved_s == pytest.approx(1999.0 - 996.0)

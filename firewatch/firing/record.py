@@ -520,7 +520,11 @@ def _segment_spans(times: np.ndarray, seg: np.ndarray, n: int) -> tuple[list[flo
 def _holds(times: np.ndarray, ref: np.ndarray, seg: np.ndarray | None, schedule: Schedule, band_k: float,
            max_step_s: float) -> list[Hold]:
     n = len(schedule.segments)
-    entered, left = _segment_spans(times, seg, n) if seg is not None else ([None] * n, [None] * n)
+    if seg is not None:
+        entered, left = _segment_spans(times, seg, n)
+    else:  # a log without recorded progress: any stretch of the firing may be the hold
+        first = float(times[0]) if times.size else None
+        entered, left = [first] * n, [None] * n
     out = []
     for i, s in enumerate(schedule.segments):
         if s.hold_s <= 0:
