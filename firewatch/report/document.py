@@ -127,10 +127,8 @@ def build_document(record: FiringRecord, clock: Clock, units: Units, now: float 
     ])
 
     blocks: list[Fields | Table | ChartBlock] = []
-    blocks.append(ChartBlock(
-        "Plan (the schedule from the firing's start), the reference thermocouple and each pyrometer's reconciled "
-        "temperature. Numbered marks: alarms as listed below; hatched: gaps in the record; bands: critical ranges."
-    ))
+    blocks.append(ChartBlock("Plan: the schedule timed from the firing's start. Numbered marks: alarms, as listed below; "
+                             "hatched: gaps in the record; bands: critical ranges."))
 
     # -- summary --------------------------------------------------------------------------
     summary = Table("Summary", [("", 0.27, "l"), ("recorded", 0.41, "l"), ("against", 0.22, "l"), ("verdict", 0.10, "l")],

@@ -239,7 +239,7 @@ def layout(doc: Document, paper: str = "a4") -> list[Figure]:
     _fields(p, doc.header)
     for block in doc.blocks:
         if isinstance(block, ChartBlock):
-            _chart(p, doc, block, height=min(92.0, (p.bottom - p.y) * 0.5))
+            _chart(p, doc, block, height=min(86.0, (p.bottom - p.y) * 0.5))
         elif isinstance(block, Table):
             _table(p, block)
         elif isinstance(block, Fields):

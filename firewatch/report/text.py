@@ -100,6 +100,9 @@ def local_zone() -> tuple[dt.tzinfo, str]:
     return here, dt.datetime.now(here).tzname() or "local time"
 
 
+_UTC_NAMES = {"UTC", "Etc/UTC", "Etc/UCT", "UCT", "Etc/Universal", "Universal", "Etc/Zulu", "Zulu", "Etc/GMT", "GMT"}
+
+
 @dataclass(frozen=True)
 class Clock:
     """Clock times in one zone, for people."""
@@ -107,16 +110,20 @@ class Clock:
     zone: dt.tzinfo
     name: str
     """The zone's IANA name (or ``UTC``)."""
+    source: str = "site"
+    """Where the zone came from: ``site`` (``[site] timezone``), ``computer`` (the site names none) or ``utc`` (asked for)."""
 
     @classmethod
     def for_site(cls, timezone: str, utc: bool = False) -> Clock:
         """The site's zone; UTC when ``utc``; the computer's when the site names none."""
         if utc:
-            return cls(dt.timezone.utc, "UTC")
+            return cls(dt.timezone.utc, "UTC", "utc")
         if timezone:
             return cls(zoneinfo.ZoneInfo(timezone), timezone)
         zone, name = local_zone()
-        return cls(zone, name)
+        if name in _UTC_NAMES:
+            return cls(dt.timezone.utc, "UTC", "computer")
+        return cls(zone, name, "computer")
 
     def local(self, t: float) -> dt.datetime:
         return dt.datetime.fromtimestamp(t, self.zone)
@@ -156,8 +163,9 @@ class Clock:
         >>> Clock.for_site("Europe/Berlin").describe(1773464401.0, 1773550800.0)
         'Europe/Berlin (CET, UTC+01:00)'
         """
+        whose = " (this computer's zone: the site profile names none)" if self.source == "computer" else ""
         if self.name == "UTC":
-            return "UTC"
+            return "UTC" + whose
         seen: list[str] = []
         for t in (t0, t1):
             if t is None or not math.isfinite(t):
@@ -168,7 +176,7 @@ class Clock:
             text = f"{local.tzname()}, UTC{'+' if minutes >= 0 else '−'}{abs(minutes) // 60:02d}:{abs(minutes) % 60:02d}"
             if text not in seen:
                 seen.append(text)
-        return self.name + (f" ({'; from the change: '.join(seen)})" if seen else "")
+        return self.name + (f" ({'; from the change: '.join(seen)})" if seen else "") + whose
 
 
 @dataclass(frozen=True)
