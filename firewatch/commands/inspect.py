@@ -14,7 +14,8 @@ __all__ = ["add_parser", "run", "summary"]
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("inspect", help="summarise a firing log: times, samples, gaps, alarms",
-                       description="The firing's start and end, duration, samples per channel, malformed lines, gaps and alarms.")
+                       description="The firing's start and end, duration, samples per channel, malformed lines, gaps and alarms; "
+                       "with --json also the firing report's summary (peak, holds, critical ranges, divergence, readings SHA-256).")
     p.add_argument("log", metavar="FILE.db")
     p.add_argument("--json", action="store_true", help="print one JSON object")
 
@@ -55,6 +56,8 @@ def summary(reader) -> dict[str, Any]:
         )
     sessions = reader.query("SELECT count(*) FROM session")[0][0]
     recorder_sessions = _sessions(reader)
+    from firewatch.store.record import read_record  # the firing record's numbers, as the report shows them
+
     return {
         "site": firing.get("site_name"),
         "kiln": firing.get("kiln"),
@@ -69,6 +72,7 @@ def summary(reader) -> dict[str, Any]:
         "malformed_lines": malformed,
         "gaps": gaps,
         "alarms": alarms,
+        "summary": read_record(reader).summary(),
     }
 
 

@@ -152,6 +152,8 @@ class SiteProfile:
     path: Path | None = None
     text: str = ""
     mqtt: MqttSettings = field(default_factory=MqttSettings)
+    timezone: str = ""
+    """``[site] timezone``: an IANA zone name for clock times shown to people ("" = the computer's zone)."""
 
     def thermocouple(self, name: str) -> Thermocouple | None:
         return next((t for t in self.thermocouples if t.name == name), None)
@@ -226,13 +228,25 @@ def _name_check(value: str) -> str | None:
     return None
 
 
+def _zone_check(value: str) -> str | None:
+    """An IANA time zone name that this computer's zone database knows."""
+    import zoneinfo
+
+    try:
+        zoneinfo.ZoneInfo(value)
+    except (ValueError, zoneinfo.ZoneInfoNotFoundError):
+        return f"unknown time zone {value!r}; expected an IANA name such as \"Europe/London\""
+    return None
+
+
 def _read(reader: TomlReader) -> SiteProfile | None:
     data = reader.data
     reader.unknown_keys((), data, {"site", "input", "thermocouple", "pyrometer", "cold_junction", "alarms", "mqtt"})
     site = reader.table(("site",), required=True)
-    reader.unknown_keys(("site",), site, {"name", "kiln"})
+    reader.unknown_keys(("site",), site, {"name", "kiln", "timezone"})
     name = reader.get(site, ("site",), "name", str, default="unnamed site")
     kiln = reader.get(site, ("site",), "kiln", str, default="")
+    timezone = reader.get(site, ("site",), "timezone", str, default="", check=_zone_check)
 
     inp = reader.table(("input",))
     reader.unknown_keys(("input",), inp, _INPUT_KEYS)
@@ -405,6 +419,7 @@ def _read(reader: TomlReader) -> SiteProfile | None:
         path=reader.path,
         text=reader.text,
         mqtt=mqtt,
+        timezone=timezone,
     )
 
 
