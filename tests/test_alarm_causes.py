@@ -11,6 +11,7 @@ from __future__ import annotations
 import ast
 import dataclasses
 import inspect
+import itertools
 import math
 
 import numpy as np
@@ -150,7 +151,7 @@ def test_every_threshold_has_a_docstring() -> None:
     body = tree.body[0].body  # type: ignore[attr-defined]
     documented = {
         stmt.target.id
-        for stmt, nxt in zip(body, body[1:])
+        for stmt, nxt in itertools.pairwise(body)
         if isinstance(stmt, ast.AnnAssign) and isinstance(nxt, ast.Expr) and isinstance(nxt.value, ast.Constant) and isinstance(nxt.value.value, str)
     }
     fields = {f.name for f in dataclasses.fields(CauseThresholds)}

@@ -16,7 +16,14 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from firewatch.cli import main
-from firewatch.settings._tomlcheck import MAX_BYTES, MAX_DEPTH, ProfileError, TomlReader, UnusableFile, read_text_file
+from firewatch.settings._tomlcheck import (
+    MAX_BYTES,
+    MAX_DEPTH,
+    ProfileError,
+    TomlReader,
+    UnusableFile,
+    read_text_file,
+)
 from firewatch.settings._tomllines import key_lines, scan
 from firewatch.settings.profile import load_site, profiles_dir
 

@@ -28,7 +28,7 @@ from pathlib import Path
 from typing import Any
 
 from firewatch.settings import units as _units
-from firewatch.settings._tomllines import line_of, scan
+from firewatch.settings._tomllines import KeyPath, line_of, scan
 
 __all__ = [
     "ProfileError",
@@ -74,7 +74,7 @@ Check = Callable[[Any], "str | None"]
 """A check returns a message for a bad value, None for a good one."""
 
 
-def _display(path: tuple) -> str:
+def _display(path: KeyPath) -> str:
     out = ""
     for part in path:
         if isinstance(part, int):
@@ -234,8 +234,7 @@ class TomlReader:
         self.text = text
         found = scan(text, MAX_DEPTH)
         if found.deep_line is not None:
-            raise ProfileError([f"{self.path}:{found.deep_line}: nested deeper than {MAX_DEPTH} levels of tables and arrays; "
-                                "a profile needs only a few"])
+            raise ProfileError([f"{self.path}:{found.deep_line}: nested deeper than {MAX_DEPTH} levels of tables and arrays; a profile needs only a few"])
         try:
             self.data: dict[str, Any] = tomllib.loads(text)
         except tomllib.TOMLDecodeError as exc:
@@ -250,7 +249,7 @@ class TomlReader:
         self._lines = found.lines
 
     # -- problems -------------------------------------------------------------
-    def problem(self, path: tuple, message: str) -> None:
+    def problem(self, path: KeyPath, message: str) -> None:
         line = line_of(self._lines, path)
         where = f"{self.path}:{line}" if line else str(self.path)
         text = f"{where}: {_display(path)}: {message}"
@@ -262,7 +261,7 @@ class TomlReader:
             raise ProfileError(self.problems)
 
     # -- access ---------------------------------------------------------------
-    def table(self, path: tuple, required: bool = False) -> dict[str, Any]:
+    def table(self, path: KeyPath, required: bool = False) -> dict[str, Any]:
         node: Any = self.data
         for part in path:
             try:
@@ -287,7 +286,7 @@ class TomlReader:
             return []
         return node
 
-    def unknown_keys(self, path: tuple, table: dict[str, Any], known: Iterable[str]) -> None:
+    def unknown_keys(self, path: KeyPath, table: dict[str, Any], known: Iterable[str]) -> None:
         known = set(known)
         for key in table:
             if key not in known:
@@ -296,7 +295,7 @@ class TomlReader:
     def get(
         self,
         table: dict[str, Any],
-        path: tuple,
+        path: KeyPath,
         key: str,
         kind: type | tuple[type, ...] | None,
         default: Any = MISSING,
@@ -306,7 +305,7 @@ class TomlReader:
         """The value of ``key``, type-checked and checked by ``check`` (which returns a message or None)."""
         return self._checked(table, path, key, kind, default, check, missing)[0]
 
-    def _checked(self, table: dict[str, Any], path: tuple, key: str, kind: type | tuple[type, ...] | None,
+    def _checked(self, table: dict[str, Any], path: KeyPath, key: str, kind: type | tuple[type, ...] | None,
                  default: Any, check: Check | None, missing: str) -> tuple[Any, bool]:
         """``(value, given_and_good)``: the default (None when required) unless the key is given and passes."""
         where = path + (key,)
@@ -334,7 +333,7 @@ class TomlReader:
                 return fallback, False
         return value, True
 
-    def value(self, table: dict[str, Any], path: tuple, f: Field, units: str = "C") -> Any:
+    def value(self, table: dict[str, Any], path: KeyPath, f: Field, units: str = "C") -> Any:
         """One field's checked value, converted (and in degC for a temperature or rate given in ``units``)."""
         value, good = self._checked(table, path, f.key, f.kind, f.default, f.check, f.missing)
         if not good:
@@ -349,7 +348,7 @@ class TomlReader:
             value = float(_units.delta_to_celsius(value, units))
         return value
 
-    def read(self, table: dict[str, Any], path: tuple, fields: Iterable[Field], units: str = "C") -> dict[str, Any]:
+    def read(self, table: dict[str, Any], path: KeyPath, fields: Iterable[Field], units: str = "C") -> dict[str, Any]:
         """Walk ``fields`` over ``table``: unknown keys refused, each value checked; ``{attr: value}``."""
         fields = tuple(fields)
         self.unknown_keys(path, table, (f.key for f in fields))

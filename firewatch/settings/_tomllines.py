@@ -18,8 +18,12 @@ from __future__ import annotations
 import bisect
 import re
 from dataclasses import dataclass, field
+from typing import Any
 
-__all__ = ["Scan", "scan", "key_lines", "line_of"]
+__all__ = ["KeyPath", "Scan", "scan", "key_lines", "line_of"]
+
+KeyPath = tuple[str | int, ...]
+"""A key's place: table names, keys and array-of-tables indices, e.g. ``("thermocouple", 1, "type")``."""
 
 _WS = re.compile(r"[ \t]*")
 _WS_NL = re.compile(r"(?:[ \t\r\n]|#[^\n]*)*")  # inside arrays: white space, newlines and comments
@@ -33,7 +37,7 @@ _SCALAR = re.compile(r"[^,\]}\n#]*")  # numbers, booleans, dates (a date may hol
 class Scan:
     """What a scan found: each key path's line, and the deepest nesting with its line."""
 
-    lines: dict[tuple, int] = field(default_factory=dict)
+    lines: dict[KeyPath, int] = field(default_factory=dict)
     depth: int = 0
     """The deepest nesting seen: key parts, array indices and open arrays and inline tables together."""
     deep_line: int | None = None
@@ -55,8 +59,7 @@ class _Scanner:
 
     def _deeper(self, depth: int) -> bool:
         """Note a nesting depth; True when it passes the limit (the scan then stops)."""
-        if depth > self.out.depth:
-            self.out.depth = depth
+        self.out.depth = max(self.out.depth, depth)
         if depth > self.max_depth and self.out.deep_line is None:
             self.out.deep_line = self.line()
             return True
@@ -71,7 +74,7 @@ class _Scanner:
         j = self.s.find("\n", self.i)
         self.i = self.n if j < 0 else j + 1
 
-    def _record(self, path: tuple) -> None:
+    def _record(self, path: KeyPath) -> None:
         self.out.lines.setdefault(path, self.line())
 
     # -- tokens -----------------------------------------------------------------------
@@ -169,10 +172,10 @@ class _Scanner:
         return True
 
     # -- grammar ----------------------------------------------------------------------
-    def _value(self, path: tuple) -> bool:
+    def _value(self, path: KeyPath) -> bool:
         """Skip one value at ``i`` (for ``path``), recording the keys of inline tables; False to stop the scan."""
         # explicit stack instead of recursion: [kind, prefix, element index]
-        stack: list[list] = []
+        stack: list[list[Any]] = []
         while self.i < self.n:
             if stack and stack[-1][0] == "[":
                 self._skip(_WS_NL)
@@ -241,16 +244,17 @@ class _Scanner:
         return True
 
     @staticmethod
-    def _prefix(stack: list[list], path: tuple) -> tuple:
+    def _prefix(stack: list[list[Any]], path: KeyPath) -> KeyPath:
         """The key path of a value opening now inside ``stack``."""
         if not stack:
             return path
         top = stack[-1]
-        return top[1] + ((top[2],) if top[0] == "[" else tuple(top[2]))
+        prefix: KeyPath = top[1]
+        return prefix + ((top[2],) if top[0] == "[" else tuple(top[2]))
 
     def run(self) -> Scan:
-        table: tuple = ()
-        counters: dict[tuple, int] = {}
+        table: KeyPath = ()
+        counters: dict[KeyPath, int] = {}
         while self.i < self.n:
             self._skip(_WS_NL)
             if self.i >= self.n:
@@ -292,9 +296,9 @@ class _Scanner:
         return self.out
 
 
-def _resolve(name: tuple, counters: dict[tuple, int]) -> tuple:
+def _resolve(name: KeyPath, counters: dict[KeyPath, int]) -> KeyPath:
     """``[a.b]`` under an array of tables ``[[a]]`` refers to its latest element."""
-    out: tuple = ()
+    out: KeyPath = ()
     for part in name:
         out = out + (part,)
         if out in counters:
@@ -307,12 +311,12 @@ def scan(text: str, max_depth: int = 1 << 30) -> Scan:
     return _Scanner(text, max_depth).run()
 
 
-def key_lines(text: str) -> dict[tuple, int]:
+def key_lines(text: str) -> dict[KeyPath, int]:
     """Map key paths to 1-based line numbers."""
     return scan(text).lines
 
 
-def line_of(lines: dict[tuple, int], path: tuple) -> int | None:
+def line_of(lines: dict[KeyPath, int], path: KeyPath) -> int | None:
     """The line of ``path`` or of its nearest enclosing table."""
     while path:
         if path in lines:

@@ -28,7 +28,7 @@ DOCS: dict[str, Mapping[str, tuple[Field, ...]]] = {
 }
 """Each document under docs/ and the tables it documents."""
 
-_BLOCK = re.compile(r"(<!-- keys (?P<table>\S+) -->\n)(?P<body>.*?)(<!-- end keys -->)", re.S)
+_BLOCK = re.compile(r"(<!-- keys (?P<table>\S+) -->\n)(?P<body>.*?)(<!-- end keys -->)", re.DOTALL)
 
 
 def markdown(fields: Sequence[Field]) -> str:

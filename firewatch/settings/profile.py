@@ -14,11 +14,19 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from firewatch.settings._tomlcheck import MISSING, Field, ProfileError, TomlReader, in_range, one_of, strings
 from firewatch.physics.thermocouples import TYPES as TC_TYPES
 from firewatch.physics.thermocouples import temperature_range
 from firewatch.physics.tolerances import TOLERANCE_CLASSES
 from firewatch.physics.windows import MATERIALS
+from firewatch.settings._tomlcheck import (
+    MISSING,
+    Field,
+    ProfileError,
+    TomlReader,
+    in_range,
+    one_of,
+    strings,
+)
 
 __all__ = [
     "ProfileError",

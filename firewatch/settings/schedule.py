@@ -34,7 +34,14 @@ from typing import Any
 
 import numpy as np
 
-from firewatch.settings._tomlcheck import Field, ProfileError, TomlReader, in_range, one_of, temperature_range
+from firewatch.settings._tomlcheck import (
+    Field,
+    ProfileError,
+    TomlReader,
+    in_range,
+    one_of,
+    temperature_range,
+)
 
 __all__ = ["Segment", "CriticalRange", "Schedule", "load_schedule", "check_schedule", "ProfileError"]
 
@@ -125,7 +132,7 @@ class Schedule:
     def planned_temperature(self, elapsed_s: np.ndarray | float) -> np.ndarray:
         """The planned temperature at times from the start (held at the last target afterwards)."""
         times, temps, _ = self.breakpoints()
-        return np.interp(np.asarray(elapsed_s, dtype=float), times, temps)
+        return np.asarray(np.interp(np.asarray(elapsed_s, dtype=float), times, temps), dtype=float)
 
     @property
     def peak_c(self) -> float:

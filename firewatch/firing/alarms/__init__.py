@@ -41,7 +41,15 @@ from __future__ import annotations
 
 from firewatch.firing.alarms.causes import CAUSES, THRESHOLDS, CauseThresholds, Verdict
 from firewatch.firing.alarms.conditions import Debounce
-from firewatch.firing.alarms.engine import KINDS, PRIORITY_ORDER, STATES, Alarm, AlarmEngine, Transition, evidence_json
+from firewatch.firing.alarms.engine import (
+    KINDS,
+    PRIORITY_ORDER,
+    STATES,
+    Alarm,
+    AlarmEngine,
+    Transition,
+    evidence_json,
+)
 from firewatch.firing.alarms.history import History
 
 __all__ = [

@@ -34,7 +34,7 @@ import numpy as np
 
 from firewatch.firing.alarms.causes import evidence_number
 from firewatch.settings.profile import AlarmSettings, SiteProfile
-from firewatch.settings.schedule import Schedule
+from firewatch.settings.schedule import CriticalRange, Schedule
 from firewatch.transport.records import Status
 
 __all__ = [
@@ -214,6 +214,15 @@ class Silence:
         return []
 
 
+def _fault(name: str, cause: str, what: str, priority: str) -> Callable[[float], Raise]:
+    """How a sensor-fault of ``name`` with ``cause`` is raised at a time."""
+
+    def raise_at(t: float) -> Raise:
+        return Raise("sensor-fault", f"{name}:{cause}", t, f"{name}: {what}", priority, cause=cause)
+
+    return raise_at
+
+
 class SensorFaults:
     """sensor-fault per channel, and no-data for a channel missing from the lines while others arrive."""
 
@@ -241,9 +250,8 @@ class SensorFaults:
         tc = self.site.thermocouple(name)
         prio = "high" if tc is not None and tc.role in ("control", "reference") else "medium"
         for code, cause, what in self.THERMOCOUPLE_CODES:
-            out += self.debounces.run(
-                ("sensor-fault", f"{name}:{cause}"), times, status == code, status == Status.OK, self.CODE_ON_S, self.CODE_OFF_S,
-                lambda t, c=cause, w=what: Raise("sensor-fault", f"{name}:{c}", t, f"{name}: {w}", prio, cause=c), "reading again")
+            out += self.debounces.run(("sensor-fault", f"{name}:{cause}"), times, status == code, status == Status.OK,
+                                      self.CODE_ON_S, self.CODE_OFF_S, _fault(name, cause, what, prio), "reading again")
         out += self.frozen(name, times, value)
         out += self.missing(name, times, status)
         return out
@@ -258,9 +266,8 @@ class SensorFaults:
             over_bad = (status == Status.OVER) & (reference < hi - self.RANGE_MARGIN_C)
             for bad, cause, what in ((under_bad, "below-range", "reads below its range while the thermocouples say it should not"),
                                      (over_bad, "saturated", "saturated while the thermocouples read well inside its range")):
-                out += self.debounces.run(
-                    ("sensor-fault", f"{name}:{cause}"), times, bad, status == Status.OK, self.RANGE_ON_S, self.RANGE_OFF_S,
-                    lambda t, c=cause, w=what: Raise("sensor-fault", f"{name}:{c}", t, f"{name}: {w}", "medium", cause=c), "reading again")
+                out += self.debounces.run(("sensor-fault", f"{name}:{cause}"), times, bad, status == Status.OK,
+                                          self.RANGE_ON_S, self.RANGE_OFF_S, _fault(name, cause, what, "medium"), "reading again")
         out += self.missing(name, times, status)
         return out
 
@@ -268,9 +275,11 @@ class SensorFaults:
         """no-data for one channel: no value in the lines for ``no_data_s``."""
         no_data_s = self.settings.no_data_s
         missing = status == Status.MISSING
-        return self.debounces.run(
-            ("no-data", name), times, missing, ~missing, no_data_s, self.MISSING_OFF_S,
-            lambda t: Raise("no-data", name, t, f"{name}: no value in the lines for {no_data_s:.0f} s", "medium"), "values again")
+
+        def raise_at(t: float) -> Raise:
+            return Raise("no-data", name, t, f"{name}: no value in the lines for {no_data_s:.0f} s", "medium")
+
+        return self.debounces.run(("no-data", name), times, missing, ~missing, no_data_s, self.MISSING_OFF_S, raise_at, "values again")
 
     def frozen(self, name: str, times: np.ndarray, value: np.ndarray) -> list[Change]:
         """sensor-fault when a value stays exactly the same for ``frozen_s`` (a stuck converter)."""
@@ -474,9 +483,10 @@ class RateLimit:
                 applies = np.where(rate > 0, cr.direction in ("heating", "both"), cr.direction in ("cooling", "both"))
                 too_fast = inside & applies & (np.abs(rate) > cr.max_rate_c_per_h)
                 ok = ~inside | (np.abs(rate) <= cr.max_rate_c_per_h)
-            out += self.debounces.run(
-                ("rate-limit", cr.name), times, too_fast, ok, self.ON_S, self.OFF_S,
-                lambda t, c=cr: Raise("rate-limit", c.name, t, f"faster than {c.max_rate_c_per_h:g} °C/h through {c.name} ({c.low_c:g}-{c.high_c:g} °C)",
-                                      "medium", evidence={"max_rate_c_per_h": c.max_rate_c_per_h}),
-                "within the rate limit")
+
+            def raise_at(t: float, c: CriticalRange = cr) -> Raise:
+                return Raise("rate-limit", c.name, t, f"faster than {c.max_rate_c_per_h:g} °C/h through {c.name} ({c.low_c:g}-{c.high_c:g} °C)",
+                             "medium", evidence={"max_rate_c_per_h": c.max_rate_c_per_h})
+
+            out += self.debounces.run(("rate-limit", cr.name), times, too_fast, ok, self.ON_S, self.OFF_S, raise_at, "within the rate limit")
         return out
