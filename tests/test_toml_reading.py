@@ -8,6 +8,7 @@ library's ``tomllib`` checks that each generated text is valid TOML.
 from __future__ import annotations
 
 import os
+import socket
 import tomllib
 from pathlib import Path
 
@@ -198,6 +199,9 @@ def test_device_fifo_directory_and_huge_files_are_refused_unread(tmp_path: Path)
     link = tmp_path / "zero.toml"
     link.symlink_to("/dev/zero")
     assert Path("/dev/zero").exists()
+    sock_path = tmp_path / "socket.toml"
+    sock = socket.socket(socket.AF_UNIX)
+    sock.bind(str(sock_path))
     cases = {
         Path("/dev/zero"): "/dev/zero: is a character device, not a regular file",
         link: f"{link}: is a character device, not a regular file",
@@ -205,11 +209,15 @@ def test_device_fifo_directory_and_huge_files_are_refused_unread(tmp_path: Path)
         tmp_path: f"{tmp_path}: is a directory, not a regular file",
         huge: f"{huge}: 50 MiB, larger than the 1 MiB a profile may be",
         tmp_path / "none.toml": f"{tmp_path / 'none.toml'}: no such file",
+        sock_path: f"{sock_path}: is a socket, not a regular file",
     }
-    for path, message in cases.items():
-        with pytest.raises(UnusableFile) as exc:
-            read_text_file(path)
-        assert exc.value.problems == [message]
+    try:
+        for path, message in cases.items():
+            with pytest.raises(UnusableFile) as exc:
+                read_text_file(path)
+            assert exc.value.problems == [message]
+    finally:
+        sock.close()
 
 
 def test_size_limit_counts_the_bytes_read(tmp_path: Path) -> None:

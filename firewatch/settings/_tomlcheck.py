@@ -108,6 +108,12 @@ def read_text_file(path: str | Path, limit: int = MAX_BYTES) -> str:
     except IsADirectoryError:
         raise UnusableFile([f"{p}: is a directory, not a file"]) from None
     except OSError as exc:
+        try:  # a socket cannot be opened at all: say what it is
+            kind = _KINDS.get(stat.S_IFMT(os.stat(p).st_mode))
+        except OSError:
+            kind = None
+        if kind is not None:
+            raise UnusableFile([f"{p}: is {kind}, not a regular file"]) from None
         raise UnusableFile([f"{p}: cannot open: {exc.strerror or exc}"]) from None
     try:
         st = os.fstat(fd)
