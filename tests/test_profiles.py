@@ -69,7 +69,8 @@ def test_toml_syntax_error_names_line(tmp_path: Path, capsys) -> None:
 
 
 def test_missing_file(tmp_path: Path, capsys) -> None:
-    assert main(["check", str(tmp_path / "nope.toml")]) == 1
+    # a file that cannot be read at all is trouble, not an answer: status 2 (issue 10; docs/site-profile.md)
+    assert main(["check", str(tmp_path / "nope.toml")]) == 2
     assert "no such file" in capsys.readouterr().err
 
 
@@ -128,3 +129,33 @@ def test_load_site_defaults_to_demo() -> None:
     site = load_site()
     assert site.control.name == "tc1" and site.reference.name == "tc2"
     assert [p.name for p in site.pyrometers] == ["py1", "py2"]
+
+
+CSV_INPUT = 'format = "csv"\ncolumns = ["t", "T1", "T2", "CJ", "P1", "P2"]\ntime_field = "t"'
+CSV_CHANNELS = (
+    '\n[input.channels.tc1]\nfield = "T1"\nunit = "mV"\n[input.channels.tc2]\nfield = "T2"\nunit = "mV"\n'
+    '[input.channels.cj]\nfield = "CJ"\n[input.channels.py1]\nfield = "P1"\n[input.channels.py2]\nfield = "P2"\n'
+)
+
+
+def test_generic_input_channel_maps_are_checked(tmp_path: Path, capsys) -> None:
+    # all four passed check before; three of them then stopped the recorder at start (the parser raised ValueError),
+    # and a map for a channel the profile lacks was silently ignored
+    good = GOOD_SITE.replace('format = "native"', CSV_INPUT) + CSV_CHANNELS
+    site = load_site("csv.toml", text=good)
+    assert site.input.generic["channels"]["py2"] == {"field": "P2", "unit": "C", "scale": 1.0, "offset": 0.0,
+                                                     "open": ("OPEN",), "under": ("UNDER",), "over": ("OVER",)}
+    text = (good.replace('field = "P2"', 'field = "P9"').replace('time_field = "t"', 'time_field = "time"')
+            .replace("[input.channels.cj]", "[input.channels.cj9]").replace('field = "T2"\nunit = "mV"', 'field = "T2"\nscale = "x"'))
+    err = _check(tmp_path, capsys, text)
+    expect = {
+        "input.channels.py2.field": "field 'P9' is not among the columns",
+        "input.time_field": "time_field 'time' is not among the columns",
+        "input.channels.cj9": "no channel named 'cj9' in this profile",
+        "input.channels.tc2.scale": "expected a number, got 'x'",
+    }
+    for key, message in expect.items():
+        hit = [line for line in err if f": {key}: " in line and message in line]
+        assert hit, (key, err)
+    line = _line_of(text, 'scale = "x"')
+    assert any(f"p.toml:{line}: input.channels.tc2.scale" in e for e in err)

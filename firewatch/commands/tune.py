@@ -34,6 +34,11 @@ def run(args: argparse.Namespace) -> int:
     from firewatch.services.replay import profiles_from_log
     from firewatch.firing.tuning import TuneError, fit, load_data
 
+    if args.apply:
+        try:  # refuse a profile that cannot take the result before spending a fit on it
+            load_site(args.apply)
+        except ProfileError as exc:
+            raise UsageError(f"--apply: {exc.problems[0]}") from None
     with open_log(args.log) as reader:
         try:
             site, _ = profiles_from_log(reader)

@@ -22,10 +22,12 @@ def run(args: argparse.Namespace) -> int:
     from firewatch.ui import run_watch
 
     if args.site:
-        from pathlib import Path
+        from firewatch.cli import UsageError
+        from firewatch.settings._tomlcheck import ProfileError
+        from firewatch.settings.profile import load_site
 
-        if not Path(args.site).is_file():
-            from firewatch.cli import UsageError
-
-            raise UsageError(f"--site: no such file {args.site!r}")
+        try:  # the tuning screen writes into it: a valid profile in a regular file, else refused now
+            load_site(args.site)
+        except ProfileError as exc:
+            raise UsageError(f"--site: {exc.problems[0]}") from None
     return run_watch(args.log, site_path=args.site)

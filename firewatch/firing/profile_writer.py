@@ -6,7 +6,7 @@ from pathlib import Path
 
 import tomlkit
 
-from firewatch.settings._tomlcheck import ProfileError
+from firewatch.settings._tomlcheck import ProfileError, read_text_file
 from firewatch.settings.profile import load_site
 
 __all__ = ["apply_tuning"]
@@ -18,7 +18,8 @@ def apply_tuning(site_path: str | Path, channel: str, values: dict[str, float], 
     The file is rewritten only if the result still validates.
     """
     path = Path(site_path)
-    text = path.read_text(encoding="utf-8")
+    text = read_text_file(path)  # a regular file of a sane size, or ProfileError: never a device or a pipe
+    load_site(path, text=text)  # and a valid profile, nested shallowly enough for tomlkit's parser
     doc = tomlkit.parse(text)
     tables = doc.get("pyrometer")
     if tables is None:

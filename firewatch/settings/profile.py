@@ -8,15 +8,25 @@ with its file, line and key.
 from __future__ import annotations
 
 import math
+import re
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from firewatch.settings._tomlcheck import MISSING, ProfileError, TomlReader, in_range, one_of
 from firewatch.physics.thermocouples import TYPES as TC_TYPES
 from firewatch.physics.thermocouples import temperature_range
 from firewatch.physics.tolerances import TOLERANCE_CLASSES
 from firewatch.physics.windows import MATERIALS
+from firewatch.settings._tomlcheck import (
+    MISSING,
+    Field,
+    ProfileError,
+    TomlReader,
+    in_range,
+    one_of,
+    strings,
+)
 
 __all__ = [
     "ProfileError",
@@ -176,62 +186,29 @@ class SiteProfile:
         return next((t for t in self.thermocouples if t.role == "reference"), self.control)
 
 
-def _band(reader: TomlReader, table: dict, path: tuple, key: str, required: bool) -> tuple[float, float] | None:
-    if key not in table:
-        if required:
-            reader.problem(path + (key,), "missing: give [START_UM, END_UM]")
-        return None
-    value = table[key]
-    if (
-        not isinstance(value, list)
-        or len(value) != 2
-        or not all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in value)
-        or not 0 < value[0] < value[1]
-    ):
-        reader.problem(path + (key,), f"expected [START_UM, END_UM] with 0 < START < END, got {value!r}")
-        return None
-    return float(value[0]), float(value[1])
+# -- the tables, key by key ------------------------------------------------------------------
+# Each table of the profile is a list of Field: key, type, default, check and a help line.
+# The reader walks the lists (TomlReader.read) and the key tables in docs/site-profile.md are
+# written from them (python -m firewatch.settings.keydocs), so adding a key is one line here.
+# Checks that relate several keys or tables follow in _read.
 
-
-def _range(reader: TomlReader, table: dict, path: tuple, key: str) -> tuple[float, float]:
-    value = table.get(key)
-    if value is None:
-        return (-math.inf, math.inf)
-    if (
-        not isinstance(value, list)
-        or len(value) != 2
-        or not all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in value)
-        or not value[0] < value[1]
-    ):
-        reader.problem(path + (key,), f"expected [LOW_C, HIGH_C] with LOW < HIGH, got {value!r}")
-        return (-math.inf, math.inf)
-    return float(value[0]), float(value[1])
-
-
-_TC_KEYS = {"name", "type", "unit", "cold_junction", "role", "tolerance_class", "time_constant_s", "label"}
-_PY_KEYS = {
-    "name", "kind", "band_um", "band2_um", "band_file", "set_emissivity", "set_transmission", "set_slope",
-    "emissivity", "emissivity_uncertainty", "slope", "slope_uncertainty", "window", "fouling", "transmission",
-    "transmission_uncertainty", "background", "accuracy_c", "accuracy_percent", "range_c", "reference", "label",
-}
-_INPUT_KEYS = {"format", "baudrate", "bytesize", "parity", "stopbits", "clock", "delimiter", "columns", "time_field", "pair_separator", "kv_separator", "channels"}
-_ALARM_KEYS = {f.name for f in AlarmSettings.__dataclass_fields__.values()}
 _FRACTION = in_range(0.0, 1.0, lo_open=True)
 _NONNEG = in_range(0.0)
+_POSITIVE = in_range(0.0, lo_open=True)
 
 
 def _name_check(value: str) -> str | None:
-    import re
-
     if not re.fullmatch(r"[A-Za-z0-9_\-]{1,32}", value):
         return f"channel names use letters, digits, '_' or '-' (1-32 characters), got {value!r}"
     return None
 
 
 def _zone_check(value: str) -> str | None:
-    """An IANA time zone name that this computer's zone database knows."""
+    """An IANA time zone name that this computer's zone database knows ("" is the computer's own zone)."""
     import zoneinfo
 
+    if value == "":
+        return None
     try:
         zoneinfo.ZoneInfo(value)
     except (ValueError, zoneinfo.ZoneInfoNotFoundError):
@@ -239,134 +216,257 @@ def _zone_check(value: str) -> str | None:
     return None
 
 
-def _read(reader: TomlReader) -> SiteProfile | None:
-    data = reader.data
-    reader.unknown_keys((), data, {"site", "input", "thermocouple", "pyrometer", "cold_junction", "alarms", "mqtt"})
-    site = reader.table(("site",), required=True)
-    reader.unknown_keys(("site",), site, {"name", "kiln", "timezone"})
-    name = reader.get(site, ("site",), "name", str, default="unnamed site")
-    kiln = reader.get(site, ("site",), "kiln", str, default="")
-    timezone = reader.get(site, ("site",), "timezone", str, default="", check=_zone_check)
+def _is_number(value: Any) -> bool:
+    return isinstance(value, (int, float)) and not isinstance(value, bool)
 
-    inp = reader.table(("input",))
-    reader.unknown_keys(("input",), inp, _INPUT_KEYS)
-    fmt = reader.get(inp, ("input",), "format", str, default="native", check=one_of("native", "csv", "keyvalue"))
-    generic = {k: v for k, v in inp.items() if k in {"delimiter", "columns", "time_field", "pair_separator", "kv_separator", "channels"}}
-    if fmt in ("csv", "keyvalue") and not generic.get("channels"):
-        reader.problem(("input", "channels"), f"format {fmt!r} needs [input.channels.NAME] tables mapping fields to channels")
+
+def _number_or_name(what: str) -> Callable[[Any], str | None]:
+    def check(value: Any) -> str | None:
+        return None if isinstance(value, str) or _is_number(value) else f"expected {what} or a temperature in degC, got {value!r}"
+
+    return check
+
+
+def _float_unless_name(value: Any) -> Any:
+    return value if isinstance(value, str) else float(value)
+
+
+def _pair(template: str, ordered: Callable[[float, float], bool]) -> Callable[[Any], str | None]:
+    """A check for a two-number array ``[a, b]`` with ``ordered(a, b)``."""
+
+    def check(value: Any) -> str | None:
+        if not isinstance(value, list) or len(value) != 2 or not all(_is_number(v) for v in value) or not ordered(value[0], value[1]):
+            return f"expected {template}, got {value!r}"
+        return None
+
+    return check
+
+
+def _floats(value: list[Any]) -> tuple[float, float]:
+    return float(value[0]), float(value[1])
+
+
+def _tc_type(value: str) -> str | None:
+    return None if value.upper() in TC_TYPES else f"unknown thermocouple type {value!r}; expected one of {', '.join(TC_TYPES)}"
+
+
+def _window(value: str) -> str | None:
+    return None if value in MATERIALS else f"unknown window material {value!r}; expected one of {', '.join(sorted(MATERIALS))}"
+
+
+def _kiln_id(value: str) -> str | None:
+    return None if not value or _name_check(value) is None else "use letters, digits, '_' or '-'"
+
+
+TOP_LEVEL = ("site", "input", "thermocouple", "pyrometer", "cold_junction", "alarms", "mqtt")
+"""The tables a site profile may have."""
+
+SITE_FIELDS = (
+    Field("name", str, "unnamed site", help="the works"),
+    Field("kiln", str, "", help="the kiln"),
+    Field("timezone", str, "", _zone_check, shown_default="the computer's zone",
+          help="an IANA zone name such as `\"Europe/London\"`, for the clock times people read; the log itself keeps UTC"),
+)
+
+INPUT_FORMATS = ("native", "csv", "keyvalue")
+"""The line formats ``[input] format`` accepts; each has its parser in ``services.recorder.make_parser``."""
+GENERIC_FORMATS = ("csv", "keyvalue")
+"""The formats read through ``[input.channels.NAME]`` maps (:mod:`firewatch.transport.generic`)."""
+
+INPUT_FIELDS = (
+    Field("format", str, "native", one_of(*INPUT_FORMATS), help="`native` (see [line-format.md](line-format.md)), `csv` or `keyvalue`"),
+    Field("baudrate", int, 9600, in_range(1, lo_open=False), help="serial speed, bits per second (ignored by `socket://`)"),
+    Field("bytesize", int, 8, lambda v: None if v in (5, 6, 7, 8) else "must be 5, 6, 7 or 8", help="serial data bits: 5, 6, 7 or 8"),
+    Field("parity", str, "N", one_of("N", "E", "O", "M", "S"), help="serial parity: `N`, `E`, `O`, `M` or `S`"),
+    Field("stopbits", float, 1.0, lambda v: None if v in (1, 1.5, 2) else "must be 1, 1.5 or 2", help="serial stop bits: 1, 1.5 or 2"),
+    Field("clock", str, "wall", one_of("wall", "device"), help="`wall`: time readings on receipt; `device`: by the line's own time"),
+    # csv and keyvalue bridges (given keys only go to InputSettings.generic; the parser holds the defaults)
+    Field("delimiter", str, None, shown_default='`","`', help="`csv`: the column separator"),
+    Field("columns", None, None, strings("column names"), help="`csv`: the column names, in order"),
+    Field("time_field", str, None, help="`csv`, `keyvalue`: the field holding the device's time, seconds"),
+    Field("pair_separator", str, None, shown_default="white space", help="`keyvalue`: between pairs"),
+    Field("kv_separator", str, None, shown_default='`"="`', help="`keyvalue`: between key and value"),
+    Field("channels", dict, None, help="`csv`, `keyvalue`: one `[input.channels.NAME]` table per channel (below)"),
+)
+"""``[input]``: how the line is read."""
+_SERIAL_KEYS = ("format", "baudrate", "bytesize", "parity", "stopbits", "clock")
+
+CHANNEL_FIELDS = (
+    Field("field", str, None, shown_default="NAME", help="the column (`csv`) or key (`keyvalue`) to read"),
+    Field("unit", str, "C", one_of("mV", "C"), help="`mV` (thermocouple EMF) or `C`"),
+    Field("scale", float, 1.0, help="value = raw × scale + offset"),
+    Field("offset", float, 0.0, help="added after scaling"),
+    Field("open", None, ("OPEN",), strings("raw tokens"), convert=tuple, help="raw tokens that mean an open thermocouple"),
+    Field("under", None, ("UNDER",), strings("raw tokens"), convert=tuple, help="raw tokens that mean below range"),
+    Field("over", None, ("OVER",), strings("raw tokens"), convert=tuple, help="raw tokens that mean above range"),
+)
+"""``[input.channels.NAME]``: which field of a bridge's line feeds channel NAME."""
+
+COLD_JUNCTION_FIELDS = (
+    Field("name", str, check=_name_check, help="the channel reporting the terminals' temperature, °C"),
+    Field("label", str, "", help="where it is"),
+)
+
+ROLES = ("control", "reference", "monitor")
+THERMOCOUPLE_FIELDS = (
+    Field("name", str, check=_name_check, help="channel name"),
+    Field("type", str, check=_tc_type, convert=str.upper, help=", ".join(TC_TYPES[:-1]) + f" or {TC_TYPES[-1]}"),
+    Field("unit", str, "mV", one_of("mV", "C"), help="what the line carries: EMF, or °C from a converting bridge"),
+    Field("cold_junction", None, 0.0, _number_or_name("a [[cold_junction]] name"), convert=_float_unless_name,
+          help="a `[[cold_junction]]` name, or a fixed temperature in °C"),
+    Field("role", str, "monitor", one_of(*ROLES), help="`control`, `reference` (the one the pyrometers are compared with) or `monitor`"),
+    Field("tolerance_class", str, "astm-standard", one_of(*TOLERANCE_CLASSES), help=", ".join(f"`{c}`" for c in TOLERANCE_CLASSES)),
+    Field("time_constant_s", float, 30.0, _NONNEG, help="the sheath's time constant: during ramps the divergence allowance grows by this × the rate"),
+    Field("label", str, "", help="where it is"),
+)
+
+_BAND = _pair("[START_UM, END_UM] with 0 < START < END", lambda a, b: 0 < a < b)
+PYROMETER_FIELDS = (
+    Field("name", str, check=_name_check, help="channel name"),
+    Field("kind", str, "single", one_of("single", "ratio"), help="`single` (one band) or `ratio` (two-colour)"),
+    Field("band_um", None, None, _BAND, convert=_floats, missing="give [START_UM, END_UM]", help="`[start, end]` in µm (band 1 of a ratio instrument)"),
+    Field("band2_um", None, None, _BAND, convert=_floats, missing="give [START_UM, END_UM]", help="ratio: the longer band"),
+    Field("band_file", str, None, help="instead of `band_um`: a CSV of wavelength (µm) and relative response, beside the profile"),
+    Field("set_emissivity", float, 1.0, _FRACTION, help="the instrument's own emissivity setting (single band)"),
+    Field("set_transmission", float, 1.0, _FRACTION, help="the instrument's own transmission setting (single band)"),
+    Field("set_slope", float, 1.0, _POSITIVE, help="the instrument's emissivity slope setting (ratio)"),
+    Field("emissivity", float, 1.0, _FRACTION, help="what is known of the ware's emissivity in the band (tune it with `firewatch tune`)"),
+    Field("emissivity_uncertainty", float, 0.0, _NONNEG, help="its standard uncertainty"),
+    Field("slope", float, 1.0, _POSITIVE, help="the ware's emissivity slope ε1/ε2 (ratio)"),
+    Field("slope_uncertainty", float, 0.0, _NONNEG, help="its standard uncertainty"),
+    Field("window", str, None, _window, help=", ".join(f"`{m}`" for m in MATERIALS) + ": a sight window, modelled spectrally"),
+    Field("fouling", float, 1.0, _FRACTION, help="gray factor of deposits on the window"),
+    Field("transmission", float, 1.0, _FRACTION, help="instead of `window`: a gray transmission of the sight path"),
+    Field("transmission_uncertainty", float, 0.0, _NONNEG, help="its standard uncertainty"),
+    Field("background", None, None, _number_or_name("a thermocouple name"), convert=_float_unless_name, shown_default="none",
+          help="a thermocouple whose temperature the ware reflects (the walls of a closed kiln), or a fixed °C"),
+    Field("accuracy_c", float, 0.0, _NONNEG, help="stated accuracy, °C: the greater of this and `accuracy_percent`, taken as a rectangular bound"),
+    Field("accuracy_percent", float, 0.0, _NONNEG, help="stated accuracy, % of reading"),
+    Field("range_c", None, (-math.inf, math.inf), _pair("[LOW_C, HIGH_C] with LOW < HIGH", lambda a, b: a < b), convert=_floats,
+          shown_default="unlimited", help="`[low, high]` measuring range in °C"),
+    Field("reference", str, None, help="the thermocouple to compare with (divergence)"),
+    Field("label", str, "", help="where it is"),
+)
+
+ALARM_FIELDS = (
+    Field("divergence_k", float, 3.0, _POSITIVE, help="alarm when the divergence exceeds this many combined standard uncertainties"),
+    Field("divergence_clear_k", float, 2.0, _POSITIVE, help="clear below this many (not above `divergence_k`)"),
+    Field("divergence_debounce_s", float, 180.0, _POSITIVE, help="for at least this long, seconds"),
+    Field("over_temperature_c", float, None, shown_default="none", help="over-temperature alarm threshold, °C"),
+    Field("deviation_c", float, 30.0, _POSITIVE, help="schedule deviation: temperature off plan by more than this, K ..."),
+    Field("deviation_debounce_s", float, 900.0, _POSITIVE, help="... for longer than this, seconds"),
+    Field("rate_window_s", float, 300.0, _POSITIVE, help="window of the rate-of-change estimate, seconds"),
+    Field("no_data_s", float, 30.0, _POSITIVE, help="a line or channel silent this long raises `no-data`, seconds"),
+    Field("frozen_s", float, 900.0, _POSITIVE, help="a value unchanged this long raises `sensor-fault`, seconds"),
+    Field("latching", None, (), strings("alarm kinds"), convert=tuple, shown_default="`[]`", help="alarm kinds that stay active until acknowledged"),
+)
+
+MQTT_FIELDS = (
+    Field("kiln_id", str, "", _kiln_id, shown_default="from the names", help="the kiln's part of the topics (else a slug of the works and kiln names)"),
+    Field("username", str, "", help="the broker user"),
+    Field("password_env", str, "FIREWATCH_MQTT_PASSWORD", help="the name of the environment variable holding the password (never the password)"),
+    Field("ca_file", str, "", help="CA certificate for `mqtts://`"),
+    Field("accept_actions", bool, False, help="apply acknowledge and shelve requests arriving over MQTT"),
+)
+
+TABLES: dict[str, tuple[Field, ...]] = {
+    "site": SITE_FIELDS,
+    "input": INPUT_FIELDS,
+    "input.channels.NAME": CHANNEL_FIELDS,
+    "[cold_junction]": COLD_JUNCTION_FIELDS,
+    "[thermocouple]": THERMOCOUPLE_FIELDS,
+    "[pyrometer]": PYROMETER_FIELDS,
+    "alarms": ALARM_FIELDS,
+    "mqtt": MQTT_FIELDS,
+}
+"""Every table of a site profile and its fields, as the docs name them (``[x]`` for ``[[x]]``)."""
+
+
+def _read_input(reader: TomlReader, channel_names: set[str]) -> InputSettings:
+    path = ("input",)
+    table = reader.table(path)
+    v = reader.read(table, path, INPUT_FIELDS)
+    fmt = v["format"]
+    generic = {k: table[k] for k in v if k not in _SERIAL_KEYS and v[k] is not None}
+    maps: dict[str, dict[str, Any]] = {}
+    channels = v["channels"] or {}
+    for name, spec in channels.items():
+        where = path + ("channels", name)
+        if not isinstance(spec, dict):
+            reader.problem(where, "expected a table")
+            continue
+        m = reader.read(spec, where, CHANNEL_FIELDS)
+        m["field"] = m["field"] if m["field"] is not None else name
+        maps[name] = m
+        if name not in channel_names:
+            reader.problem(where, f"no channel named {name!r} in this profile")
+        if fmt == "csv" and isinstance(generic.get("columns"), list) and m["field"] not in generic["columns"]:
+            reader.problem(where + (("field",) if "field" in spec else ()), f"field {m['field']!r} is not among the columns")
+    if channels:
+        generic["channels"] = maps
+    if fmt in GENERIC_FORMATS and not channels:
+        reader.problem(path + ("channels",), f"format {fmt!r} needs [input.channels.NAME] tables mapping fields to channels")
     if fmt == "csv" and not isinstance(generic.get("columns"), list):
-        reader.problem(("input", "columns"), "format 'csv' needs columns = [\"name\", ...] in column order")
-    input_settings = InputSettings(
+        reader.problem(path + ("columns",), "format 'csv' needs columns = [\"name\", ...] in column order")
+    if fmt == "csv" and v["time_field"] is not None and isinstance(generic.get("columns"), list) and v["time_field"] not in generic["columns"]:
+        reader.problem(path + ("time_field",), f"time_field {v['time_field']!r} is not among the columns")
+    return InputSettings(
         format=fmt,
-        baudrate=reader.get(inp, ("input",), "baudrate", int, default=9600, check=in_range(1, lo_open=False)),
-        bytesize=reader.get(inp, ("input",), "bytesize", int, default=8, check=lambda v: None if v in (5, 6, 7, 8) else "must be 5, 6, 7 or 8"),
-        parity=reader.get(inp, ("input",), "parity", str, default="N", check=one_of("N", "E", "O", "M", "S")),
-        stopbits=reader.get(inp, ("input",), "stopbits", float, default=1.0, check=lambda v: None if v in (1, 1.5, 2) else "must be 1, 1.5 or 2"),
-        clock=reader.get(inp, ("input",), "clock", str, default="wall", check=one_of("wall", "device")),
+        baudrate=v["baudrate"],
+        bytesize=v["bytesize"],
+        parity=v["parity"],
+        stopbits=v["stopbits"],
+        clock=v["clock"],
         generic=generic,
     )
 
-    cold = reader.tables("cold_junction")
+
+def _read(reader: TomlReader) -> SiteProfile | None:
+    reader.unknown_keys((), reader.data, TOP_LEVEL)
+    site = reader.read(reader.table(("site",), required=True), ("site",), SITE_FIELDS)
+
     cold_names: list[str] = []
-    for i, cj in enumerate(cold):
-        path = ("cold_junction", i)
-        reader.unknown_keys(path, cj, {"name", "label"})
-        n = reader.get(cj, path, "name", str, check=_name_check)
+    for i, cj in enumerate(reader.tables("cold_junction")):
+        n = reader.read(cj, ("cold_junction", i), COLD_JUNCTION_FIELDS)["name"]
         if n:
             cold_names.append(n)
 
     tcs: list[Thermocouple] = []
-    for i, tc in enumerate(reader.tables("thermocouple", required=True)):
+    for i, table in enumerate(reader.tables("thermocouple", required=True)):
         path = ("thermocouple", i)
-        reader.unknown_keys(path, tc, _TC_KEYS)
-        tc_name = reader.get(tc, path, "name", str, check=_name_check)
-        tc_type = reader.get(
-            tc, path, "type", str,
-            check=lambda v: None if v.upper() in TC_TYPES else f"unknown thermocouple type {v!r}; expected one of {', '.join(TC_TYPES)}",
-        )
-        cj_value = tc.get("cold_junction", 0.0)
-        if isinstance(cj_value, str):
-            if cj_value not in [c for c in cold_names]:
-                reader.problem(path + ("cold_junction",), f"no [[cold_junction]] named {cj_value!r}")
-        elif isinstance(cj_value, (int, float)) and not isinstance(cj_value, bool):
-            cj_value = float(cj_value)
-            if tc_type and tc_type.upper() in TC_TYPES:
-                lo, hi = temperature_range(tc_type)
-                if not lo <= cj_value <= hi:
-                    reader.problem(path + ("cold_junction",), f"{cj_value:g} degC is outside type {tc_type.upper()}'s range {lo:g}..{hi:g}")
-        else:
-            reader.problem(path + ("cold_junction",), f"expected a [[cold_junction]] name or a temperature in degC, got {cj_value!r}")
-        tcs.append(
-            Thermocouple(
-                name=tc_name or f"tc{i + 1}",
-                type=(tc_type or "K").upper(),
-                unit=reader.get(tc, path, "unit", str, default="mV", check=one_of("mV", "C")),
-                cold_junction=cj_value,
-                role=reader.get(tc, path, "role", str, default="monitor", check=one_of("control", "reference", "monitor")),
-                tolerance_class=reader.get(tc, path, "tolerance_class", str, default="astm-standard", check=one_of(*TOLERANCE_CLASSES)),
-                time_constant_s=reader.get(tc, path, "time_constant_s", float, default=30.0, check=_NONNEG),
-                label=reader.get(tc, path, "label", str, default=""),
-            )
-        )
+        v = reader.read(table, path, THERMOCOUPLE_FIELDS)
+        cj = v["cold_junction"]
+        if isinstance(cj, str):
+            if cj not in cold_names:
+                reader.problem(path + ("cold_junction",), f"no [[cold_junction]] named {cj!r}")
+        elif isinstance(cj, float) and v["type"] in TC_TYPES:
+            lo, hi = temperature_range(v["type"])
+            if not lo <= cj <= hi:
+                reader.problem(path + ("cold_junction",), f"{cj:g} degC is outside type {v['type']}'s range {lo:g}..{hi:g}")
+        tcs.append(Thermocouple(**(v | {"name": v["name"] or f"tc{i + 1}", "type": v["type"] or "K"})))
     tc_names = [t.name for t in tcs]
 
     pys: list[Pyrometer] = []
-    for i, py in enumerate(reader.tables("pyrometer")):
+    for i, table in enumerate(reader.tables("pyrometer")):
         path = ("pyrometer", i)
-        reader.unknown_keys(path, py, _PY_KEYS)
-        py_name = reader.get(py, path, "name", str, check=_name_check)
-        kind = reader.get(py, path, "kind", str, default="single", check=one_of("single", "ratio"))
-        band_file = reader.get(py, path, "band_file", str, default=None)
-        band = _band(reader, py, path, "band_um", required=band_file is None or kind == "ratio")
-        band2 = _band(reader, py, path, "band2_um", required=kind == "ratio")
+        v = reader.read(table, path, PYROMETER_FIELDS)
+        kind, band, band2 = v["kind"], v["band_um"], v["band2_um"]
+        if band is None and "band_um" not in table and (v["band_file"] is None or kind == "ratio"):
+            reader.problem(path + ("band_um",), "missing: give [START_UM, END_UM]")
+        if band2 is None and "band2_um" not in table and kind == "ratio":
+            reader.problem(path + ("band2_um",), "missing: give [START_UM, END_UM]")
         if kind == "ratio" and band and band2 and not band[1] <= band2[0] + 1e-12 and not band[0] < band2[0]:
             reader.problem(path + ("band2_um",), "band2_um must lie at longer wavelengths than band_um")
+        band_file = v["band_file"]
         if band_file is not None and reader.path.parent.joinpath(band_file).exists() is False and not Path(band_file).exists():
             reader.problem(path + ("band_file",), f"no such file {band_file!r}")
-        window = reader.get(
-            py, path, "window", str, default=None,
-            check=lambda v: None if v in MATERIALS else f"unknown window material {v!r}; expected one of {', '.join(sorted(MATERIALS))}",
-        )
-        if window is not None and "transmission" in py:
+        if v["window"] is not None and "transmission" in table:
             reader.problem(path + ("transmission",), "give either window (modelled) or transmission (gray), not both")
-        background = py.get("background")
-        if isinstance(background, str):
-            if background not in tc_names:
-                reader.problem(path + ("background",), f"no [[thermocouple]] named {background!r}")
-        elif isinstance(background, (int, float)) and not isinstance(background, bool):
-            background = float(background)
-        elif background is not None:
-            reader.problem(path + ("background",), f"expected a thermocouple name or a temperature in degC, got {background!r}")
-            background = None
-        reference = reader.get(py, path, "reference", str, default=None)
-        if reference is not None and reference not in tc_names:
-            reader.problem(path + ("reference",), f"no [[thermocouple]] named {reference!r}")
-        pys.append(
-            Pyrometer(
-                name=py_name or f"py{i + 1}",
-                kind=kind or "single",
-                band_um=band or (0.8, 1.1),
-                band2_um=band2,
-                band_file=band_file,
-                set_emissivity=reader.get(py, path, "set_emissivity", float, default=1.0, check=_FRACTION),
-                set_transmission=reader.get(py, path, "set_transmission", float, default=1.0, check=_FRACTION),
-                set_slope=reader.get(py, path, "set_slope", float, default=1.0, check=in_range(0.0, lo_open=True)),
-                emissivity=reader.get(py, path, "emissivity", float, default=1.0, check=_FRACTION),
-                emissivity_uncertainty=reader.get(py, path, "emissivity_uncertainty", float, default=0.0, check=_NONNEG),
-                slope=reader.get(py, path, "slope", float, default=1.0, check=in_range(0.0, lo_open=True)),
-                slope_uncertainty=reader.get(py, path, "slope_uncertainty", float, default=0.0, check=_NONNEG),
-                window=window,
-                fouling=reader.get(py, path, "fouling", float, default=1.0, check=_FRACTION),
-                transmission=reader.get(py, path, "transmission", float, default=1.0, check=_FRACTION),
-                transmission_uncertainty=reader.get(py, path, "transmission_uncertainty", float, default=0.0, check=_NONNEG),
-                background=background,
-                accuracy_c=reader.get(py, path, "accuracy_c", float, default=0.0, check=_NONNEG),
-                accuracy_percent=reader.get(py, path, "accuracy_percent", float, default=0.0, check=_NONNEG),
-                range_c=_range(reader, py, path, "range_c"),
-                reference=reference,
-                label=reader.get(py, path, "label", str, default=""),
-            )
-        )
+        if isinstance(v["background"], str) and v["background"] not in tc_names:
+            reader.problem(path + ("background",), f"no [[thermocouple]] named {v['background']!r}")
+        if v["reference"] is not None and v["reference"] not in tc_names:
+            reader.problem(path + ("reference",), f"no [[thermocouple]] named {v['reference']!r}")
+        pys.append(Pyrometer(**(v | {"name": v["name"] or f"py{i + 1}", "kind": kind or "single", "band_um": band or (0.8, 1.1)})))
 
     names = tc_names + cold_names + [p.name for p in pys]
     seen: set[str] = set()
@@ -374,52 +474,31 @@ def _read(reader: TomlReader) -> SiteProfile | None:
         if n in seen:
             reader.problem((), f"channel name {n!r} is used twice")
         seen.add(n)
+    input_settings = _read_input(reader, set(names))
 
-    al = reader.table(("alarms",))
-    reader.unknown_keys(("alarms",), al, _ALARM_KEYS)
-    defaults = AlarmSettings()
-    values: dict[str, Any] = {}
-    for key in _ALARM_KEYS:
-        default = getattr(defaults, key)
-        if key == "latching":
-            lat = al.get("latching", [])
-            if not isinstance(lat, list) or not all(isinstance(x, str) for x in lat):
-                reader.problem(("alarms", "latching"), "expected an array of alarm kinds")
-                lat = []
-            values[key] = tuple(lat)
-        elif key == "over_temperature_c":
-            values[key] = reader.get(al, ("alarms",), key, float, default=None)
-        else:
-            values[key] = reader.get(al, ("alarms",), key, float, default=default, check=in_range(0.0, lo_open=True))
-    if values["divergence_clear_k"] > values["divergence_k"]:
+    alarms = reader.read(reader.table(("alarms",)), ("alarms",), ALARM_FIELDS)
+    if alarms["divergence_clear_k"] > alarms["divergence_k"]:
         reader.problem(("alarms", "divergence_clear_k"), "must not exceed divergence_k (the clear threshold is the lower one)")
 
     mq = reader.table(("mqtt",))
-    reader.unknown_keys(("mqtt",), mq, {"kiln_id", "username", "password_env", "ca_file", "accept_actions"})
-    mqtt = MqttSettings(
-        kiln_id=reader.get(mq, ("mqtt",), "kiln_id", str, default="", check=lambda v: None if not v or _name_check(v) is None else "use letters, digits, '_' or '-'"),
-        username=reader.get(mq, ("mqtt",), "username", str, default=""),
-        password_env=reader.get(mq, ("mqtt",), "password_env", str, default="FIREWATCH_MQTT_PASSWORD"),
-        ca_file=reader.get(mq, ("mqtt",), "ca_file", str, default=""),
-        accept_actions=reader.get(mq, ("mqtt",), "accept_actions", bool, default=False),
-    )
+    mqtt = reader.read(mq, ("mqtt",), MQTT_FIELDS)
     if "password" in mq:
         reader.problem(("mqtt", "password"), "never put the password in the profile: set password_env to the name of an environment variable")
 
     if reader.problems:
         return None
     return SiteProfile(
-        name=name,
-        kiln=kiln,
+        name=site["name"],
+        kiln=site["kiln"],
+        timezone=site["timezone"],
         input=input_settings,
         thermocouples=tuple(tcs),
         pyrometers=tuple(pys),
         cold_junctions=tuple(cold_names),
-        alarms=AlarmSettings(**values),
+        alarms=AlarmSettings(**alarms),
         path=reader.path,
         text=reader.text,
-        mqtt=mqtt,
-        timezone=timezone,
+        mqtt=MqttSettings(**mqtt),
     )
 
 

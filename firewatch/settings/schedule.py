@@ -30,10 +30,18 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
-from firewatch.settings._tomlcheck import ProfileError, TomlReader, in_range, one_of
+from firewatch.settings._tomlcheck import (
+    Field,
+    ProfileError,
+    TomlReader,
+    in_range,
+    one_of,
+    temperature_range,
+)
 
 __all__ = ["Segment", "CriticalRange", "Schedule", "load_schedule", "check_schedule", "ProfileError"]
 
@@ -124,58 +132,104 @@ class Schedule:
     def planned_temperature(self, elapsed_s: np.ndarray | float) -> np.ndarray:
         """The planned temperature at times from the start (held at the last target afterwards)."""
         times, temps, _ = self.breakpoints()
-        return np.interp(np.asarray(elapsed_s, dtype=float), times, temps)
+        return np.asarray(np.interp(np.asarray(elapsed_s, dtype=float), times, temps), dtype=float)
 
     @property
     def peak_c(self) -> float:
         return max([self.start_c] + [s.target_c for s in self.segments])
 
 
-_SCHEDULE_KEYS = {"name", "units", "start", "fast_rate", "cool_rate"}
-_SEGMENT_KEYS = {"name", "rate", "target", "hold_min"}
-_CRITICAL_KEYS = {"name", "low", "high", "max_rate", "direction"}
+# -- the tables, key by key ------------------------------------------------------------------
+# Temperatures and rates are written in the file's units and converted to degC by the reader
+# (Field.quantity, through settings.units); defaults are degC. The key tables in
+# docs/schedules.md are written from these lists (python -m firewatch.settings.keydocs).
+
+LOWEST_C, HIGHEST_C = -50.0, 2000.0
+"""The targets a schedule may name, degC."""
+UNITS = ("C", "F")
 
 
-def _to_c(value: float, units: str) -> float:
-    return (value - 32.0) * 5.0 / 9.0 if units == "F" else value
+def _hold(value: float) -> str | None:
+    return f"a hold cannot be negative, got {value!r} minutes" if value < 0 else None
 
 
-def _rate_to_c(value: float, units: str) -> float:
-    return value * 5.0 / 9.0 if units == "F" else value
+def _rate(value: Any) -> str | None:
+    if value == "max":
+        return None
+    if isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value):
+        return "a rate of 0 never reaches the target; use a hold" if value == 0 else None
+    return f"expected degrees per hour or \"max\", got {value!r}"
+
+
+def _rate_value(value: Any) -> Any:
+    return value if value == "max" else float(value)
+
+
+TOP_LEVEL = ("schedule", "segment", "critical")
+"""The tables a schedule may have."""
+
+UNITS_FIELD = Field("units", str, "C", one_of(*UNITS), help="`C` or `F`: every temperature and rate in the file")
+SCHEDULE_FIELDS = (
+    Field("name", str, "unnamed schedule", help="what the firing is"),
+    UNITS_FIELD,
+    Field("start", float, 20.0, quantity="temperature", shown_default="20 °C (68 °F)", help="the assumed starting temperature"),
+    Field("fast_rate", float, 250.0, in_range(0.0, lo_open=True), quantity="rate", shown_default="250 °C/h (450 °F/h)",
+          help="planning assumption for `rate = \"max\"` when heating, degrees per hour"),
+    Field("cool_rate", float, 80.0, in_range(0.0, lo_open=True), quantity="rate", shown_default="80 °C/h (144 °F/h)",
+          help="planning assumption for `rate = \"max\"` when cooling, degrees per hour"),
+)
+"""``[schedule]``: the firing as a whole."""
+
+
+def segment_fields(units: str = "C") -> tuple[Field, ...]:
+    """``[[segment]]``: one ramp and its hold, for a file in ``units`` (the target's range speaks them)."""
+    return (
+        Field("name", str, None, shown_default="segment N", help="what the segment does"),
+        Field("rate", None, check=_rate, convert=_rate_value, quantity="rate", missing="degrees per hour (negative to cool) or \"max\"",
+              help="degrees per hour, negative to cool; `\"max\"`: as fast as the kiln can (cooling: power off)"),
+        Field("target", float, check=temperature_range(LOWEST_C, HIGHEST_C, units), quantity="temperature",
+              help=f"the temperature the ramp ends at ({LOWEST_C:g} to {HIGHEST_C:g} °C)"),
+        Field("hold_min", float, 0.0, _hold, help="minutes held at the target"),
+    )
+
+
+CRITICAL_FIELDS = (
+    Field("name", str, None, shown_default="critical range N", help="what happens in the range (e.g. quartz inversion)"),
+    Field("low", float, quantity="temperature", help="the range's lower end"),
+    Field("high", float, quantity="temperature", help="its upper end"),
+    Field("max_rate", float, check=in_range(0.0, lo_open=True), quantity="rate", help="the fastest allowed through the range, degrees per hour"),
+    Field("direction", str, "both", one_of("heating", "cooling", "both"), help="`heating`, `cooling` or `both`"),
+)
+"""``[[critical]]``: a range to pass no faster than ``max_rate``."""
+
+TABLES: dict[str, tuple[Field, ...]] = {
+    "schedule": SCHEDULE_FIELDS,
+    "[segment]": segment_fields(),
+    "[critical]": CRITICAL_FIELDS,
+}
+"""Every table of a schedule and its fields, as the docs name them (``[x]`` for ``[[x]]``)."""
 
 
 def _read(reader: TomlReader) -> Schedule | None:
-    reader.unknown_keys((), reader.data, {"schedule", "segment", "critical"})
-    head = reader.table(("schedule",), required=True)
-    reader.unknown_keys(("schedule",), head, _SCHEDULE_KEYS)
-    name = reader.get(head, ("schedule",), "name", str, default="unnamed schedule")
-    units = reader.get(head, ("schedule",), "units", str, default="C", check=one_of("C", "F"))
-    units = units or "C"
-    start = _to_c(reader.get(head, ("schedule",), "start", float, default=68.0 if units == "F" else 20.0), units)
-    fast = _rate_to_c(reader.get(head, ("schedule",), "fast_rate", float, default=450.0 if units == "F" else 250.0, check=in_range(0.0, lo_open=True)), units)
-    cool = _rate_to_c(reader.get(head, ("schedule",), "cool_rate", float, default=144.0 if units == "F" else 80.0, check=in_range(0.0, lo_open=True)), units)
-    lowest, highest = (-58.0, 3632.0) if units == "F" else (-50.0, 2000.0)
+    reader.unknown_keys((), reader.data, TOP_LEVEL)
+    head_table = reader.table(("schedule",), required=True)
+    units = reader.value(head_table, ("schedule",), UNITS_FIELD) or "C"  # read first: the other values are in these units
+    head = reader.read(head_table, ("schedule",), SCHEDULE_FIELDS, units)
+    start = head["start"]
 
     segments: list[Segment] = []
     previous = start
-    for i, seg in enumerate(reader.tables("segment", required=True)):
+    for i, table in enumerate(reader.tables("segment", required=True)):
         path = ("segment", i)
-        reader.unknown_keys(path, seg, _SEGMENT_KEYS)
-        seg_name = reader.get(seg, path, "name", str, default=f"segment {i + 1}")
-        target_raw = reader.get(seg, path, "target", float, check=in_range(lowest, highest))
-        hold = reader.get(seg, path, "hold_min", float, default=0.0, check=lambda v: f"a hold cannot be negative, got {v!r} minutes" if v < 0 else None)
-        rate_raw = seg.get("rate")
-        if target_raw is None:
+        v = reader.read(table, path, segment_fields(units), units)
+        target, rate = v["target"], v["rate"]
+        if target is None or rate is None:
             continue
-        target = _to_c(target_raw, units)
         rising = target > previous
-        if rate_raw == "max":
+        if rate == "max":
             rate = FAST if rising else -FAST
-        elif isinstance(rate_raw, (int, float)) and not isinstance(rate_raw, bool) and math.isfinite(rate_raw):
-            rate = _rate_to_c(float(rate_raw), units)
-            if rate == 0:
-                reader.problem(path + ("rate",), "a rate of 0 never reaches the target; use a hold")
-                continue
+        else:
+            rate_raw, target_raw = table["rate"], table["target"]
             if target == previous:
                 reader.problem(path + ("target",), f"target {target_raw:g} equals the previous temperature; use hold_min on the segment before")
                 continue
@@ -185,46 +239,34 @@ def _read(reader: TomlReader) -> Schedule | None:
             if not rising and rate > 0:
                 reader.problem(path + ("rate",), f"{rate_raw:g} heats, but target {target_raw:g} is below the start; use a negative rate to cool")
                 continue
-        elif rate_raw is None:
-            reader.problem(path + ("rate",), "missing: degrees per hour (negative to cool) or \"max\"")
-            continue
-        else:
-            reader.problem(path + ("rate",), f"expected degrees per hour or \"max\", got {rate_raw!r}")
-            continue
-        segments.append(Segment(seg_name, rate, target, (hold or 0.0) * 60.0))
+        segments.append(Segment(v["name"] if v["name"] is not None else f"segment {i + 1}", rate, target, (v["hold_min"] or 0.0) * 60.0))
         previous = target
 
     critical: list[CriticalRange] = []
-    for i, cr in enumerate(reader.tables("critical")):
+    for i, table in enumerate(reader.tables("critical")):
         path = ("critical", i)
-        reader.unknown_keys(path, cr, _CRITICAL_KEYS)
-        low = reader.get(cr, path, "low", float)
-        high = reader.get(cr, path, "high", float)
-        max_rate = reader.get(cr, path, "max_rate", float, check=in_range(0.0, lo_open=True))
-        direction = reader.get(cr, path, "direction", str, default="both", check=one_of("heating", "cooling", "both"))
-        if low is not None and high is not None and low >= high:
-            reader.problem(path + ("high",), f"must be above low ({low:g}), got {high:g}")
+        v = reader.read(table, path, CRITICAL_FIELDS, units)
+        if v["low"] is not None and v["high"] is not None and v["low"] >= v["high"]:
+            reader.problem(path + ("high",), f"must be above low ({table['low']:g}), got {table['high']:g}")
             continue
-        if None in (low, high, max_rate):
+        if None in (v["low"], v["high"], v["max_rate"]):
             continue
-        critical.append(
-            CriticalRange(
-                reader.get(cr, path, "name", str, default=f"critical range {i + 1}"),
-                _to_c(low, units), _to_c(high, units), _rate_to_c(max_rate, units), direction,
-            )
-        )
+        cr = CriticalRange(v["name"] if v["name"] is not None else f"critical range {i + 1}", v["low"], v["high"], v["max_rate"], v["direction"])
+        critical.append(cr)
         for j, seg in enumerate(segments):
             lo_t, hi_t = sorted((segments[j - 1].target_c if j else start, seg.target_c))
-            crosses = lo_t < _to_c(high, units) and hi_t > _to_c(low, units)
-            if crosses and not seg.is_fast and abs(seg.rate_c_per_h) > _rate_to_c(max_rate, units) and critical[-1].applies(seg.rate_c_per_h):
+            crosses = lo_t < cr.high_c and hi_t > cr.low_c
+            if crosses and not seg.is_fast and abs(seg.rate_c_per_h) > cr.max_rate_c_per_h and cr.applies(seg.rate_c_per_h):
                 reader.problem(
                     ("segment", j, "rate"),
-                    f"{abs(seg.rate_c_per_h):g} degC/h passes through {critical[-1].name} ({low:g}-{high:g}) faster than its max_rate {max_rate:g}",
+                    f"{abs(seg.rate_c_per_h):g} degC/h passes through {cr.name} ({table['low']:g}-{table['high']:g}) "
+                    f"faster than its max_rate {table['max_rate']:g}",
                 )
 
     if reader.problems:
         return None
-    return Schedule(name, tuple(segments), tuple(critical), start, fast, cool, units, reader.path, reader.text)
+    return Schedule(name=head["name"], segments=tuple(segments), critical=tuple(critical), start_c=start, fast_rate_c_per_h=head["fast_rate"],
+                    cool_rate_c_per_h=head["cool_rate"], units=units, path=reader.path, text=reader.text)
 
 
 def check_schedule(reader: TomlReader) -> Schedule | None:

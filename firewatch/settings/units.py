@@ -8,7 +8,7 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-__all__ = ["UNITS", "to_celsius", "from_celsius", "delta_from_celsius", "symbol", "check_unit"]
+__all__ = ["UNITS", "to_celsius", "from_celsius", "delta_to_celsius", "delta_from_celsius", "symbol", "check_unit"]
 
 UNITS = ("C", "F", "K")
 """The accepted unit letters."""
@@ -42,6 +42,12 @@ def from_celsius(value_c: ArrayLike, unit: str) -> NDArray[np.float64]:
     if u == "K":
         return v + 273.15
     return v
+
+
+def delta_to_celsius(delta: ArrayLike, unit: str) -> NDArray[np.float64]:
+    """Convert a temperature difference (or rate) in ``unit`` to degC."""
+    v = np.asarray(delta, dtype=float)
+    return v * 5.0 / 9.0 if check_unit(unit) == "F" else v
 
 
 def delta_from_celsius(delta_c: ArrayLike, unit: str) -> NDArray[np.float64]:
