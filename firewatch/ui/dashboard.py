@@ -21,6 +21,7 @@ from textual.message import Message
 from textual.screen import Screen
 from textual.widgets import Footer, Static, TabbedContent, TabPane
 
+from firewatch.store._common import LogDamaged
 from firewatch.store.view import FiringView, Moment
 from firewatch.ui import format as fmt
 from firewatch.ui.screens import HelpScreen, NoteScreen, ShelveScreen
@@ -169,6 +170,13 @@ class DashboardScreen(Screen):
                     chart = self._chart_data(t)
                     self._last_chart = now
                 self.post_message(LogRead(moment, chart, view.end_t))
+            except LogDamaged as exc:  # nothing true can be shown: end with the message (the command prints it)
+                fail = getattr(self.app, "fail", None)
+                try:
+                    self.app.call_from_thread(fail or self.app.exit, *((str(exc),) if fail else ()))
+                except RuntimeError:
+                    pass
+                return
             except Exception as exc:  # a busy or vanished log: say so, keep polling
                 if self._stop.is_set():
                     return
