@@ -53,6 +53,8 @@ class FirewatchApp(App):
         self._marker = marker if show_cautions is None else None
         self.failure: str | None = None
         """Why the app ended on its own (a damaged log): the command says it once the screen is gone."""
+        self.integrity: list[str] | None = None
+        """What SQLite's quick check found in the live log (empty: sound; None: not checked yet)."""
 
     def fail(self, message: str) -> None:
         """End the app because the log cannot be read; ``message`` names the file and the problem."""
@@ -86,11 +88,12 @@ class FirewatchApp(App):
                 problems = reader.integrity(limit=5)
         except LogError as exc:
             problems = [str(exc)]
+        self.integrity = problems
         if problems:
             self.call_from_thread(
                 self.notify,
                 f"{damage_error(self.log_path, problems)}. What is shown may be incomplete; 'firewatch inspect' lists the problems.",
-                title="firing log damaged", severity="error", timeout=DAMAGE_NOTICE_S,
+                title="firing log damaged", severity="error", timeout=DAMAGE_NOTICE_S, markup=False,
             )
 
     def on_unmount(self) -> None:
