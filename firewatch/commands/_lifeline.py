@@ -40,15 +40,16 @@ def set_parent_death_signal(sig: int) -> bool:
         return False
 
 
-def stop_with_parent(parent_pid: int, on_gone: Callable[[], None], sig: int = signal.SIGTERM,
+def stop_with_parent(parent_pid: int, on_gone: Callable[[], None], sig: int | None = signal.SIGTERM,
                      poll_s: float = POLL_S) -> threading.Thread:
     """Call ``on_gone`` once when the process ``parent_pid`` (this process's parent) has ended.
 
-    ``sig`` is what the kernel sends on Linux; the caller must have a handler for it, or accept its
-    default action. ``on_gone`` runs at once when the parent has already gone, else from a daemon
-    thread that polls every ``poll_s`` seconds (the only mechanism off Linux).
+    ``sig`` is what the kernel sends on Linux (None: poll only); the caller must have a handler for
+    it, or accept its default action. ``on_gone`` runs at once when the parent has already gone,
+    else from a daemon thread that polls every ``poll_s`` seconds (the only mechanism off Linux).
     """
-    set_parent_death_signal(sig)
+    if sig is not None:
+        set_parent_death_signal(sig)
     done = threading.Event()
 
     def gone() -> None:
