@@ -30,8 +30,8 @@ def open_log(path: str | Path, check: bool = True) -> LogReader:
     """A reader of the firing log at ``path``, for a command that reads it.
 
     With ``check`` SQLite's ``quick_check`` runs first, so a damaged log is refused with one line
-    wherever its damage lies, rather than giving a result read around it (about 0.2 s for a
-    day's log). A missing, empty, foreign or damaged file raises :class:`LogError` naming it,
+    wherever its damage lies, rather than giving a result read around it (0.2 to 0.7 s for a
+    day's log, about a seventh of a headless replay of it). A missing, empty, foreign or damaged file raises :class:`LogError` naming it,
     which the command line prints as one line with exit status 2.
     """
     from firewatch.store._common import damage_error
