@@ -90,15 +90,13 @@ def run(args: argparse.Namespace) -> int:
         json.dump(info, sys.stdout)
         sys.stdout.write("\n")
         return status
-    if len(info) == 1:  # only the integrity check could be read
-        from rich.console import Console
-
-        Console().print(f"firing log {args.log}: damaged; SQLite's quick_check found:\n" + "\n".join(problems), markup=False, highlight=False)
-        return status
     from rich.console import Console
     from rich.table import Table
 
     console = Console()
+    if len(info) == 1:  # only the integrity check could be read
+        console.print(f"firing log {args.log}: damaged; SQLite's quick_check found:\n" + "\n".join(problems), markup=False, highlight=False)
+        return status
     table = Table(title=f"firing log {args.log}", show_header=False, title_justify="left")
     table.add_column("what")
     table.add_column("value")

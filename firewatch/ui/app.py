@@ -89,12 +89,16 @@ class FirewatchApp(App):
         except LogError as exc:
             problems = [str(exc)]
         self.integrity = problems
-        if problems:
+        if not problems:
+            return
+        try:
             self.call_from_thread(
                 self.notify,
                 f"{damage_error(self.log_path, problems)}. What is shown may be incomplete; 'firewatch inspect' lists the problems.",
                 title="firing log damaged", severity="error", timeout=DAMAGE_NOTICE_S, markup=False,
             )
+        except RuntimeError:  # the app closed meanwhile: nobody to tell
+            pass
 
     def on_unmount(self) -> None:
         self.view.close()
