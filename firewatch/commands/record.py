@@ -3,10 +3,15 @@
 from __future__ import annotations
 
 import argparse
+from typing import TYPE_CHECKING
 
 from firewatch.cli import UsageError
 from firewatch.commands import _args
 from firewatch.commands._common import refuse_damaged
+
+if TYPE_CHECKING:
+    from firewatch.services.recorder import Recorder
+
 __all__ = ["add_parser", "run", "load_profiles"]
 
 
@@ -76,7 +81,7 @@ def run(args: argparse.Namespace) -> int:
     return 0
 
 
-def _stop_with_parent(recorder, parent_pid: int) -> None:
+def _stop_with_parent(recorder: Recorder, parent_pid: int) -> None:
     """End the recording, with its reason in the log, when the process that started it ends (demo)."""
     import signal
 
