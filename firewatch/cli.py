@@ -81,3 +81,27 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 130
     except BrokenPipeError:
         return 0
+    except Exception as exc:
+        message = _file_problem(exc, args)
+        if message is None or args.debug:
+            raise
+        sys.stderr.write(f"firewatch {args.command}: {message}\n")
+        return 2
+
+
+def _file_problem(exc: Exception, args: argparse.Namespace) -> str | None:
+    """One line for a firing log that cannot be used (damaged, foreign, unreadable); None for anything else."""
+    import sqlite3
+
+    from firewatch.store._common import LogDamaged, LogError, log_error
+
+    if isinstance(exc, sqlite3.DatabaseError):  # met outside the reader, which names the file itself
+        log = getattr(args, "log", None) or getattr(args, "to_log", None)
+        if log is None:
+            return None
+        exc = log_error(log, exc)
+    if not isinstance(exc, LogError):
+        return None
+    if isinstance(exc, LogDamaged) and args.command != "inspect":
+        return f"{exc}; 'firewatch inspect' shows what SQLite finds"
+    return str(exc)

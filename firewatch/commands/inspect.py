@@ -93,16 +93,32 @@ def _sessions(reader) -> list[dict[str, Any]]:
 
 
 def run(args: argparse.Namespace) -> int:
-    with open_log(args.log) as reader:
-        info = summary(reader)
+    from firewatch.store._common import LogDamaged, damage_error
+
+    with open_log(args.log, check=False) as reader:
+        problems = reader.integrity()
+        try:
+            info = summary(reader)
+        except LogDamaged:
+            if not problems:
+                raise
+            info = {}  # what a damaged log could not give; the integrity check says why
+    info["integrity"] = {"check": "PRAGMA quick_check", "ok": not problems, "problems": problems}
+    status = 0
+    if problems:
+        print(f"firewatch inspect: {damage_error(args.log, problems)}", file=sys.stderr)
+        status = 2
     if args.json:
         json.dump(info, sys.stdout)
         sys.stdout.write("\n")
-        return 0
+        return status
     from rich.console import Console
     from rich.table import Table
 
     console = Console()
+    if len(info) == 1:  # only the integrity check could be read
+        console.print(f"firing log {args.log}: damaged; SQLite's quick_check found:\n" + "\n".join(problems), markup=False, highlight=False)
+        return status
     table = Table(title=f"firing log {args.log}", show_header=False, title_justify="left")
     table.add_column("what")
     table.add_column("value")
@@ -126,5 +142,6 @@ def run(args: argparse.Namespace) -> int:
             for a in info["alarms"]
         ),
     )
+    table.add_row("integrity", "ok (SQLite quick_check)" if not problems else "DAMAGED (SQLite quick_check):\n" + "\n".join(problems))
     console.print(table)
-    return 0
+    return status

@@ -3,9 +3,15 @@
 from __future__ import annotations
 
 import argparse
+from typing import TYPE_CHECKING
 
 from firewatch.cli import UsageError
 from firewatch.commands import _args
+from firewatch.commands._common import refuse_damaged
+
+if TYPE_CHECKING:
+    from firewatch.services.recorder import Recorder
+
 __all__ = ["add_parser", "run", "load_profiles"]
 
 
@@ -24,6 +30,8 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--clock", choices=("wall", "device"), help="time readings on receipt or by the line's own time (default: the site profile's)")
     p.add_argument("--mqtt", metavar="URL", help="also publish to mqtt://HOST:PORT/PREFIX (or mqtts://); credentials from the site profile and the environment")
     p.add_argument("-v", "--verbose", action="store_true", help="also say which SQLite the log is written with (always kept in the log; see inspect)")
+    # for firewatch demo: stop, closing the session, when the process that started this one ends
+    p.add_argument("--parent-pid", type=int, help=argparse.SUPPRESS)
 
 
 def load_profiles(site_path: str | None, schedule_path: str | None):
@@ -53,6 +61,7 @@ def run(args: argparse.Namespace) -> int:
     log = Path(args.log)
     if not log.parent.exists():
         raise UsageError(f"--log: directory {log.parent} does not exist")
+    refuse_damaged(log)
     if args.mqtt:
         from firewatch.services.mqtt import parse_mqtt_url
 
@@ -65,8 +74,26 @@ def run(args: argparse.Namespace) -> int:
             raise UsageError("--mqtt: publishing needs paho-mqtt: pip install 'firewatch[mqtt]'") from None
     recorder = Recorder(args.port, site, schedule, log, clock=args.clock, duration_s=args.seconds, mqtt_url=args.mqtt,
                         verbose=args.verbose)
+    if args.parent_pid:
+        _stop_with_parent(recorder, args.parent_pid)
     try:
         recorder.run()
     except LogError as exc:
         raise UsageError(f"--log: {exc}") from None
     return 0
+
+
+def _stop_with_parent(recorder: Recorder, parent_pid: int) -> None:
+    """End the recording, with its reason in the log, when the process that started it ends (demo)."""
+    import signal
+
+    from firewatch.commands._lifeline import stop_with_parent
+
+    reason = f"the process that started it (pid {parent_pid}) ended"
+
+    def gone(*_: object) -> None:
+        recorder.stop(reason)
+
+    # the kernel's parent-death signal: one of our own, so its handler can give the reason
+    signal.signal(signal.SIGUSR2, gone)
+    stop_with_parent(parent_pid, gone, sig=signal.SIGUSR2)

@@ -8,6 +8,7 @@ from pathlib import Path
 
 from firewatch.cli import UsageError
 from firewatch.commands import _args
+from firewatch.commands._common import refuse_damaged
 __all__ = ["add_parser", "run"]
 
 
@@ -45,9 +46,19 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     out.add_argument("--stdout", action="store_true", help="write lines to standard output")
     out.add_argument("--to-log", metavar="FILE.db", help="run as fast as possible straight into a firing log")
     p.add_argument("--minutes", type=_args.positive, help="simulated minutes to run (default: the scenario's duration; streams run until stopped)")
+    # for firewatch demo: end when the process that started this one ends
+    p.add_argument("--parent-pid", type=int, help=argparse.SUPPRESS)
 
 
 def run(args: argparse.Namespace) -> int:
+    if args.parent_pid:
+        import os
+        import signal
+
+        from firewatch.commands._lifeline import stop_with_parent
+
+        # the simulator keeps nothing: SIGTERM's default action ends it at once, whatever it waits on
+        stop_with_parent(args.parent_pid, lambda: os.kill(os.getpid(), signal.SIGTERM))
     from firewatch.settings._tomlcheck import ProfileError
     from firewatch.simulator.run import Simulation
     from firewatch.simulator.scenario import load_scenario
@@ -81,6 +92,7 @@ def run(args: argparse.Namespace) -> int:
         path = Path(args.to_log)
         if not path.parent.exists():
             raise UsageError(f"--to-log: directory {path.parent} does not exist")
+        refuse_damaged(path)
         from firewatch.store._common import LogError
 
         try:

@@ -18,7 +18,9 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    open_log(args.log).close()  # a clear message for a missing or foreign file, before the screen opens
+    # a clear message for a missing or foreign file before the screen opens; the integrity check
+    # runs behind the live screen (ui.app), which an operator should not wait for
+    open_log(args.log, check=False).close()
     from firewatch.ui import run_watch
 
     if args.site:

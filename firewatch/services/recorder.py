@@ -167,6 +167,8 @@ class Recorder:
         self.clock_fn = clock_fn
         self.out = out
         self.stop_event = threading.Event()
+        self.stop_reason = "signal"
+        """Why :meth:`stop` was called (a signal, unless a caller says otherwise)."""
         self.mqtt_url = mqtt_url
         self.verbose = verbose
         self._unmarked: dict[int | None, str] = {}
@@ -182,8 +184,14 @@ class Recorder:
         except (OSError, ValueError):  # the terminal went away; keep recording
             pass
 
-    def _handle_signal(self, signum, frame) -> None:
+    def stop(self, reason: str = "signal") -> None:
+        """Stop recording, from a signal handler or another thread; ``reason`` ends the session."""
+        if not self.stop_event.is_set():
+            self.stop_reason = reason
         self.stop_event.set()
+
+    def _handle_signal(self, signum, frame) -> None:
+        self.stop("signal")
 
     def run(self, install_signals: bool = True) -> str:
         """Record until stopped; return the reason it stopped."""
@@ -250,7 +258,7 @@ class Recorder:
                     reason = f"--for {self.duration_s:g} s elapsed"
                     break
             else:
-                reason = "signal"
+                reason = self.stop_reason
         finally:
             reader.stop()
             self._cycle(writer, ingest)

@@ -19,7 +19,7 @@ import sqlite3
 from importlib import resources
 from pathlib import Path
 
-__all__ = ["SCHEMA_VERSION", "LogError", "LogLocked", "schema_sql"]
+__all__ = ["SCHEMA_VERSION", "LogError", "LogLocked", "LogDamaged", "log_error", "damage_error", "schema_sql"]
 
 SCHEMA_VERSION = 2
 """The schema this firewatch writes and the newest it reads."""
@@ -36,6 +36,31 @@ class LogError(Exception):
 
 class LogLocked(LogError):
     """Another recorder is writing this log."""
+
+
+class LogDamaged(LogError):
+    """SQLite finds the firing log damaged inside its pages (SQLITE_CORRUPT, or a failed integrity check)."""
+
+
+# SQLite's primary result codes (SQLite's documentation, "Result and Error Codes")
+SQLITE_CORRUPT = 11
+SQLITE_NOTADB = 26
+
+
+def log_error(path: Path, exc: sqlite3.Error) -> LogError:
+    """A :class:`LogError` naming ``path`` and what SQLite said; :class:`LogDamaged` when it found damage."""
+    code = (getattr(exc, "sqlite_errorcode", None) or 0) & 0xFF  # the primary code, without the extended bits
+    if code == SQLITE_CORRUPT:
+        return LogDamaged(f"{path}: the firing log is damaged ({exc})")
+    if code == SQLITE_NOTADB:
+        return LogError(f"{path}: not a firing log ({exc})")
+    return LogError(f"{path}: cannot use the firing log ({exc})")
+
+
+def damage_error(path: Path | str, problems: list[str]) -> LogDamaged:
+    """The one-line error for a log whose integrity check found ``problems`` (the first is named)."""
+    listed = f"; {len(problems)} problems listed" if len(problems) > 1 else ""
+    return LogDamaged(f"{path}: the firing log is damaged (SQLite's quick_check: {problems[0]}{listed})")
 
 
 def _connect(path: Path, read_only: bool) -> sqlite3.Connection:

@@ -9,11 +9,13 @@ intact through SIGKILL.
 
 from __future__ import annotations
 
+import errno
 import fcntl
 import os
 import socket
 import sqlite3
 import threading
+import stat
 import time
 from collections.abc import Iterable
 from pathlib import Path
@@ -46,7 +48,7 @@ def take_lock(path: Path, holder: str, wait_brief_s: float = BRIEF_WAIT_S, clock
     LogLocked
         Another process holds the lock; the message names it.
     """
-    fd = os.open(f"{path}.lock", os.O_RDWR | os.O_CREAT, 0o644)
+    fd = _open_lock(Path(f"{path}.lock"))
     deadline: float | None = None
     while True:
         try:
@@ -84,6 +86,34 @@ def _upgrade(con: sqlite3.Connection) -> None:
     if "heartbeat_utc" not in columns:
         con.execute("ALTER TABLE session ADD COLUMN heartbeat_utc REAL")
     con.execute("UPDATE meta SET value = ? WHERE key = 'schema_version'", (str(SCHEMA_VERSION),))
+
+
+def _open_lock(path: Path) -> int:
+    """Open (or create) the lock file without following a link, and only if it is a file of its own.
+
+    The writer truncates and rewrites its lock file, so a symbolic link planted at ``FILE.db.lock``
+    would make it overwrite the link's target, and so would a hard link to another file.
+    ``O_NOFOLLOW`` refuses the link (``open(2)`` fails with ELOOP); the checks on the opened file
+    refuse anything but a regular file with one name. ``O_NONBLOCK`` keeps a FIFO or device
+    planted there from blocking the open.
+    """
+    flags = os.O_RDWR | os.O_CREAT | os.O_NOFOLLOW | os.O_NONBLOCK | os.O_CLOEXEC
+    try:
+        fd = os.open(path, flags, 0o644)
+    except OSError as exc:
+        if exc.errno == errno.ELOOP or path.is_symlink():
+            raise LogError(f"{path} is a symbolic link; firewatch does not write through one (remove it if it is stale)") from None
+        raise LogError(f"{path}: cannot open the lock file ({exc.strerror})") from None
+    st = os.fstat(fd)
+    problem = None
+    if not stat.S_ISREG(st.st_mode):
+        problem = "is not a regular file"
+    elif st.st_nlink != 1:
+        problem = f"has {st.st_nlink} names (hard links); firewatch writes only a lock file of its own"
+    if problem is not None:
+        os.close(fd)
+        raise LogError(f"{path} {problem}; remove it and start again")
+    return fd
 
 
 class LogWriter:
@@ -127,6 +157,8 @@ class LogWriter:
         self._clock = clock_fn
         if self.path.parent and not self.path.parent.exists():
             raise LogError(f"{self.path}: directory {self.path.parent} does not exist")
+        if self.path.exists() and not self.path.is_file():
+            raise LogError(f"{self.path}: not a regular file, so not a firing log")
         self._lock_fd = take_lock(self.path, f"pid {os.getpid()} on {socket.gethostname()}")
         try:
             self._open(channels, site_name, kiln, site_text, schedule_name, schedule_text, clock, port, durable)

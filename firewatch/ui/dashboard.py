@@ -27,6 +27,8 @@ from textual.widgets import Footer, Static, TabbedContent, TabPane
 
 from firewatch.services.desk import Outcome
 from firewatch.store.view import FIRING_ENDED, LIVE, NO_DATA, FiringView, Moment
+from firewatch.store._common import LogDamaged
+from firewatch.store.view import FiringView, Moment
 from firewatch.ui import format as fmt
 from firewatch.ui.screens import HelpScreen, NoteScreen, ShelveScreen
 from firewatch.ui.widgets import AlarmList, ChartData, EventList, ReadingsPanel, SchedulePanel, TrendChart
@@ -194,6 +196,13 @@ class DashboardScreen(Screen):
                 settled = desk.follow_up() if desk is not None and desk.waiting else []
                 if settled:
                     self.post_message(ActionsSettled(settled))
+            except LogDamaged as exc:  # nothing true can be shown: end with the message (the command prints it)
+                fail = getattr(self.app, "fail", None)
+                try:
+                    self.app.call_from_thread(fail or self.app.exit, *((str(exc),) if fail else ()))
+                except RuntimeError:
+                    pass
+                return
             except Exception as exc:  # a busy or vanished log: say so, keep polling
                 if self._stop.is_set():
                     return
