@@ -251,7 +251,7 @@ class ProgressTracker:
 
     def _place(self, temp: float, direction: int, silence_s: float | None) -> tuple[int, bool] | None:
         """The first ramp or hold, from the current one on, that fits the kiln and that the program
-        could have reached in the silence; None when none fits."""
+        could have reached in the silence; the current one when none fits (None when the schedule is done)."""
         positions = self._positions()
         if self._before is not None and self.start_t is not None:
             least_now = self._planned_elapsed(self._before[0], self._before[1], least=True)
@@ -264,7 +264,7 @@ class ProgressTracker:
                     break
             if self._fits(j, hold, temp, direction, current=k == 0):
                 return j, hold
-        return None
+        return positions[0] if positions else None  # nothing fits: no reason to move on
 
     def _try_resume(self) -> bool:
         """Place the kiln from the readings since the start or silence; False while they cannot yet tell."""
@@ -293,8 +293,6 @@ class ProgressTracker:
             planned_before = self._planned_elapsed(self._before[0], self._before[1])
         if self.start_t is None:
             self.start_t = t_a
-            if place is None:
-                place = (0, False)
         if place is not None and place != current:
             j, hold = place
             if not (hold and current is not None and current == (j, False)):

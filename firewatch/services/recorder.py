@@ -525,7 +525,7 @@ class Recorder:
         ingest.dropped += overflow.lines
         detail = (
             f"{overflow.lines} lines ({overflow.bytes} bytes) received from {self.url} were dropped: the line queue "
-            f"was full ({self._queue.max_bytes // (1024 * 1024)} MiB), input came faster than it could be recorded"
+            f"was full ({self._queue.max_bytes / 2**20:.3g} MiB), input came faster than it could be recorded"
         )
         writer.event(ingest.timeline(overflow.first), "overflow", detail)
         if time.monotonic() - self._overflow_said >= 60.0:
