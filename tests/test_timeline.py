@@ -80,7 +80,7 @@ def test_an_outlier_at_the_end_of_a_batch_waits_for_the_next_batch() -> None:
     batches = run(pipeline, stamps, batch_size=10, final=False)
     assert [s[4] for s in batches[0].samples] == list(range(9))  # the outlier is held, not yet written
     assert [r[3] for r in batches[0].raw if not r[2]] == []
-    times, seqs, reasons, _ = summary(batches)
+    _, seqs, reasons, _ = summary(batches)
     assert seqs == [i for i in range(20) if i != 9] and len(reasons) == 1
     # every line comes out once: raw lines in arrival order
     assert [int(r[1].split(b" ")[1]) for b in batches for r in b.raw] == list(range(20))
@@ -114,7 +114,7 @@ def test_lines_in_steps_up_to_jump_s_are_in_step() -> None:
 def test_the_first_lines_wait_for_confirmation_and_an_early_outlier_is_dropped() -> None:
     stamps = [(T0, T0 + DAY)] + steady(10, start=1)
     pipeline = Pipeline(SITE, SCHEDULE, "device")
-    times, seqs, reasons, gaps = summary(run(pipeline, stamps))
+    times, seqs, reasons, _ = summary(run(pipeline, stamps))
     assert seqs == list(range(1, 11)) and len(reasons) == 1 and "out of step with the lines after it" in reasons[0]
     assert times[0] == T0 + 1  # the time line did not start a day ahead
     # lines held at the very start with nothing to contradict them begin the time line at the end

@@ -31,7 +31,6 @@ from firewatch.settings.schedule import Schedule
 from firewatch.transport.generic import ChannelMap, GenericParser
 from firewatch.transport.native import NativeParser
 from firewatch.transport.ports import PortEvent, PortReader, PortSettings
-from firewatch.transport.records import Malformed, ReadingSet
 
 __all__ = ["Ingest", "LineQueue", "Overflow", "Recorder", "make_parser", "GAP_S", "SQLITE_WAL_FIX", "QUEUE_BYTES", "BATCH_LINES"]
 
@@ -518,7 +517,6 @@ class Recorder:
         done = self.clock_fn()
         if lines and len(self.latencies) < 2_000_000:
             self.latencies.extend(done - received for received, _ in lines)
-
 
     def _overflowed(self, writer: LogWriter, ingest: Ingest, overflow: Overflow) -> None:
         """Log lines the full queue refused: an event each time, a word on the terminal at most once a minute."""

@@ -17,6 +17,7 @@ from pathlib import Path
 from firewatch.services.recorder import ITEM_BYTES, Recorder
 from firewatch.settings.profile import load_site, profiles_dir
 from firewatch.settings.schedule import load_schedule
+from firewatch.store._common import LogError
 from firewatch.store.reader import LogReader
 from firewatch.transport.native import crc16
 
@@ -35,7 +36,7 @@ def query(log: Path, sql: str) -> list[tuple]:
     try:
         with LogReader(log) as r:
             return r.query(sql)
-    except Exception:  # not yet created, or mid-creation: the caller waits
+    except (LogError, sqlite3.Error):  # not yet created, or mid-creation: the caller waits
         return []
 
 
