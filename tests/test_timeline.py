@@ -26,7 +26,7 @@ LEAN = load_site("lean.toml", text='[site]\nname = "Bench"\n[[cold_junction]]\nn
                  '[[thermocouple]]\nname = "tc1"\ntype = "K"\ncold_junction = "cj"\n')
 SCHEDULE = load_schedule(profiles_dir() / "demo-glaze.toml")
 PARSER = NativeParser()
-T0 = 1_773_464_400.0  # 2026-03-14T05:00:00Z, the simulator's default start (common practice, no source)
+T0 = 1_773_464_400.0  # an arbitrary moment, 2026-03-14T05:00:00Z
 DAY = 86_400.0
 
 

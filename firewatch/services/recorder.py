@@ -43,7 +43,8 @@ SQLITE_WAL_FIX = (3, 51, 3)
 
 QUEUE_BYTES = 64 * 1024 * 1024
 """Bound of the line queue between the port reader and the recorder, bytes (lines plus
-:data:`ITEM_BYTES` each): hours of any kiln's input, while a flood of input costs no more."""
+:data:`ITEM_BYTES` each): about half an hour of 16 channels at 100 lines/s, days at 1 line/s, while a
+flood of input costs no more."""
 ITEM_BYTES = 120
 """What a queued line costs beyond its bytes (the tuple, the float, the bytes object's header)."""
 BATCH_LINES = 20_000
