@@ -81,7 +81,9 @@ def test_restart_in_segment_three_resumes_there(tmp_path: Path) -> None:
         assert SCHEDULE.segments[QUARTZ].name == "quartz inversion" and 540.0 < temp < 620.0
         rec = firewatch("record", "--port", f"socket://127.0.0.1:{port}", "--log", str(log), "--clock", "device")
         wait_for(lambda: (latest(log, "tc1") or (0.0, None))[0] > killed_t + 3600.0, timeout=60)
-        first = sqlite3.connect(f"file:{log}?mode=ro", uri=True).execute("SELECT min(t) FROM sample WHERE t > ?", (killed_t,)).fetchone()[0]
+        con = sqlite3.connect(f"file:{log}?mode=ro", uri=True)
+        first = con.execute("SELECT min(t) FROM sample WHERE t > ?", (killed_t,)).fetchone()[0]
+        con.close()
         wait_for(lambda: latest(log, "tc1")[0] > first + 120.0, timeout=60)  # two minutes of data after the restart
     finally:
         if rec is not None:
