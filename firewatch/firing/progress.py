@@ -312,7 +312,13 @@ class ProgressTracker:
         return True
 
     def update(self, times: np.ndarray, temps: np.ndarray, rates: np.ndarray) -> dict[str, np.ndarray]:
-        """Feed readings (degC and degC/h of the control thermocouple); return the plan.* arrays."""
+        """Feed readings (degC and degC/h of the control thermocouple); return the plan.* arrays.
+
+        The arrays are NaN where the tracker has not placed the kiln: before the
+        first temperature, and after a start or a silence of more than
+        ``resume_gap_s`` until the readings tell where the kiln is (at most
+        :data:`SETTLE_S` of them).
+        """
         n = len(times)
         out = {name: np.full(n, np.nan) for name, _, _ in PLAN_CHANNELS}
         remaining = behind = math.nan
