@@ -155,6 +155,7 @@ def to_log(sim: Simulation, log_path: Path, progress: Callable[[float], None] | 
                         progress(sim.t)
         if pending:
             ingest.feed(pending)
+        ingest.flush()
         engine.tick(sim.scenario.start_utc + sim.t)
         writer.event(sim.scenario.start_utc + sim.t, "stop", f"simulation ended after {sim.t / 3600:.2f} h")
     finally:

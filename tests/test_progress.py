@@ -73,3 +73,76 @@ def test_restart_mid_firing_skips_passed_segments() -> None:
     t = np.arange(0.0, 600.0, 10.0)
     out = tracker.update(t, np.full(t.size, 610.0), np.full(t.size, 50.0))
     assert out["plan.segment"][-1] == 1  # already past 520: in the "top" ramp
+
+
+# -- issue 10: no input ends the recorder; a restart resumes the schedule where the kiln is ---------------
+
+
+def test_open_control_thermocouple_then_a_value_in_one_batch() -> None:
+    """Issue 10: OPEN in a fresh tracker's first readings, then values in the same batch, raised
+    UnboundLocalError (the prediction was computed only on every 10th reading)."""
+    t = np.arange(0.0, 60.0)
+    temp = np.where(t < 3, np.nan, 20.0 + t / 3600 * 100)
+    out = ProgressTracker(SCHED).update(t, temp, np.full(t.size, np.nan))
+    placed = np.isfinite(out["plan.segment"])
+    assert not placed[:3].any()  # no temperature: no place in the schedule
+    assert placed.any() and set(out["plan.segment"][placed]) == {0.0}
+    # every placed reading has its prediction, the first one included
+    assert np.isfinite(out["plan.remaining"][placed]).all() and np.isfinite(out["plan.behind"][placed]).all()
+
+
+def _on_plan(t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    temp = SCHED.planned_temperature(t)
+    return temp, np.gradient(temp, t) * 3600
+
+
+def test_silence_across_a_hold_resumes_in_the_next_ramp() -> None:
+    """Issue 10 item 7: a restart after the kiln had finished a hold showed the hold starting anew."""
+    tracker = ProgressTracker(SCHED)
+    before = np.arange(0.0, 4.5 * 3600, 10.0)  # ramp 0 to 470 degC
+    feed(tracker, before, *_on_plan(before))
+    after = np.arange(6.3 * 3600, 6.6 * 3600, 10.0)  # the hold ended at 6 h; the kiln climbs the "top" ramp
+    temp, _ = _on_plan(after)
+    out = feed(tracker, after, temp, np.full(after.size, np.nan))  # the trailing rate is not back yet
+    seg, hold = out["plan.segment"], out["plan.hold"]
+    placed = np.isfinite(seg)
+    assert placed[after - after[0] <= 60].any()  # placed within a minute of data
+    assert set(seg[placed]) == {1.0} and np.isnan(hold[placed]).all()  # never "segment 0 holding"
+
+
+def test_silence_ending_inside_a_hold_times_it_from_the_plan() -> None:
+    tracker = ProgressTracker(SCHED)
+    before = np.arange(0.0, 4.5 * 3600, 10.0)
+    feed(tracker, before, *_on_plan(before))
+    after = np.arange(5.5 * 3600, 5.6 * 3600, 10.0)
+    out = feed(tracker, after, np.full(after.size, 520.0), np.full(after.size, np.nan))
+    placed = np.isfinite(out["plan.segment"])
+    assert set(out["plan.segment"][placed]) == {0.0}
+    # at 4.5 h the kiln was 0.9 of the way up a 5 h ramp: the plan has it arrive at 5 h (arithmetic),
+    # so at 5.6 h it has held for 0.6 h
+    assert out["plan.hold"][-1] == pytest.approx(0.6 * 3600 - 10.0, abs=1.0)
+
+
+def test_a_kiln_cooling_in_a_short_silence_is_not_moved_ahead_of_its_program() -> None:
+    tracker = ProgressTracker(SCHED)
+    before = np.arange(0.0, 6.6 * 3600, 10.0)  # into the "top" ramp (520 -> 620 at 50 degC/h)
+    feed(tracker, before, *_on_plan(before))
+    assert tracker.segment == 1
+    after = np.arange(6.6 * 3600 + 600, 6.6 * 3600 + 1200, 10.0)
+    temp = 545.0 - (after - after[0]) / 3600 * 100  # falling at 100 degC/h, as if the elements failed
+    out = feed(tracker, after, temp, np.full(after.size, -100.0))
+    # the "down" ramp fits a falling kiln, but the program needs 1.5 h more to get there: still "top"
+    assert set(out["plan.segment"][np.isfinite(out["plan.segment"])]) == {1.0}
+
+
+def test_started_inside_a_hold_waits_for_the_direction_then_holds() -> None:
+    """Started at the hold temperature, the kiln may be holding or already climbing: the first
+    readings tell (before, the tracker skipped the hold)."""
+    t = np.arange(0.0, 120.0, 2.0)
+    out = ProgressTracker(SCHED).update(t, np.full(t.size, 520.5), np.full(t.size, np.nan))
+    seg = out["plan.segment"]
+    assert np.isnan(seg[t < 30]).all()  # holding (steady) or climbing the next ramp: not yet known
+    assert set(seg[t >= 30]) == {0.0} and np.isfinite(out["plan.hold"][t >= 30]).all()
+    climbing = 520.5 + t / 3600 * 50
+    out = ProgressTracker(SCHED).update(t, climbing, np.full(t.size, np.nan))
+    assert set(out["plan.segment"][t >= 30]) == {1.0}

@@ -19,6 +19,19 @@ name                    unit    what
 ``<py>.divergence``     K       reconciled minus the reference thermocouple
 ``<py>.allowed``        K       k times the combined standard uncertainty
 ======================= ======= ==============================================
+
+The firing's time line
+----------------------
+Each line's own time is the device's (``clock = "device"``, where the line
+carries one) or the moment it was received. A line is *in step* when its
+time is not before the last accepted line's and not further ahead than the
+wall-clock time between the two plus :data:`JUMP_S`. A line out of step is
+held until the lines after it decide: if the next line is in step with the
+lines before, the held line was an outlier (kept raw, counted, reported as
+malformed, never a sample); if :data:`CONFIRM` lines follow in step with it,
+the clock really jumped and a new *stretch* begins, recorded as a gap. A
+clock that went back (a device reset) is shifted so that the time line
+still runs forward. See docs/line-format.md.
 """
 
 from __future__ import annotations
@@ -42,7 +55,14 @@ from firewatch.settings.schedule import Schedule
 from firewatch.transport.records import Malformed, ReadingSet, Status
 from firewatch.firing.rates import TrailingSlope
 
-__all__ = ["Batch", "Pipeline", "ChannelInfo", "channel_table"]
+__all__ = ["Batch", "Pipeline", "ChannelInfo", "channel_table", "JUMP_S", "CONFIRM"]
+
+JUMP_S = 10.0
+"""How far a line's time may run ahead of the last accepted line's beyond the wall-clock time between
+them, s, before it is held as out of step (ten 1 Hz lines; a larger step of the device clock needs
+confirming)."""
+CONFIRM = 2
+"""Lines that must follow an out-of-step line, in step with it, before it starts a new stretch."""
 
 
 @dataclass(frozen=True)
@@ -91,6 +111,8 @@ class Batch:
     values: dict[str, np.ndarray] = field(default_factory=dict)
     status: dict[str, np.ndarray] = field(default_factory=dict)
     events: list[tuple[float, str, str | None, str]] = field(default_factory=list)
+    gaps: list[tuple[float, float, str]] = field(default_factory=list)
+    """Gaps the time line itself shows (a new stretch of the clock): start, end, reason."""
 
     @property
     def times(self) -> np.ndarray:
@@ -105,17 +127,17 @@ def to_columns(items: list[ReadingSet | Malformed], channels: tuple[str, ...], c
     """Gather parsed lines into a :class:`Batch` of raw lines, samples and per-channel arrays.
 
     Stateless, so that it can run in another process (replay does); the
-    pipeline then checks time order and computes everything else.
+    pipeline then places the lines on the time line, reports the malformed
+    ones and computes everything else.
     """
     batch = Batch()
-    raw, samples, events = batch.raw, batch.samples, batch.events
+    raw, samples = batch.raw, batch.samples
     device = clock == "device"
     wanted = set(channels)
     sets: list[ReadingSet] = []
     for item in items:
         if type(item) is Malformed:
             raw.append((item.received, item.raw, False, item.reason))
-            events.append((item.received, "malformed", None, item.reason))
             continue
         received, device_time = item.received, item.device_time
         t = device_time if device and device_time is not None else received
@@ -134,6 +156,36 @@ def to_columns(items: list[ReadingSet | Malformed], channels: tuple[str, ...], c
     batch.values = {name: np.array(vals[name], dtype=float) for name in wanted}
     batch.status = {name: np.array(stats[name], dtype=np.int64) for name in wanted}
     return batch
+
+
+def _join(a: Batch, b: Batch) -> Batch:
+    """Lines held from one batch followed by the next batch's (columns not yet computed)."""
+    shift = len(a.raw)
+    out = Batch(
+        raw=a.raw + b.raw,
+        samples=a.samples + [(s[0] + shift, *s[1:]) for s in b.samples],
+        events=a.events + b.events,
+    )
+    for name in set(a.values) | set(b.values):
+        out.values[name] = np.concatenate([part.values[name] for part in (a, b) if name in part.values])
+        out.status[name] = np.concatenate([part.status[name] for part in (a, b) if name in part.status])
+    return out
+
+
+def _split(batch: Batch, first_sample: int) -> Batch:
+    """Cut off the lines from sample ``first_sample`` on (and every raw line after it) into a new batch."""
+    cut = batch.samples[first_sample][0]
+    rest = Batch(
+        raw=batch.raw[cut:],
+        samples=[(s[0] - cut, *s[1:]) for s in batch.samples[first_sample:]],
+        values={k: v[first_sample:] for k, v in batch.values.items()},
+        status={k: v[first_sample:] for k, v in batch.status.items()},
+    )
+    batch.raw = batch.raw[:cut]
+    batch.samples = batch.samples[:first_sample]
+    batch.values = {k: v[:first_sample] for k, v in batch.values.items()}
+    batch.status = {k: v[:first_sample] for k, v in batch.status.items()}
+    return rest
 
 
 class Pipeline:
@@ -168,38 +220,173 @@ class Pipeline:
         self._rates = {tc.name: TrailingSlope(site.alarms.rate_window_s) for tc in site.thermocouples}
         self._last_t = -math.inf
         self._fallback_noted: set[str] = set()
+        self._anchor: tuple[float, float, float] | None = None
+        """The last accepted line: its own time, when it was received, its place on the time line."""
+        self._offset = 0.0
+        """Time line minus the line's own time in the current stretch."""
+        self._held: Batch | None = None
+        """Trailing lines out of step, waiting for the lines after them to decide."""
 
     # -- parsing to arrays ------------------------------------------------------------
     def process(self, items: list[ReadingSet | Malformed]) -> Batch:
         """Convert and reconcile one batch of parsed lines."""
         return self.process_columns(to_columns(items, self.site.channel_names, self.clock))
 
-    def process_columns(self, cols: Batch) -> Batch:
+    def process_columns(self, cols: Batch, final: bool = False) -> Batch:
         """Like :meth:`process`, from lines already gathered into columns by :func:`to_columns`
-        (which may run in another process)."""
-        batch = cols
+        (which may run in another process).
+
+        Lines out of step on the time line are held back to the next call;
+        ``final`` decides them with what is known (see :meth:`flush`).
+        """
+        # the lines held stay held until this batch is through, so that a failure loses none
+        batch = cols if self._held is None else _join(self._held, cols)
+        held = None
+        shift = 0.0 if self._anchor is None else self._anchor[2] - self._anchor[1]
+        times = np.empty(0)
         if batch.samples:
-            times = np.fromiter((s[1] for s in batch.samples), dtype=float, count=len(batch.samples))
-            floor = np.maximum.accumulate(np.concatenate([[self._last_t], times]))[:-1]
-            back = times < floor
-            if back.any():
-                keep = ~back
-                for i in np.flatnonzero(back):
+            times, outliers, held_from = self._place_in_time(batch, final)
+            if held_from is not None:
+                held = _split(batch, held_from)
+                times = times[:held_from]
+            if outliers:
+                keep = np.ones(times.size, dtype=bool)
+                for i, reason in outliers:
+                    keep[i] = False
                     raw_i = batch.samples[i][0]
                     r = batch.raw[raw_i]
-                    reason = f"time went backwards by {floor[i] - times[i]:.3f} s; line kept raw only"
                     batch.raw[raw_i] = (r[0], r[1], False, reason)
-                    batch.events.append((float(floor[i]), "malformed", None, reason))
                 batch.samples = [s for s, k in zip(batch.samples, keep) if k]
                 batch.values = {k: v[keep] for k, v in batch.values.items()}
                 batch.status = {k: v[keep] for k, v in batch.status.items()}
                 times = times[keep]
+            batch.samples = [(s[0], t, *s[2:]) for s, t in zip(batch.samples, times.tolist())]
             if times.size:
                 self._last_t = float(times[-1])
+                shift = self._anchor[2] - self._anchor[1] if self._anchor is not None else 0.0
+        # every line kept raw only is reported, at its place on the time line
+        batch.events[:0] = [(r[0] + shift, "malformed", None, r[3]) for r in batch.raw if not r[2]]
+        if batch.samples:
             self._cols = {name: (batch.values[name], batch.status[name]) for name in batch.values}
             batch.values, batch.status = {}, {}
             self._compute_arrays(times, batch)
+        else:
+            batch.values, batch.status = {}, {}
+        self._held = held
         return batch
+
+    def held_raw(self) -> list[tuple[float, bytes, bool, str]]:
+        """The raw lines held back for the lines after them (not yet in any returned batch)."""
+        return [] if self._held is None else list(self._held.raw)
+
+    def drop_held(self) -> None:
+        """Forget the held lines (their caller keeps them raw after a failed batch)."""
+        self._held = None
+
+    def flush(self) -> Batch:
+        """Decide the lines still held (at the end of a recording or replay) and return them as a batch.
+
+        Held lines that a stretch already recorded contradicts, and no line
+        confirmed, are kept raw only; lines held at the very start, with
+        nothing before them, begin the time line.
+        """
+        if self._held is None:
+            return Batch()
+        return self.process_columns(Batch(), final=True)
+
+    def _place_in_time(self, batch: Batch, final: bool) -> tuple[np.ndarray, list[tuple[int, str]], int | None]:
+        """Each sample's place on the time line (NaN where not placed), the outliers with their reason,
+        and the first sample held back for the lines after it (None when none is)."""
+        own = np.fromiter((s[1] for s in batch.samples), dtype=float, count=len(batch.samples))
+        received = np.fromiter((s[2] for s in batch.samples), dtype=float, count=len(batch.samples))
+        n = own.size
+        times = np.full(n, np.nan)
+        start = 0
+        if self._anchor is not None:
+            # the common case, vectorised: every line in step with the one before
+            a_own, a_recv, _ = self._anchor
+            steps = np.diff(own, prepend=a_own)
+            slack = np.maximum(np.diff(received, prepend=a_recv), 0.0) + JUMP_S
+            ok = (steps >= 0.0) & (steps <= slack)
+            start = n if ok.all() else int(np.argmin(ok))
+            if start:
+                times[:start] = own[:start] + self._offset
+                self._anchor = (float(own[start - 1]), float(received[start - 1]), float(times[start - 1]))
+        elif self.clock != "device":
+            # the computer's own clock starts the time line as it is
+            times[0] = own[0]
+            self._anchor = (float(own[0]), float(received[0]), float(own[0]))
+            start = 1
+        outliers: list[tuple[int, str]] = []
+        gaps: list[tuple[float, float, str]] = []
+        jumps: list[tuple[float, str]] = []
+        pending: list[int] = []
+        what = "device time" if self.clock == "device" else "time of receipt"
+
+        def in_step(a: tuple[float, float] | int, k: int) -> bool:
+            a_own, a_recv = (own[a], received[a]) if isinstance(a, int) else a
+            step = own[k] - a_own
+            return 0.0 <= step <= max(received[k] - a_recv, 0.0) + JUMP_S
+
+        def accept(k: int) -> None:
+            times[k] = own[k] + self._offset
+            self._anchor = (float(own[k]), float(received[k]), float(times[k]))
+
+        def reject(ks: list[int], why: str) -> None:
+            for k in ks:
+                if self._anchor is None:
+                    outliers.append((k, f"{what} out of step with the lines after it; kept raw only ({why})"))
+                    continue
+                step = own[k] - self._anchor[0]
+                where = f"{step:.3f} s ahead of" if step >= 0 else f"{-step:.3f} s behind"
+                outliers.append((k, f"{what} {where} the line before ({why}); kept raw only"))
+
+        def new_stretch(ks: list[int]) -> None:
+            k0 = ks[0]
+            if self._anchor is not None:
+                a_own, a_recv, a_t = self._anchor
+                step = own[k0] - a_own
+                if step < 0:
+                    # the clock went back (a reset): shift it so that the time line runs on,
+                    # and record the gap, which the time line alone would not show
+                    self._offset = a_t + max(received[k0] - a_recv, 0.0) - own[k0]
+                    gaps.append((a_t, float(own[k0] + self._offset), f"{what} went back {-step:.3f} s: a new stretch"))
+                else:
+                    # ahead: the time line shows the gap, recorded like any silence
+                    jumps.append((float(own[k0] + self._offset), f"{what} jumped {step:.3f} s ahead in {max(received[k0] - a_recv, 0.0):.3f} s of receipt: a new stretch"))
+            for k in ks:
+                accept(k)
+
+        for k in range(start, n):
+            if not pending:
+                if self._anchor is not None and in_step(self._anchor[:2], k):
+                    accept(k)
+                else:
+                    pending = [k]
+                continue
+            if self._anchor is not None and in_step(self._anchor[:2], k):
+                reject(pending, "the line after it is in step with the lines before")
+                pending = []
+                accept(k)
+            elif in_step(pending[-1], k):
+                pending.append(k)
+                if len(pending) > CONFIRM:
+                    new_stretch(pending)
+                    pending = []
+            else:
+                reject(pending, "the lines after it do not follow it")
+                pending = [k]
+        held_from = None
+        if pending:
+            if not final:
+                held_from = pending[0]
+            elif self._anchor is None:
+                new_stretch(pending)
+            else:
+                reject(pending, "not confirmed before the lines ended")
+        batch.gaps.extend(gaps)
+        batch.events.extend((t, "clock", None, why) for t, why in jumps)
+        return times, outliers, held_from
 
     def _time_for(self, received: float, device_time: float | None) -> float:
         if self.clock == "device" and device_time is not None:
@@ -246,8 +433,17 @@ class Pipeline:
                 out_v[name] = values
                 out_s[name] = np.where(np.isfinite(values), int(Status.OK), int(Status.MISSING))
 
-    def warm_start(self, times: np.ndarray, values: dict[str, np.ndarray]) -> None:
-        """Bring trends and progress up to date from readings already in a continued log (no output)."""
+    def warm_start(self, times: np.ndarray, values: dict[str, np.ndarray], last: tuple[float, float, float | None] | None = None) -> None:
+        """Bring trends and progress up to date from readings already in a continued log (no output).
+
+        ``last`` is the log's last sample: its place on the time line, when
+        it was received and its device time; the time line goes on from it.
+        """
+        if last is not None:
+            t, received, device_time = last
+            own = device_time if self.clock == "device" and device_time is not None else received
+            self._anchor = (float(own), float(received), float(t))
+            self._offset = float(t) - float(own)
         for tc in self.site.thermocouples:
             if tc.name in values:
                 self._rates[tc.name].update(times, values[tc.name])
@@ -271,6 +467,8 @@ class Pipeline:
         n = times.size
         shown, status = self._column(py.name)
         band, band2 = self._bands[py.name]
+        # below absolute zero no radiance exists to invert: out of range, not a numpy warning
+        status = np.where((status == Status.OK) & ~(shown > -273.15), int(Status.OUT_OF_RANGE), status)
         ok = status == Status.OK
         indicated = np.where(ok, shown, np.nan)
         accuracy = np.maximum(py.accuracy_c, py.accuracy_percent / 100.0 * np.abs(np.nan_to_num(indicated))) / math.sqrt(3.0)

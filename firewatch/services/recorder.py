@@ -10,13 +10,15 @@ and records the gap.
 from __future__ import annotations
 
 import json
-import queue
 import signal
 import sqlite3
 import sys
 import threading
 import time
+import traceback
+from collections import deque
 from collections.abc import Callable
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -30,9 +32,9 @@ from firewatch.settings.schedule import Schedule
 from firewatch.transport.generic import ChannelMap, GenericParser
 from firewatch.transport.native import NativeParser
 from firewatch.transport.ports import PortEvent, PortReader, PortSettings
-from firewatch.transport.records import Malformed, ReadingSet
 
-__all__ = ["Ingest", "Recorder", "make_parser", "GAP_S", "SQLITE_WAL_FIX", "sqlite_note", "AlarmLog", "attach_alarms"]
+__all__ = ["Ingest", "LineQueue", "Overflow", "Recorder", "make_parser", "GAP_S", "SQLITE_WAL_FIX", "QUEUE_BYTES", "BATCH_LINES",
+           "sqlite_note", "AlarmLog", "attach_alarms"]
 
 GAP_S = 5.0
 """A silence longer than this between readings is recorded as a gap, seconds (after a restart or a
@@ -40,6 +42,75 @@ disconnect the gap is recorded whatever its length)."""
 
 SQLITE_WAL_FIX = (3, 51, 3)
 """First SQLite release without the WAL-reset bug (SQLite's documentation: 3.7.0 to 3.51.2)."""
+
+QUEUE_BYTES = 64 * 1024 * 1024
+"""Bound of the line queue between the port reader and the recorder, bytes (lines plus
+:data:`ITEM_BYTES` each): about half an hour of 16 channels at 100 lines/s, days at 1 line/s, while a
+flood of input costs no more."""
+ITEM_BYTES = 120
+"""What a queued line costs beyond its bytes (the tuple, the float, the bytes object's header)."""
+BATCH_LINES = 20_000
+"""Most lines parsed and computed at once, so that a backlog is worked off in bounded pieces."""
+ERROR_REPEAT_S = 60.0
+"""A batch failure with the same reason as the last is logged again only after this long, s."""
+
+
+@dataclass(frozen=True)
+class Overflow:
+    """Lines the queue refused since the last drain."""
+
+    lines: int
+    bytes: int
+    first: float
+    last: float
+
+
+class LineQueue:
+    """Lines and port events from the reader thread to the recorder, bounded in bytes (issue 10).
+
+    A line that would take the queue past ``max_bytes`` is refused and
+    counted; :meth:`drain` hands the recorder everything queued with an
+    :class:`Overflow` of what was refused, which it logs as an event. Port
+    events are never refused (there are few).
+    """
+
+    def __init__(self, max_bytes: int = QUEUE_BYTES) -> None:
+        self.max_bytes = max_bytes
+        self._items: deque[tuple[float, bytes] | PortEvent] = deque()
+        self._lock = threading.Lock()
+        self._bytes = 0
+        self._refused = 0
+        self._refused_bytes = 0
+        self._refused_span: tuple[float, float] | None = None
+
+    def put_line(self, received: float, line: bytes) -> None:
+        size = len(line) + ITEM_BYTES
+        with self._lock:
+            if self._bytes + size > self.max_bytes:
+                self._refused += 1
+                self._refused_bytes += len(line)
+                first = received if self._refused_span is None else self._refused_span[0]
+                self._refused_span = (first, received)
+                return
+            self._bytes += size
+            self._items.append((received, line))
+
+    def put_event(self, event: PortEvent) -> None:
+        with self._lock:
+            self._items.append(event)
+
+    def drain(self) -> tuple[list[tuple[float, bytes] | PortEvent], Overflow | None]:
+        """Everything queued, in order, and what was refused since the last drain (None if nothing)."""
+        with self._lock:
+            items = list(self._items)
+            self._items.clear()
+            self._bytes = 0
+            overflow = None
+            if self._refused and self._refused_span is not None:
+                overflow = Overflow(self._refused, self._refused_bytes, *self._refused_span)
+            self._refused = self._refused_bytes = 0
+            self._refused_span = None
+        return items, overflow
 
 
 def sqlite_note(version: str) -> str:
@@ -94,33 +165,105 @@ class Ingest:
         self.pending_reason = "recorder restart" if writer.continuing else None
         self.lines = 0
         self.malformed = 0
+        self.failed_batches = 0
+        """Batches whose processing failed; their lines were kept raw."""
+        self.dropped = 0
+        """Lines refused by a full line queue (counted by the recorder)."""
         self.hooks: list[Callable[[Batch], None]] = []
         self._offset: float | None = None
+        self._last_error: tuple[str, float, int] | None = None
 
     def timeline(self, received: float) -> float:
         """A wall-clock moment on the firing's time line (device time when the clock is the device's)."""
         return received if self._offset is None else received + self._offset
 
+    def counts(self) -> str:
+        """Lines, malformed lines, and any dropped lines or failed batches, for the stop event."""
+        text = f"{self.lines} lines, {self.malformed} malformed"
+        if self.dropped:
+            text += f", {self.dropped} dropped (line queue full)"
+        if self.failed_batches:
+            text += f", {self.failed_batches} batches failed (kept raw)"
+        return text
+
     def feed(self, lines: list[tuple[float, bytes]]) -> Batch:
-        items: list[ReadingSet | Malformed] = [self.parser.parse(line, received) for received, line in lines]
-        batch = self.pipeline.process(items)
-        self.lines += len(items)
+        """Parse, compute and write one batch of lines.
+
+        Nothing in a batch ends the recorder (issue 10): if processing fails,
+        whatever the batch had written is rolled back, its lines are kept
+        raw with the reason, the failure is logged as an event and counted,
+        and the next batch starts afresh. Errors of the database itself
+        (``sqlite3.OperationalError``: a full disk, an I/O error) are left
+        to the caller's commit handling, after the batch is rolled back.
+        """
+        batch = self._guarded(lines, lambda: self.pipeline.process([self.parser.parse(line, received) for received, line in lines]))
+        self.lines += len(lines)
+        return batch
+
+    def flush(self) -> Batch:
+        """Write the lines the pipeline still holds (out of step, awaiting the lines after them): at a stop."""
+        return self._guarded([], self.pipeline.flush)
+
+    def _guarded(self, lines: list[tuple[float, bytes]], compute: Callable[[], Batch]) -> Batch:
+        held = self.pipeline.held_raw()
+        self.writer.execute("SAVEPOINT ingest")
+        try:
+            batch = self._write(compute())
+        except sqlite3.OperationalError:
+            self.writer.execute("ROLLBACK TO ingest")
+            self.writer.execute("RELEASE ingest")
+            raise
+        except Exception as exc:  # noqa: BLE001 - whatever went wrong, the lines are kept and recording goes on
+            self.writer.execute("ROLLBACK TO ingest")
+            self.pipeline.drop_held()
+            batch = self._failed(held + [(received, line, True, "") for received, line in lines], exc)
+        self.writer.execute("RELEASE ingest")
         self.malformed += batch.malformed
+        return batch
+
+    def _write(self, batch: Batch) -> Batch:
         if batch.samples:
             times = batch.times
             last = batch.samples[-1]
             self._offset = last[1] - last[2]
             previous = self.writer.last_t
+            # a new stretch of the clock (a reset) is a gap in its own right
+            stretch_ends = set()
+            for start, end, why in batch.gaps:
+                self.writer.gap(start, end, f"{self.pending_reason}; {why}" if self.pending_reason and end == times[0] else why)
+                stretch_ends.add(end)
             # after a restart or a disconnect readings were certainly lost: record the
             # gap however short; otherwise only a silence longer than GAP_S is a gap
-            if previous is not None and (times[0] - previous > GAP_S or (self.pending_reason and times[0] > previous)):
-                self.writer.gap(previous, float(times[0]), self.pending_reason or "no data")
+            first = float(times[0])
+            if previous is not None and first not in stretch_ends and (first - previous > GAP_S or (self.pending_reason and first > previous)):
+                self.writer.gap(previous, first, self.pending_reason or "no data")
             steps = np.diff(times)
             for i in np.flatnonzero(steps > GAP_S):
-                self.writer.gap(float(times[i]), float(times[i + 1]), "no data")
+                if float(times[i + 1]) not in stretch_ends:
+                    self.writer.gap(float(times[i]), float(times[i + 1]), "no data")
             self.pending_reason = None
         for hook in self.hooks:
             hook(batch)
+        self.writer.write(batch)
+        return batch
+
+    def _failed(self, lines: list[tuple[float, bytes, bool, str]], exc: Exception) -> Batch:
+        """Keep a failed batch's raw lines (with those the pipeline held), log the failure, count it."""
+        frame = traceback.extract_tb(exc.__traceback__)[-1] if exc.__traceback__ else None
+        where = f" at {Path(frame.filename).name}:{frame.lineno}" if frame else ""
+        message = str(exc).splitlines()[0] if str(exc) else ""
+        reason = (f"{type(exc).__name__}: {message}" if message else type(exc).__name__)[:300] + where
+        raw = [(r[0], r[1], False, r[3] if not r[2] else f"not processed: {reason}") for r in lines]
+        self.failed_batches += 1
+        t = self.timeline(raw[-1][0] if raw else time.time())
+        batch = Batch(raw=raw)
+        last = self._last_error
+        if last is None or last[0] != reason or t - last[1] >= ERROR_REPEAT_S:
+            again = f" ({last[2]} more failed batches since the last report)" if last and last[2] else ""
+            batch.events.append((t, "error", None, f"a batch of {len(raw)} lines could not be processed ({reason}); its lines are kept raw, recording goes on{again}"))
+            self._last_error = (reason, t, 0)
+        else:
+            self._last_error = (last[0], last[1], last[2] + 1)
         self.writer.write(batch)
         return batch
 
@@ -156,6 +299,7 @@ class Recorder:
         out=sys.stderr,
         mqtt_url: str | None = None,
         verbose: bool = False,
+        queue_bytes: int = QUEUE_BYTES,
     ) -> None:
         self.url = url
         self.site = site
@@ -175,7 +319,8 @@ class Recorder:
         self.publisher = None
         self._handed = 0
         self.latencies: list[float] = []
-        self._queue: queue.Queue[tuple[float, bytes] | PortEvent] = queue.Queue()
+        self._queue = LineQueue(queue_bytes)
+        self._overflow_said = -float("inf")
 
     def _say(self, text: str) -> None:
         try:
@@ -242,8 +387,8 @@ class Recorder:
         inp = self.site.input
         reader = PortReader(
             self.url,
-            on_line=lambda received, line: self._queue.put((received, line)),
-            on_event=self._queue.put,
+            on_line=self._queue.put_line,
+            on_event=self._queue.put_event,
             settings=PortSettings(inp.baudrate, inp.bytesize, inp.parity, inp.stopbits),
             clock=self.clock_fn,
         )
@@ -262,13 +407,14 @@ class Recorder:
         finally:
             reader.stop()
             self._cycle(writer, ingest)
+            ingest.flush()
             if self.publisher is not None:
                 self.publisher.close()
                 self._mqtt_cycle(writer, ingest.timeline(self.clock_fn()))
                 writer.commit()
             lat = np.array(self.latencies) if self.latencies else np.zeros(1)
             detail = (
-                f"{reason}; {ingest.lines} lines, {ingest.malformed} malformed; commit latency "
+                f"{reason}; {ingest.counts()}; commit latency "
                 f"p50 {np.percentile(lat, 50):.3f} s, p99 {np.percentile(lat, 99):.3f} s"
             )
             writer.event(ingest.timeline(self.clock_fn()), "stop", detail)
@@ -343,14 +489,17 @@ class Recorder:
 
     def _cycle(self, writer: LogWriter, ingest: Ingest) -> None:
         lines: list[tuple[float, bytes]] = []
-        while True:
-            try:
-                item = self._queue.get_nowait()
-            except queue.Empty:
-                break
+        drained: list[tuple[float, bytes]] = []
+        items, overflow = self._queue.drain()
+        for item in items:
+            if len(lines) >= BATCH_LINES:  # a backlog is worked off in bounded pieces
+                ingest.feed(lines)
+                drained += lines
+                lines = []
             if isinstance(item, PortEvent):
                 if lines:  # keep order: lines before an event are written first
                     ingest.feed(lines)
+                    drained += lines
                     lines = []
                 writer.event(ingest.timeline(item.t), item.kind, item.detail)
                 if item.kind == "disconnect":
@@ -364,6 +513,10 @@ class Recorder:
                 lines.append(item)
         if lines:
             ingest.feed(lines)
+            drained += lines
+        if overflow is not None:
+            self._overflowed(writer, ingest, overflow)
+        lines = drained
         now = ingest.timeline(self.clock_fn())
         self.engine.tick(now)
         self._apply_actions(writer, now)
@@ -374,6 +527,18 @@ class Recorder:
         done = self.clock_fn()
         if lines and len(self.latencies) < 2_000_000:
             self.latencies.extend(done - received for received, _ in lines)
+
+    def _overflowed(self, writer: LogWriter, ingest: Ingest, overflow: Overflow) -> None:
+        """Log lines the full queue refused: an event each time, a word on the terminal at most once a minute."""
+        ingest.dropped += overflow.lines
+        detail = (
+            f"{overflow.lines} lines ({overflow.bytes} bytes) received from {self.url} were dropped: the line queue "
+            f"was full ({self._queue.max_bytes / 2**20:.3g} MiB), input came faster than it could be recorded"
+        )
+        writer.event(ingest.timeline(overflow.first), "overflow", detail)
+        if time.monotonic() - self._overflow_said >= 60.0:
+            self._overflow_said = time.monotonic()
+            self._say(f"{detail}; {ingest.dropped} dropped so far")
 
 
 class AlarmLog:
@@ -455,5 +620,6 @@ def warm_start(pipeline: Pipeline, writer: LogWriter) -> int:
             values[name] = arr[:, 1]
     if times is None:
         return 0
-    pipeline.warm_start(times, values)
+    last = writer.execute("SELECT t, received_utc, device_time FROM sample ORDER BY id DESC LIMIT 1").fetchone()
+    pipeline.warm_start(times, values, None if last is None else (float(last[0]), float(last[1]), last[2]))
     return int(times.size)

@@ -108,9 +108,13 @@ def _reevaluate(reader: LogReader, site: SiteProfile, schedule: Schedule | None)
     pipeline = Pipeline(site, schedule, clock)
     engine = AlarmEngine(site, schedule)
     result = Reevaluation(engine, None, None)
-    for cols in _batches(reader, site, clock):
-        result.lines += len(cols.raw)
-        batch = pipeline.process_columns(cols)
+    def batches():
+        for cols in _batches(reader, site, clock):
+            result.lines += len(cols.raw)
+            yield pipeline.process_columns(cols)
+        yield pipeline.flush()  # lines held at the end, out of step on the time line
+
+    for batch in batches():
         malformed_t = [r[0] for r in batch.raw if not r[2]]
         if clock == "device" and batch.samples:
             offset = batch.samples[-1][1] - batch.samples[-1][2]

@@ -25,7 +25,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
-from firewatch.transport.records import Malformed, ReadingSet, Status, Value
+from firewatch.transport.records import Malformed, ReadingSet, Status, Value, check_number, check_time
 
 __all__ = ["ChannelMap", "GenericParser"]
 
@@ -107,6 +107,9 @@ class GenericParser:
                 device_time = float(fields[self.time_field])
             except (KeyError, ValueError):
                 return Malformed(received, line, f"bad or missing time field {self.time_field!r}")
+            problem = check_time(device_time)
+            if problem:
+                return Malformed(received, line, f"time field {self.time_field!r}: {fields[self.time_field][:24]!r} is {problem}")
         values: list[Value] = []
         for ch in self.channels:
             raw = fields.get(ch.field)
@@ -123,7 +126,9 @@ class GenericParser:
                     number = float(raw)
                 except ValueError:
                     return Malformed(received, line, f"field {ch.field!r}: {raw[:20]!r} is not a number")
-                if not math.isfinite(number):
-                    return Malformed(received, line, f"field {ch.field!r}: {raw[:20]!r} is not finite")
-                values.append(Value(ch.channel, number * ch.scale + ch.offset, ch.unit))
+                value = number * ch.scale + ch.offset
+                problem = check_number(value)
+                if problem:
+                    return Malformed(received, line, f"field {ch.field!r}: {raw[:20]!r} is {problem}")
+                values.append(Value(ch.channel, value, ch.unit))
         return ReadingSet(received, device_time, None, tuple(values), line)

@@ -6,12 +6,15 @@ Format (ASCII, one line, ended by LF or CR LF)::
 
 * ``FW1``: the format tag and version.
 * ``<seq>``: a decimal sequence number, incrementing by one per line
-  (wrapping is allowed); ``-`` when the device has none.
+  (wrapping is allowed), 0 to 2^63 - 1 (what SQLite stores); ``-`` when
+  the device has none.
 * ``<device-time>``: the device's time, decimal seconds (the simulator sends
-  UTC seconds since the epoch with millisecond resolution); ``-`` for none.
+  UTC seconds since the epoch with millisecond resolution), at most 1e11 in
+  magnitude; ``-`` for none.
 * ``<channel>``: a name of letters, digits, ``_``, ``.`` or ``-``.
 * ``<value>``: a decimal number with a unit suffix, ``mV`` or ``C``
-  (``41.276mV``, ``1203.4C``), or a status word: ``OPEN`` (thermocouple
+  (``41.276mV``, ``1203.4C``), finite and at most 1e9 in magnitude, or a
+  status word: ``OPEN`` (thermocouple
   open circuit), ``UNDER`` (below range), ``OVER`` (above range, saturated),
   ``ERR`` (device error).
 * ``*<crc>``: CRC-16/CCITT-FALSE (polynomial 0x1021, initial 0xFFFF) of every
@@ -31,7 +34,7 @@ import binascii
 import math
 import re
 
-from firewatch.transport.records import Malformed, ReadingSet, Status, Value
+from firewatch.transport.records import SEQ_MAX, Malformed, ReadingSet, Status, Value, check_number, check_time
 
 __all__ = ["TAG", "crc16", "encode", "NativeParser"]
 
@@ -89,13 +92,22 @@ class NativeParser:
         fields = body.split(b" ")
         if len(fields) < 3 or fields[0] != TAG:
             return Malformed(received, line, "does not start with 'FW1 <seq> <time>'")
-        try:
-            seq = None if fields[1] == b"-" else int(fields[1])
-            device_time = None if fields[2] == b"-" else float(fields[2])
-        except ValueError:
-            return Malformed(received, line, "bad sequence number or device time")
-        if device_time is not None and not math.isfinite(device_time):
-            return Malformed(received, line, "device time is not finite")
+        seq_text, time_text = fields[1], fields[2]
+        seq = None
+        if seq_text != b"-":
+            # digits only (int() would take "+7" and "1_000"), and no more than SQLite's integers hold
+            if not seq_text.isdigit() or len(seq_text) > 19 or int(seq_text) > SEQ_MAX:
+                return Malformed(received, line, f"bad sequence number {seq_text[:24]!r}: not a decimal from 0 to 2^63-1")
+            seq = int(seq_text)
+        device_time = None
+        if time_text != b"-":
+            try:
+                device_time = float(time_text)
+            except ValueError:
+                return Malformed(received, line, f"bad device time {time_text[:24]!r}: not a number")
+            problem = check_time(device_time)
+            if problem:
+                return Malformed(received, line, f"bad device time {time_text[:24]!r}: {problem}")
         values: list[Value] = []
         seen: set[str] = set()
         names = self._names
@@ -124,8 +136,9 @@ class NativeParser:
                 number = float(number_text)
             except ValueError:
                 return Malformed(received, line, f"bad value {field[:40]!r} (expected a number with mV or C, or OPEN/UNDER/OVER/ERR)")
-            if number - number != 0.0:  # inf or nan
-                return Malformed(received, line, f"bad value {field[:40]!r} (expected a number with mV or C, or OPEN/UNDER/OVER/ERR)")
+            problem = check_number(number)
+            if problem:
+                return Malformed(received, line, f"bad value {field[:40]!r}: {problem}")
             values.append(Value(channel, number, unit, _OK))
         if not values:
             return Malformed(received, line, "no channel values")

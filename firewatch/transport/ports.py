@@ -5,20 +5,27 @@ Every source is a URL for :func:`serial.serial_for_url`: a device path
 ``loop://``. pyserial 3.5 raises ``SerialException`` from ``read()`` on
 unplug while ``is_open`` stays true, so the reader closes the port, backs
 off and reopens it, reporting each change as a :class:`PortEvent`.
+
+``socket://host:port`` (without options) is read by :class:`TcpPort`
+rather than pyserial's handler, which discards the bytes of a read in
+progress when the far end closes, and empties the socket when it opens:
+both lose lines silently.
 """
 
 from __future__ import annotations
 
+import socket
 import threading
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
+from urllib.parse import urlsplit
 
 import serial
 
 from firewatch.transport.framing import LineFramer
 
-__all__ = ["PortSettings", "PortEvent", "PortReader", "open_port", "PortError"]
+__all__ = ["PortSettings", "PortEvent", "PortReader", "open_port", "PortError", "TcpPort"]
 
 
 class PortError(Exception):
@@ -45,8 +52,52 @@ class PortEvent:
     detail: str
 
 
-def open_port(url: str, settings: PortSettings = PortSettings()) -> serial.SerialBase:
+class TcpPort:
+    """A serial device server at ``socket://host:port``, read as pyserial reads one, without losing bytes.
+
+    Written by hand because pyserial 3.5's ``socket://`` handler accumulates
+    several ``recv`` calls into one ``read`` and raises on end of stream,
+    discarding what it had already received (the last lines before a device
+    server closes), and empties the socket on open (a partial first line).
+    ``read`` here returns each ``recv`` as it comes and reports the end of the
+    stream only when nothing is left.
+    """
+
+    def __init__(self, host: str, port: int, timeout_s: float) -> None:
+        self._sock = socket.create_connection((host, port), timeout=5.0)
+        self._sock.settimeout(timeout_s)
+
+    def read(self, size: int) -> bytes:
+        try:
+            data = self._sock.recv(size)
+        except TimeoutError:
+            return b""
+        except OSError as exc:
+            raise serial.SerialException(f"read failed: {exc}") from None
+        if not data:
+            raise serial.SerialException("socket disconnected")
+        return data
+
+    def close(self) -> None:
+        self._sock.close()
+
+
+def open_port(url: str, settings: PortSettings = PortSettings()) -> serial.SerialBase | TcpPort:
     """Open a serial URL, or raise :class:`PortError` with a one-line reason."""
+    if url.startswith("socket://"):
+        parts = urlsplit(url)
+        if not parts.query and not parts.path:
+            try:
+                host, port = parts.hostname, parts.port
+            except ValueError as exc:
+                raise PortError(f"could not open port {url!r}: {exc}") from None
+            if not host or port is None:
+                raise PortError(f"could not open port {url!r}: expected socket://HOST:PORT")
+            try:
+                return TcpPort(host, port, settings.read_timeout_s)
+            except OSError as exc:
+                reason = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+                raise PortError(f"could not open port {url!r}: {reason}") from None
     try:
         return serial.serial_for_url(
             url,

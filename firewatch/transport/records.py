@@ -8,7 +8,33 @@ from __future__ import annotations
 import enum
 from typing import NamedTuple
 
-__all__ = ["Status", "Value", "ReadingSet", "Malformed"]
+__all__ = ["Status", "Value", "ReadingSet", "Malformed", "VALUE_LIMIT", "TIME_LIMIT_S", "SEQ_MAX", "check_number", "check_time"]
+
+VALUE_LIMIT = 1e9
+"""Largest magnitude of a value a line may carry, mV or degC: far beyond any instrument, and small
+enough that the physics' sums and powers stay finite. A larger value makes the line malformed."""
+TIME_LIMIT_S = 1e11
+"""Largest magnitude of a device time, s (about 3,000 years of seconds)."""
+SEQ_MAX = 2**63 - 1
+"""Largest sequence number: the largest integer SQLite stores."""
+
+
+def check_number(number: float) -> str | None:
+    """Why a parsed value cannot be kept (not finite, or beyond :data:`VALUE_LIMIT`); None when it can."""
+    if number - number != 0.0:  # inf or nan, without a call into math
+        return "not a finite number"
+    if not -VALUE_LIMIT <= number <= VALUE_LIMIT:
+        return f"beyond ±{VALUE_LIMIT:g}"
+    return None
+
+
+def check_time(seconds: float) -> str | None:
+    """Why a device time cannot be kept (not finite, or beyond :data:`TIME_LIMIT_S`); None when it can."""
+    if seconds - seconds != 0.0:
+        return "not a finite number"
+    if not -TIME_LIMIT_S <= seconds <= TIME_LIMIT_S:
+        return f"beyond ±{TIME_LIMIT_S:g} s"
+    return None
 
 
 class Status(enum.IntEnum):

@@ -40,3 +40,19 @@ def test_bad_configuration() -> None:
         GenericParser("csv", (ChannelMap("tc1", "T9"),), columns=("T1",))
     with pytest.raises(ValueError, match="'csv' or 'keyvalue'"):
         GenericParser("xml", ())
+
+
+def test_numbers_beyond_a_float_are_malformed() -> None:
+    """Issue 10: values and times a float cannot hold (or that the scale pushes beyond the bound) are malformed lines."""
+    parser = GenericParser("csv", (ChannelMap("tc1", "T1", "mV", scale=1e6),), columns=("time", "T1"), time_field="time")
+    assert isinstance(parser.parse(b"12.5, 41.2", 0.0), ReadingSet)
+    for line, reason in [
+        (b"inf, 1", "not a finite number"),
+        (b"1e12, 1", "beyond"),
+        (b"1, 1e309", "not a finite number"),
+        (b"1, nan", "not a finite number"),
+        (b"1, 1e300", "beyond"),  # finite, but 1e306 mV after the scale
+        (b"1, 1e4", "beyond"),  # 1e10 mV after the scale
+    ]:
+        got = parser.parse(line, 0.0)
+        assert isinstance(got, Malformed) and reason in got.reason, (line, got)

@@ -98,3 +98,45 @@ def test_framer_keeps_partial_lines_and_bounds_length() -> None:
     assert over and lines == []
     lines, over = framer.feed(b"tail\nnext\n")
     assert lines == [b"next"]  # the overlong line's tail is dropped with it
+
+
+# -- issue 10: numbers a float or SQLite cannot hold make a line malformed, never an exception ----------
+
+
+def test_sequence_numbers_beyond_sqlite_integers_are_malformed() -> None:
+    """Issue 10: a sequence number of 2^63 crashed the writer (SQLite integers are signed 64-bit,
+    SQLite documentation, "Datatypes In SQLite")."""
+    top = PARSER.parse(_body(b"FW1 9223372036854775807 - tc1=1.0mV"), 0.0)
+    assert isinstance(top, ReadingSet) and top.seq == 2**63 - 1
+    for seq in (b"9223372036854775808", b"1" + b"0" * 30, b"-1", b"+5", b"1_000", b"0x10"):
+        got = PARSER.parse(_body(b"FW1 " + seq + b" - tc1=1.0mV"), 0.0)
+        assert isinstance(got, Malformed) and "bad sequence number" in got.reason, seq
+
+
+def test_values_and_times_beyond_a_float_are_malformed() -> None:
+    """Issue 10: 1e309 overflows a float (IEEE 754 double, largest finite about 1.8e308)."""
+    cases = {
+        b"FW1 1 - tc1=1e309mV": "not a finite number",
+        b"FW1 1 - tc1=-1e309C": "not a finite number",
+        b"FW1 1 - tc1=infC": "not a finite number",
+        b"FW1 1 - tc1=1e10C": "beyond",
+        b"FW1 1 - tc1=1e308mV": "beyond",
+        b"FW1 1 1e309 tc1=1.0mV": "bad device time",
+        b"FW1 1 nan tc1=1.0mV": "bad device time",
+        b"FW1 1 1e12 tc1=1.0mV": "bad device time",
+        b"FW1 1 12:00 tc1=1.0mV": "bad device time",
+    }
+    for text, reason in cases.items():
+        got = PARSER.parse(_body(text), 0.0)
+        assert isinstance(got, Malformed) and reason in got.reason, (text, got)
+    edge = PARSER.parse(_body(b"FW1 1 -1e11 tc1=-1e9C"), 0.0)
+    assert isinstance(edge, ReadingSet) and edge.get("tc1").value == -1e9 and edge.device_time == -1e11
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.integers(-(2**70), 2**70), st.floats(allow_nan=True, allow_infinity=True), st.floats(allow_nan=True, allow_infinity=True))
+def test_any_number_in_any_field_parses_or_is_malformed(seq: int, t: float, value: float) -> None:
+    got = PARSER.parse(_body(f"FW1 {seq} {t!r} tc1={value!r}mV".encode()), 0.0)
+    assert isinstance(got, (Malformed, ReadingSet))
+    if isinstance(got, ReadingSet):  # what passes is something SQLite and numpy hold
+        assert 0 <= got.seq <= 2**63 - 1 and abs(got.device_time) <= 1e11 and abs(got.get("tc1").value) <= 1e9
