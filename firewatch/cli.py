@@ -28,6 +28,7 @@ COMMANDS: dict[str, str] = {
     "demo": "demo",
     "tune": "tune",
     "plant": "plant",
+    "probe": "probe",
 }
 
 CAUTION = (

@@ -8,11 +8,12 @@ with its file, line and key.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
 from firewatch.settings._tomlcheck import MISSING, ProfileError, TomlReader, in_range, one_of
+from firewatch.settings.modbus_map import MODBUS_FORMATS, MODBUS_INPUT_KEYS, ModbusInput, read_modbus_input
 from firewatch.physics.thermocouples import TYPES as TC_TYPES
 from firewatch.physics.thermocouples import temperature_range
 from firewatch.physics.tolerances import TOLERANCE_CLASSES
@@ -108,6 +109,8 @@ class InputSettings:
     clock: str = "wall"
     """``wall``: stamp readings on receipt; ``device``: use the line's own time."""
     generic: dict[str, Any] = field(default_factory=dict)
+    modbus: ModbusInput | None = None
+    """For ``modbus-rtu`` and ``modbus-tcp``: the link and the register maps (docs/modbus.md)."""
 
 
 @dataclass(frozen=True)
@@ -212,7 +215,7 @@ _PY_KEYS = {
     "emissivity", "emissivity_uncertainty", "slope", "slope_uncertainty", "window", "fouling", "transmission",
     "transmission_uncertainty", "background", "accuracy_c", "accuracy_percent", "range_c", "reference", "label",
 }
-_INPUT_KEYS = {"format", "baudrate", "bytesize", "parity", "stopbits", "clock", "delimiter", "columns", "time_field", "pair_separator", "kv_separator", "channels"}
+_INPUT_KEYS = {"format", "baudrate", "bytesize", "parity", "stopbits", "clock", "delimiter", "columns", "time_field", "pair_separator", "kv_separator", "channels"} | MODBUS_INPUT_KEYS
 _ALARM_KEYS = {f.name for f in AlarmSettings.__dataclass_fields__.values()}
 _FRACTION = in_range(0.0, 1.0, lo_open=True)
 _NONNEG = in_range(0.0)
@@ -236,7 +239,7 @@ def _read(reader: TomlReader) -> SiteProfile | None:
 
     inp = reader.table(("input",))
     reader.unknown_keys(("input",), inp, _INPUT_KEYS)
-    fmt = reader.get(inp, ("input",), "format", str, default="native", check=one_of("native", "csv", "keyvalue"))
+    fmt = reader.get(inp, ("input",), "format", str, default="native", check=one_of("native", "csv", "keyvalue", *MODBUS_FORMATS))
     generic = {k: v for k, v in inp.items() if k in {"delimiter", "columns", "time_field", "pair_separator", "kv_separator", "channels"}}
     if fmt in ("csv", "keyvalue") and not generic.get("channels"):
         reader.problem(("input", "channels"), f"format {fmt!r} needs [input.channels.NAME] tables mapping fields to channels")
@@ -353,6 +356,9 @@ def _read(reader: TomlReader) -> SiteProfile | None:
                 label=reader.get(py, path, "label", str, default=""),
             )
         )
+
+    # Modbus register maps, checked against the channels above (firewatch/settings/modbus_map.py)
+    input_settings = replace(input_settings, modbus=read_modbus_input(reader, inp, fmt, tcs, pys, cold_names))
 
     names = tc_names + cold_names + [p.name for p in pys]
     seen: set[str] = set()

@@ -13,8 +13,10 @@ schedule-deviation  temperature off the segment's plan by more than            l
 over-temperature    any temperature above over_temperature_c                   high
 rate-limit          faster than a critical range's max_rate inside the range   medium
 sensor-fault        thermocouple open; reading out of range; value frozen;     high/med.
-                    pyrometer below range or saturated when the thermocouples
-                    say it should read; line noise (many malformed lines)
+                    a device error or failed signal (no answer, a 4-20 mA
+                    loop outside NAMUR NE 43's range); pyrometer below range
+                    or saturated when the thermocouples say it should read;
+                    line noise (many malformed lines)
 no-data             no readings from the line, or a channel missing            high/med.
 =================== ========================================================== =========
 
@@ -502,7 +504,7 @@ class AlarmEngine:
         s = self.settings
         # open circuit / out of range / device error
         if thermocouple:
-            for code, cause, what in ((Status.OPEN, "open-circuit", "thermocouple open"), (Status.OUT_OF_RANGE, "out-of-range", "reading outside the type's range"), (Status.ERROR, "device-error", "device error or no cold junction")):
+            for code, cause, what in ((Status.OPEN, "open-circuit", "thermocouple open"), (Status.OUT_OF_RANGE, "out-of-range", "reading outside the type's range"), (Status.ERROR, "device-error", "device error or failed signal (no answer, a 4-20 mA loop outside NAMUR NE 43's range, or no cold junction)")):
                 bad = status == code
                 key = ("sensor-fault", f"{name}:{cause}")
                 prio = "high" if self.site.thermocouple(name).role in ("control", "reference") else "medium"
@@ -513,6 +515,10 @@ class AlarmEngine:
             self._frozen(name, times, value)
         else:
             py = self.site.pyrometer(name)
+            # a failed signal: a device error, no answer, or a 4-20 mA loop outside NAMUR NE 43's range
+            self._apply(("sensor-fault", f"{name}:signal-failure"), times, status == Status.ERROR, status == Status.OK, 5.0, 30.0,
+                        lambda t, n=name: self._raise("sensor-fault", f"{n}:signal-failure", t, f"{n}: signal failed (a device error, no answer, or a 4-20 mA loop outside NAMUR NE 43's range)", "medium", cause="signal-failure"),
+                        "reading again")
             if reference is not None and math.isfinite(py.range_c[0]):
                 ref_value = reference
                 lo, hi = py.range_c
