@@ -68,11 +68,11 @@ def render(words: tuple[int, ...], start: int, table: str, type: str, word_order
 
     Examples
     --------
-    >>> for line in render((6, 19288), 0, "input", "int32", "big"):
+    >>> for line in render((6, 19544), 0, "input", "int32", "big"):
     ...     print(line)
     register  manual     raw     hex  int32
            0   30001       6  0x0006  412760
-           1   30002   19288  0x4B58
+           1   30002   19544  0x4C58
     """
     from firewatch.transport.modbus import TYPES, decode
 
