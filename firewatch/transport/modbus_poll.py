@@ -134,7 +134,8 @@ class ModbusLink:
             response = read(request.start, count=request.count, device_id=request.unit_id)
         except ConnectionException as exc:
             self.close()
-            raise LinkLost(_first_line(exc) or "connection lost") from None
+            # pymodbus's text repeats the client's repr; say what happened
+            raise LinkLost("the connection was closed" if "closed" in str(exc) else "the connection failed") from None
         except ModbusIOException as exc:
             # pymodbus says "No response received" when every try timed out
             return BlockResult(request, None, "timeout" if "No response" in str(exc) else "bad")

@@ -551,7 +551,7 @@ class AlarmEngine:
             self._last_change[name] = (frozen_since, float(value[idx]))
         else:
             self._last_change[name] = (last_t, last_v)
-        now = float(times[-1])
+        now = float(times[ok][-1])  # a value that then goes missing is missing, not frozen (issue 13)
         if now - frozen_since >= s.frozen_s:
             self._raise("sensor-fault", f"{name}:frozen", frozen_since + s.frozen_s, f"{name}: value unchanged for {s.frozen_s:.0f} s", "medium", cause="frozen")
         elif changed.size:
