@@ -211,7 +211,7 @@ class _Devices:
         self.lines: Iterator[Line] = (line for chunk in sim.chunks() for line in chunk)
         self.finished = asyncio.Event()
         self.server = None
-        self._pending_silence = False
+        self._ended = False
 
     def device_list(self):
         from pymodbus.constants import ExcCodes
@@ -231,6 +231,9 @@ class _Devices:
 
         def action_for(unit: int):
             async def action(function_code, start_address, address, count, registers, set_values):
+                if self._ended:  # the last reading has been read (its poll is over): the kiln goes quiet
+                    self.finished.set()
+                    raise NoSuchIdException("the simulation has ended")
                 if set_values is not None:
                     return ExcCodes.ILLEGAL_FUNCTION
                 table = "input" if function_code == 4 else "holding"
@@ -271,7 +274,8 @@ class _Devices:
                 continue
             self.image.load(line)
             return True
-        self.finished.set()
+        # stop at the next request rather than now, so that the answer to this read still goes out
+        self._ended = True
         return False
 
     async def run_paced(self) -> None:
@@ -322,8 +326,8 @@ def serve_tcp(sim: Simulation, speed: float, host: str, port: int, announce: Cal
 
 async def _drive(devices: _Devices) -> None:
     if devices.speed == 0:
-        if devices._advance():
-            await devices.finished.wait()
+        devices._advance()
+        await devices.finished.wait()
     else:
         await devices.run_paced()
 

@@ -92,7 +92,8 @@ def test_whole_demo_firing_over_modbus_tcp_matches_the_line_format(tmp_path: Pat
     out = run("sim", "--scenario", str(scenario), "--to-log", str(line_log), timeout=300)
     assert out.returncode == 0, out.stderr
 
-    site = modbus_site(tmp_path, poll_s="0.001")
+    # lock-step: no retries (a retried clock read would move the simulation on twice), a generous timeout instead
+    site = modbus_site(tmp_path, poll_s="0.001", timeout_s="5.0", retries="0")
     sim, address = start_sim("--scenario", str(scenario), "--modbus-tcp", "127.0.0.1:0", "--speed", "0", "--minutes", "1440")
     rec = firewatch("record", "--site", str(site), "--port", address, "--clock", "device", "--log", str(modbus_log))
     try:
@@ -131,7 +132,7 @@ def test_whole_demo_firing_over_modbus_tcp_matches_the_line_format(tmp_path: Pat
 @pytest.mark.timeout(300)
 def test_server_killed_and_restarted_records_a_gap_and_resumes(tmp_path: Path) -> None:
     port = free_port()
-    site = modbus_site(tmp_path, poll_s="0.2", timeout_s="0.2", retries="0", port=f'"127.0.0.1:{port}"')
+    site = modbus_site(tmp_path, poll_s="0.2", timeout_s="1.0", retries="0", port=f'"127.0.0.1:{port}"')
     log = tmp_path / "restart.db"
     sim, _ = start_sim("--modbus-tcp", f"127.0.0.1:{port}", "--speed", "1")
     rec = firewatch("record", "--site", str(site), "--log", str(log))  # the port from the profile's [input]
@@ -167,7 +168,7 @@ def _event_kinds(log: Path) -> list[str]:
 
 @pytest.mark.timeout(300)
 def test_rtu_over_a_pseudo_terminal(tmp_path: Path) -> None:
-    site = modbus_site(tmp_path, format='"modbus-rtu"', port=None, poll_s="0.001", baudrate="19200")
+    site = modbus_site(tmp_path, format='"modbus-rtu"', port=None, poll_s="0.001", baudrate="19200", timeout_s="5.0", retries="0")
     assert run("check", str(site)).returncode == 0
     sim, device = start_sim("--modbus-rtu", "--pty", "--speed", "0", "--minutes", "5")
     log = tmp_path / "rtu.db"
@@ -188,16 +189,23 @@ def test_rtu_over_a_pseudo_terminal(tmp_path: Path) -> None:
 
 def test_paced_faults_are_exception_responses_and_silence(tmp_path: Path) -> None:
     """--speed > 0: a garbage window is answered with exception 06, a dropout with silence, each seen by the probe."""
-    sim, address = start_sim("--modbus-tcp", "127.0.0.1:0", "--speed", "1", "--fault", "garbage@0.1:seconds=3600,fraction=1")
+    probe = ("probe", "--count", "2", "--timeout", "1.0", "--retries", "0", "--port")
+    sim, address = start_sim("--modbus-tcp", "127.0.0.1:0", "--speed", "1", "--fault", "garbage@0:seconds=3600,fraction=1")
     try:
-        wait_for(lambda: run("probe", "--port", address, "--count", "2", "--timeout", "0.3", "--retries", "0").returncode == 1, timeout=30)
-        out = run("probe", "--port", address, "--count", "2", "--timeout", "0.3", "--retries", "0")
-        assert "exception 0x06 (server device busy)" in out.stderr
+        out = run(*probe, address)
+        assert out.returncode == 1 and out.stderr == "unit 1 input 0-1: exception 0x06 (server device busy)\n"
     finally:
         stop(sim)
-    sim, address = start_sim("--modbus-tcp", "127.0.0.1:0", "--speed", "1", "--fault", "dropout@0.1:seconds=3600")
+    sim, address = start_sim("--modbus-tcp", "127.0.0.1:0", "--speed", "1", "--fault", "dropout@0:seconds=3600")
     try:
-        wait_for(lambda: "no answer" in run("probe", "--port", address, "--count", "2", "--timeout", "0.3", "--retries", "0").stderr, timeout=30)
+        out = run(*probe, address)
+        assert out.returncode == 1 and out.stderr == "unit 1 input 0-1: no answer within 1 s (1 try)\n"
+    finally:
+        stop(sim)
+    sim, address = start_sim("--modbus-tcp", "127.0.0.1:0", "--speed", "1")
+    try:
+        out = run(*probe, address)
+        assert out.returncode == 0 and len(out.stdout.splitlines()) == 4, out.stderr
     finally:
         stop(sim)
 
