@@ -5,6 +5,7 @@ Real subprocesses, TCP on 127.0.0.1 and pseudo-terminals for RTU.
 
 from __future__ import annotations
 
+import json
 import signal
 import sqlite3
 import subprocess
@@ -115,6 +116,10 @@ def test_whole_demo_firing_over_modbus_tcp_matches_the_line_format(tmp_path: Pat
         return [(a["kind"], a["channel"], a["cause"], a["raised_s"]) for a in info["alarms"]]
 
     assert alarms(modbus) == alarms(line)
+    # replay decodes the poll records kept raw in the log, and finds the same
+    out = run("replay", str(modbus_log), "--headless", "--json", timeout=300)
+    assert out.returncode == 0, out.stderr
+    assert alarms(json.loads(out.stdout)) == alarms(line)
     assert {(k, c, why) for k, c, why, _ in alarms(line)} == {
         ("divergence", "py1", "window-attenuation"), ("no-data", None, None),
         ("sensor-fault", "py1", "signal-failure"), ("sensor-fault", "tc1", "open-circuit"),
@@ -206,6 +211,14 @@ def test_paced_faults_are_exception_responses_and_silence(tmp_path: Path) -> Non
     try:
         out = run(*probe, address)
         assert out.returncode == 0 and len(out.stdout.splitlines()) == 4, out.stderr
+        watch = firewatch("probe", "--port", address, "--count", "2", "--watch", "0.2")
+        header = watch.stdout.readline()
+        stamps = [watch.stdout.readline() for _ in range(8)]  # two rounds: a time, the column heads, two registers
+        watch.send_signal(signal.SIGINT)  # Ctrl-C ends the watch quietly
+        _, err = watch.communicate(timeout=30)
+        assert header.startswith("unit 1, input registers (function 4) 0-1 as int16")
+        assert stamps[0][:2] == "20" and stamps[4][:2] == "20" and stamps[1].split()[0] == "register"
+        assert watch.returncode == 0 and "Traceback" not in err
     finally:
         stop(sim)
 
