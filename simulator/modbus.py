@@ -66,8 +66,9 @@ import asyncio
 import math
 import os
 import tty
-from collections.abc import Callable, Iterator
+from collections.abc import Awaitable, Callable, Iterator
 from dataclasses import dataclass
+from typing import Any
 
 from firewatch.settings.profile import SiteProfile
 from firewatch.transport.native import NativeParser
@@ -210,17 +211,19 @@ class _Devices:
         self.image = KilnImage(sim.site)
         self.lines: Iterator[Line] = (line for chunk in sim.chunks() for line in chunk)
         self.finished = asyncio.Event()
-        self.server = None
+        self.server: Any = None
+        """The pymodbus server, once made (for closing connections at a dropout)."""
         self._ended = False
 
-    def device_list(self):
+    def device_list(self) -> list[Any]:
+        """Units 1 and 2, and a catch-all unit 0 that never answers (pymodbus ``SimDevice`` objects)."""
         from pymodbus.constants import ExcCodes
         from pymodbus.exceptions import NoSuchIdException
         from pymodbus.simulator import DataType, SimData, SimDevice
 
         codes = {2: ExcCodes.ILLEGAL_ADDRESS, 6: ExcCodes.DEVICE_BUSY}
 
-        def blocks(unit: int) -> tuple[list, list, list, list]:
+        def blocks(unit: int) -> tuple[list[Any], list[Any], list[Any], list[Any]]:
             bits = [SimData(0, count=16, values=False, datatype=DataType.BITS)]
             regs = {}
             for table in ("holding", "input"):
@@ -229,8 +232,10 @@ class _Devices:
                 regs[table] = [SimData(0, count=n, values=0, datatype=DataType.REGISTERS, readonly=True)]
             return bits, list(bits), regs["holding"], regs["input"]
 
-        def action_for(unit: int):
-            async def action(function_code, start_address, address, count, registers, set_values):
+        def action_for(unit: int) -> Callable[..., Awaitable[Any]]:
+            async def action(
+                function_code: int, start_address: int, address: int, count: int, registers: list[int], set_values: list[int] | None
+            ) -> Any:
                 if self._ended:  # the last reading has been read (its poll is over): the kiln goes quiet
                     self.finished.set()
                     raise NoSuchIdException("the simulation has ended")
@@ -250,7 +255,7 @@ class _Devices:
 
             return action
 
-        async def nobody(*_args):
+        async def nobody(*_args: Any) -> None:
             raise NoSuchIdException("no device at this address")
 
         return [
@@ -295,7 +300,7 @@ class _Devices:
         self.finished.set()
 
 
-def _bound(server, host: str) -> str:
+def _bound(server: Any, host: str) -> str:
     sockets = getattr(server.transport, "sockets", None) or ()
     if sockets:
         addr = sockets[0].getsockname()

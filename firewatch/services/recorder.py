@@ -27,7 +27,8 @@ from firewatch.firing.pipeline import Batch, Pipeline
 from firewatch.settings.profile import SiteProfile
 from firewatch.settings.schedule import Schedule
 from firewatch.transport.generic import ChannelMap, GenericParser
-from firewatch.transport.modbus import ModbusParser
+from firewatch.transport.modbus import ModbusParser, plan_requests
+from firewatch.transport.modbus_poll import LinkSettings, ModbusPoller
 from firewatch.transport.native import NativeParser
 from firewatch.transport.ports import PortEvent, PortReader, PortSettings
 from firewatch.transport.records import Malformed, ReadingSet
@@ -163,7 +164,7 @@ class Recorder:
         self._handed = 0
         self.latencies: list[float] = []
         self._queue: queue.Queue[tuple[float, bytes] | PortEvent] = queue.Queue()
-        self.poller = None
+        self.poller: ModbusPoller | None = None
         self._gap_reason = "serial disconnect"
         self._failed_before = 0
         self._failed_written = -1
@@ -254,7 +255,7 @@ class Recorder:
             self._say(f"stopped: {detail}")
         return reason
 
-    def _input_reader(self, writer: LogWriter):
+    def _input_reader(self, writer: LogWriter) -> PortReader | ModbusPoller:
         """The thread that reads the input: the serial line's reader, or the Modbus poller."""
         inp = self.site.input
         on_line = lambda received, line: self._queue.put((received, line))  # noqa: E731
@@ -263,9 +264,6 @@ class Recorder:
                 self.url, on_line=on_line, on_event=self._queue.put,
                 settings=PortSettings(inp.baudrate, inp.bytesize, inp.parity, inp.stopbits), clock=self.clock_fn,
             )
-        from firewatch.transport.modbus import plan_requests
-        from firewatch.transport.modbus_poll import LinkSettings, ModbusPoller
-
         mb = inp.modbus
         link = LinkSettings(mb.protocol, self.url, inp.baudrate, inp.bytesize, inp.parity, inp.stopbits, mb.timeout_s, mb.retries)
         self.poller = ModbusPoller(link, plan_requests(mb.channels, mb.device_time), mb.poll_s, on_line, self._queue.put, clock=self.clock_fn)

@@ -23,6 +23,7 @@ import threading
 import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
+from typing import Any
 
 from firewatch.transport.modbus import EXCEPTION_NAMES, BlockResult, Request, encode_poll
 from firewatch.transport.ports import PortEvent
@@ -94,7 +95,7 @@ class ModbusLink:
 
     def __init__(self, settings: LinkSettings) -> None:
         self.settings = settings
-        self._client = None
+        self._client: Any = None
 
     def open(self) -> None:
         """Connect (TCP) or open the port (RTU); :class:`LinkLost` names the reason."""
