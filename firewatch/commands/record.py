@@ -3,10 +3,14 @@
 from __future__ import annotations
 
 import argparse
+from typing import TYPE_CHECKING
 
 from firewatch.cli import UsageError
 from firewatch.commands import _args
-__all__ = ["add_parser", "run", "load_profiles"]
+__all__ = ["add_parser", "run", "load_profiles", "input_port"]
+
+if TYPE_CHECKING:
+    from firewatch.settings.profile import SiteProfile
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -43,7 +47,7 @@ def load_profiles(site_path: str | None, schedule_path: str | None):
     return site, schedule
 
 
-def input_port(site, port: str | None, clock: str | None) -> str:
+def input_port(site: SiteProfile, port: str | None, clock: str | None) -> str:
     """The port to record from, checked against the site's input; UsageError names the problem."""
     mb = site.input.modbus
     if mb is None:
