@@ -48,7 +48,8 @@ def test_decode_agrees_with_pymodbus(kind: str, order: str, data) -> None:
 
 
 def test_word_order_known_values() -> None:
-    # 0x00010002 = 65538: high word first ("big") or low word first ("little"); IEEE 754 single 1204.0 = 0x44968000
+    # worked by hand: 0x00010002 = 65538, high word first ("big") or low word first ("little");
+    # IEEE 754 single precision: 0x44968000 = +1.17578125 x 2^10 = 1204.0
     assert decode([1, 2], "uint32", "big") == 65538 and decode([2, 1], "uint32", "little") == 65538
     assert decode([0xFFFF, 0xFFFE], "int32") == -2
     assert decode([0x4496, 0x8000], "float32", "big") == 1204.0 and decode([0x8000, 0x4496], "float32", "little") == 1204.0

@@ -58,7 +58,7 @@ def tcp(server: TestServer, timeout: float = 0.2, retries: int = 0) -> LinkSetti
     return LinkSettings("tcp", f"127.0.0.1:{server.port}", timeout_s=timeout, retries=retries)
 
 
-# every type and word order, with the value each should read as
+# every type and word order, with the value each should read as: raw x scale + offset, worked by hand
 VALUES = [
     ("int16", "big", -1234, 0.1, 0.0, -123.4),
     ("uint16", "big", 51234, 0.01, -100.0, 412.34),
