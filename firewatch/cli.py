@@ -29,6 +29,7 @@ COMMANDS: dict[str, str] = {
     "tune": "tune",
     "plant": "plant",
     "report": "report",
+    "probe": "probe",
 }
 
 CAUTION = (

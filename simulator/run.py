@@ -79,6 +79,8 @@ class Simulation:
             channel = fault.param("channel")
             if fault.kind in ("tc-drift", "tc-open") and channel is not None and channel not in self._lag:
                 raise ValueError(f"fault {fault.kind}: no thermocouple channel {channel!r} in the site profile")
+            if fault.kind == "loop-break" and channel is not None and self.site.pyrometer(channel) is None:
+                raise ValueError(f"fault {fault.kind}: no pyrometer channel {channel!r} in the site profile")
         self.duration_s = scenario.duration_s
 
     # -- truth as functions of time -------------------------------------------------
@@ -96,6 +98,14 @@ class Simulation:
         out = np.zeros(t.shape, dtype=bool)
         for f in self._faults("tc-open"):
             if (f.param("channel") or self._default_tc) == name:
+                out |= t >= f.at_s
+        return out
+
+    def _loop_broken(self, name: str, t: np.ndarray) -> np.ndarray:
+        out = np.zeros(t.shape, dtype=bool)
+        first = self.site.pyrometers[0].name if self.site.pyrometers else ""
+        for f in self._faults("loop-break"):
+            if (f.param("channel") or first) == name:
                 out |= t >= f.at_s
         return out
 
@@ -197,6 +207,7 @@ class Simulation:
             else:
                 surround = wall
             value, status = pyrometer_reading(py, band, band2, ware, surround, eps, slope, fouling, rng.normal(0.0, noise, n))
+            status = np.where(self._loop_broken(py.name, times), Status.ERROR, status)
             columns.append((py.name, value, "C", status))
         garbage_draw = rng.random(n)
         garbage_kind = rng.integers(0, 3, n)

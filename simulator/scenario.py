@@ -32,6 +32,8 @@ Fault kinds and their parameters (defaults in brackets):
 =================== ==========================================================
 tc-drift            channel [reference thermocouple], rate degC/h [6]
 tc-open             channel [reference thermocouple]
+loop-break          channel [first pyrometer]: its signal is lost (ERR on the
+                    line, 0 mA on a 4-20 mA loop over Modbus)
 window-fouling      rate, fraction of transmission lost per hour [0.05]
 emissivity-step     to, the new emissivity [+0.07], slope [unchanged]
 dropout             seconds [60], disconnect 0/1 [0] (drop the TCP client)
@@ -62,6 +64,7 @@ DEMO_SCENARIO = "demo-scenario.toml"
 FAULT_KINDS: dict[str, dict[str, Any]] = {
     "tc-drift": {"channel": None, "rate": 6.0},
     "tc-open": {"channel": None},
+    "loop-break": {"channel": None},
     "window-fouling": {"rate": 0.05},
     "emissivity-step": {"to": None, "slope": None},
     "dropout": {"seconds": 60.0, "disconnect": 0.0},

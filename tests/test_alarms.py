@@ -154,6 +154,19 @@ def test_frozen_value() -> None:
     assert len(frozen) == 1 and frozen[0].channel_name == "tc1" and frozen[0].raised_t == pytest.approx(900.0)
 
 
+def test_a_value_that_goes_missing_is_not_frozen_whatever_the_batch() -> None:
+    """Issue 13: a thermocouple that opens mid-batch read as frozen when the batch ran on past frozen_s."""
+    for size in (100, 2000):  # the same readings in short batches (live) and long ones (sim --to-log, Modbus lock-step)
+        e = AlarmEngine(SITE)
+        for k in range(0, 3000, size):
+            times, values, status = batch(k, size, 800.0 + np.arange(k, k + size) * 0.01)
+            gone = times >= 1000.0
+            values["tc1"][gone] = np.nan
+            status["tc1"][gone] = int(Status.OPEN)
+            e.evaluate(times, values, status)
+        assert [a.cause for a in e.alarms.values() if a.channel_name == "tc1"] == ["open-circuit"], size
+
+
 def test_no_data_from_a_gap_and_from_silence() -> None:
     e = AlarmEngine(SITE)
     e.evaluate(*batch(0, 10, 800.0))

@@ -14,7 +14,7 @@ __all__ = ["add_parser", "run", "summary"]
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("inspect", help="summarise a firing log: times, samples, gaps, alarms",
-                       description="The firing's start and end, duration, samples per channel, malformed lines, gaps and alarms; "
+                       description="The firing's start and end, duration, samples per channel, malformed lines, failed Modbus polls, gaps and alarms; "
                        "with --json also the firing report's summary (peak, holds, critical ranges, divergence, readings SHA-256).")
     p.add_argument("log", metavar="FILE.db")
     p.add_argument("--json", action="store_true", help="print one JSON object")
@@ -31,6 +31,7 @@ def summary(reader) -> dict[str, Any]:
         )
     }
     malformed = reader.query("SELECT count(*) FROM raw_line WHERE ok = 0")[0][0]
+    failed_polls = reader.query("SELECT value FROM meta WHERE key = 'failed_polls'")  # kept by a Modbus recorder
     gaps = [
         {"start": iso(g["start_t"]), "end": iso(g["end_t"]), "seconds": round(g["end_t"] - g["start_t"], 3), "reason": g["reason"]}
         for g in reader.gaps()
@@ -70,6 +71,7 @@ def summary(reader) -> dict[str, Any]:
         "recorder_sessions": recorder_sessions,
         "samples": samples,
         "malformed_lines": malformed,
+        "failed_polls": int(failed_polls[0][0]) if failed_polls else 0,
         "gaps": gaps,
         "alarms": alarms,
         "summary": read_record(reader).summary(),
@@ -134,6 +136,8 @@ def run(args: argparse.Namespace) -> int:
         for x in info["recorder_sessions"]) or "none")
     table.add_row("samples", ", ".join(f"{k} {v}" for k, v in info["samples"].items()))
     table.add_row("malformed lines", str(info["malformed_lines"]))
+    if info["failed_polls"]:
+        table.add_row("failed Modbus polls", str(info["failed_polls"]))
     table.add_row("gaps", "none" if not info["gaps"] else "\n".join(f"{g['start']} +{g['seconds']:.0f} s ({g['reason']})" for g in info["gaps"]))
     table.add_row(
         "alarms",

@@ -9,10 +9,11 @@ from firewatch.cli import UsageError
 from firewatch.commands import _args
 from firewatch.commands._common import refuse_damaged
 
+__all__ = ["add_parser", "run", "load_profiles", "input_port"]
+
 if TYPE_CHECKING:
     from firewatch.services.recorder import Recorder
-
-__all__ = ["add_parser", "run", "load_profiles"]
+    from firewatch.settings.profile import SiteProfile
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -22,7 +23,8 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
         description="Read the line, convert and reconcile, and write every reading to the firing log. "
         "Leave it running under systemd, tmux or nohup; viewers come and go.",
     )
-    p.add_argument("--port", required=True, metavar="URL", help="device path, socket://HOST:PORT, rfc2217://HOST:PORT or loop://")
+    p.add_argument("--port", metavar="URL", help="device path, socket://HOST:PORT, rfc2217://HOST:PORT or loop://; "
+                   "for Modbus input a serial device (RTU) or HOST:PORT (TCP), default the site profile's [input] port")
     p.add_argument("--site", help="site profile TOML (default: the demo site)")
     p.add_argument("--schedule", help="schedule TOML (default: the demo glaze schedule)")
     p.add_argument("--log", required=True, metavar="FILE.db", help="the firing log (continued if it exists)")
@@ -51,6 +53,32 @@ def load_profiles(site_path: str | None, schedule_path: str | None):
     return site, schedule
 
 
+def input_port(site: SiteProfile, port: str | None, clock: str | None) -> str:
+    """The port to record from, checked against the site's input; UsageError names the problem."""
+    mb = site.input.modbus
+    if mb is None:
+        if not port:
+            raise UsageError("--port: give the serial URL to record from (a device path or socket://HOST:PORT)")
+        return port
+    try:
+        import pymodbus  # noqa: F401
+    except ImportError:
+        raise UsageError(f"--site: format {site.input.format!r} needs pymodbus: pip install \".[modbus]\"") from None
+    port = port or mb.port
+    if not port:
+        raise UsageError(f"--port: give the {'HOST:PORT' if mb.protocol == 'tcp' else 'serial device'} of the Modbus devices (or [input] port in the site profile)")
+    if mb.protocol == "tcp":
+        from firewatch.transport.modbus_poll import parse_host_port
+
+        try:
+            parse_host_port(port)
+        except ValueError as exc:
+            raise UsageError(f"--port: {exc} for format 'modbus-tcp'") from None
+    if (clock or site.input.clock) == "device" and mb.device_time is None:
+        raise UsageError("--clock device: the site profile maps no [input.device_time] register, and a poll carries no time of its own")
+    return port
+
+
 def run(args: argparse.Namespace) -> int:
     from pathlib import Path
 
@@ -58,6 +86,7 @@ def run(args: argparse.Namespace) -> int:
     from firewatch.services.recorder import Recorder
 
     site, schedule = load_profiles(args.site, args.schedule)
+    port = input_port(site, args.port, args.clock)
     log = Path(args.log)
     if not log.parent.exists():
         raise UsageError(f"--log: directory {log.parent} does not exist")
@@ -72,7 +101,7 @@ def run(args: argparse.Namespace) -> int:
             raise UsageError(f"--mqtt: {exc}") from None
         except ImportError:
             raise UsageError("--mqtt: publishing needs paho-mqtt: pip install 'firewatch[mqtt]'") from None
-    recorder = Recorder(args.port, site, schedule, log, clock=args.clock, duration_s=args.seconds, mqtt_url=args.mqtt,
+    recorder = Recorder(port, site, schedule, log, clock=args.clock, duration_s=args.seconds, mqtt_url=args.mqtt,
                         verbose=args.verbose)
     if args.parent_pid:
         _stop_with_parent(recorder, args.parent_pid)

@@ -32,19 +32,23 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser(
         "sim",
         help="run the simulated kiln (for trying firewatch without a kiln, and for tests)",
-        description="A simulated kiln with thermocouples, pyrometers and scriptable faults, speaking the native line format.",
+        description="A simulated kiln with thermocouples, pyrometers and scriptable faults, speaking the native line format, "
+        "or Modbus as a thermocouple module (unit 1) and a pyrometer (unit 2); docs/modbus.md has the register map.",
     )
     p.add_argument("--scenario", help="scenario TOML (default: the demo scenario)")
     p.add_argument("--speed", type=_args.non_negative, default=1.0, help="simulated seconds per real second (default 1; 0 = as fast as possible)")
     p.add_argument("--seed", type=int, help="random seed (default: the scenario's)")
     p.add_argument("--true-emissivity", type=_args.fraction, help="the ware's true emissivity (default: the scenario's)")
     p.add_argument("--fault", action="append", type=_fault, default=[], metavar="KIND@MINUTES[:K=V,...]",
-                   help="inject a fault: tc-drift, tc-open, window-fouling, emissivity-step, dropout, garbage (repeatable)")
+                   help="inject a fault: tc-drift, tc-open, loop-break, window-fouling, emissivity-step, dropout, garbage (repeatable)")
     out = p.add_mutually_exclusive_group(required=True)
     out.add_argument("--tcp", type=_host_port, metavar="HOST:PORT", help="listen like a serial device server (port 0 picks a free one)")
     out.add_argument("--pty", action="store_true", help="serve on a new pseudo-terminal; its path is the first line printed")
     out.add_argument("--stdout", action="store_true", help="write lines to standard output")
     out.add_argument("--to-log", metavar="FILE.db", help="run as fast as possible straight into a firing log")
+    out.add_argument("--modbus-tcp", type=_host_port, metavar="HOST:PORT",
+                     help="serve Modbus TCP (port 0 picks a free one; its address is the first line printed); --speed 0 is lock-step, one reading per poll")
+    p.add_argument("--modbus-rtu", action="store_true", help="with --pty: serve Modbus RTU on the pseudo-terminal instead of lines")
     p.add_argument("--minutes", type=_args.positive, help="simulated minutes to run (default: the scenario's duration; streams run until stopped)")
     # for firewatch demo: end when the process that started this one ends
     p.add_argument("--parent-pid", type=int, help=argparse.SUPPRESS)
@@ -77,6 +81,14 @@ def run(args: argparse.Namespace) -> int:
     if args.minutes is not None:
         changes["duration_s"] = args.minutes * 60.0
     scenario = scenario.with_changes(**changes)
+    if args.modbus_rtu and not args.pty:
+        raise UsageError("--modbus-rtu: serves on a pseudo-terminal; add --pty")
+    modbus = args.modbus_rtu or args.modbus_tcp is not None
+    if modbus:
+        try:
+            import pymodbus  # noqa: F401
+        except ImportError:
+            raise UsageError("--modbus-" + ("rtu" if args.modbus_rtu else "tcp") + ": needs pymodbus: pip install \".[modbus]\"") from None
     streaming = args.to_log is None
     try:
         sim = Simulation(scenario, endless=streaming and args.minutes is None)
@@ -106,7 +118,18 @@ def run(args: argparse.Namespace) -> int:
         )
         return 0
     try:
-        if args.stdout:
+        if modbus:
+            from firewatch.simulator import modbus as modbus_serve
+
+            if args.modbus_rtu:
+                modbus_serve.serve_rtu_pty(sim, args.speed, announce)
+            else:
+                host, port = args.modbus_tcp
+                try:
+                    modbus_serve.serve_tcp(sim, args.speed, host, port, announce)
+                except OSError as exc:
+                    raise UsageError(f"--modbus-tcp: cannot listen on {host}:{port}: {exc.strerror or exc}") from None
+        elif args.stdout:
             serve.to_stdout(sim, args.speed)
         elif args.pty:
             serve.to_pty(sim, args.speed, announce)

@@ -30,6 +30,8 @@ from firewatch.firing.pipeline import Batch, Pipeline
 from firewatch.settings.profile import SiteProfile
 from firewatch.settings.schedule import Schedule
 from firewatch.transport.generic import ChannelMap, GenericParser
+from firewatch.transport.modbus import ModbusParser, plan_requests
+from firewatch.transport.modbus_poll import LinkSettings, ModbusPoller
 from firewatch.transport.native import NativeParser
 from firewatch.transport.ports import PortEvent, PortReader, PortSettings
 
@@ -124,11 +126,13 @@ def sqlite_note(version: str) -> str:
     return "older than 3.51.3, which fixed a WAL-reset bug; firewatch keeps to one writing connection"
 
 
-def make_parser(site: SiteProfile) -> NativeParser | GenericParser:
-    """The parser the site profile's ``[input]`` asks for."""
+def make_parser(site: SiteProfile, clock: str | None = None) -> NativeParser | GenericParser | ModbusParser:
+    """The parser the site profile's ``[input]`` asks for (``clock``: the firing's, default the profile's)."""
     inp = site.input
     if inp.format == "native":
         return NativeParser()
+    if inp.modbus is not None:  # poll records from the Modbus poller (docs/modbus.md)
+        return ModbusParser(inp.modbus.channels, inp.modbus.device_time, need_time=(clock or inp.clock) == "device")
     g = inp.generic
     maps = []
     for channel, spec in (g.get("channels") or {}).items():
@@ -158,7 +162,7 @@ def make_parser(site: SiteProfile) -> NativeParser | GenericParser:
 class Ingest:
     """Lines to the firing log: parse, run the pipeline, find gaps, write. Shared by every writer of a log."""
 
-    def __init__(self, pipeline: Pipeline, writer: LogWriter, parser: NativeParser | GenericParser) -> None:
+    def __init__(self, pipeline: Pipeline, writer: LogWriter, parser: NativeParser | GenericParser | ModbusParser) -> None:
         self.pipeline = pipeline
         self.writer = writer
         self.parser = parser
@@ -274,7 +278,8 @@ class Recorder:
     Parameters
     ----------
     url : str
-        A serial URL (device path, socket://, rfc2217://, loop://).
+        A serial URL (device path, socket://, rfc2217://, loop://); for Modbus
+        input a serial device (RTU) or HOST:PORT (TCP).
     site : SiteProfile
     schedule : Schedule or None
     log_path : path
@@ -321,6 +326,10 @@ class Recorder:
         self.latencies: list[float] = []
         self._queue = LineQueue(queue_bytes)
         self._overflow_said = -float("inf")
+        self.poller: ModbusPoller | None = None
+        self._gap_reason = "serial disconnect"
+        self._failed_before = 0
+        self._failed_written = -1
 
     def _say(self, text: str) -> None:
         try:
@@ -362,7 +371,7 @@ class Recorder:
         pipeline = Pipeline(self.site, self.schedule, self.clock)
         if writer.continuing:
             warm_start(pipeline, writer)
-        ingest = Ingest(pipeline, writer, make_parser(self.site))
+        ingest = Ingest(pipeline, writer, make_parser(self.site, self.clock))
         self.ingest = ingest
         self.engine = attach_alarms(ingest, self.site, self.schedule)
         if self.mqtt_url:
@@ -384,14 +393,7 @@ class Recorder:
         )
         if self.verbose:
             self._say(sqlite_text)
-        inp = self.site.input
-        reader = PortReader(
-            self.url,
-            on_line=self._queue.put_line,
-            on_event=self._queue.put_event,
-            settings=PortSettings(inp.baudrate, inp.bytesize, inp.parity, inp.stopbits),
-            clock=self.clock_fn,
-        )
+        reader = self._input_reader(writer)
         reader.start()
         started = time.monotonic()
         reason = "stopped"
@@ -413,14 +415,39 @@ class Recorder:
                 self._mqtt_cycle(writer, ingest.timeline(self.clock_fn()))
                 writer.commit()
             lat = np.array(self.latencies) if self.latencies else np.zeros(1)
+            polled = f", {self.poller.failed_polls} of {self.poller.polls} polls failed" if self.poller is not None else ""
             detail = (
-                f"{reason}; {ingest.counts()}; commit latency "
+                f"{reason}; {ingest.counts()}{polled}; commit latency "
                 f"p50 {np.percentile(lat, 50):.3f} s, p99 {np.percentile(lat, 99):.3f} s"
             )
             writer.event(ingest.timeline(self.clock_fn()), "stop", detail)
             writer.close(reason)
             self._say(f"stopped: {detail}")
         return reason
+
+    def _input_reader(self, writer: LogWriter) -> PortReader | ModbusPoller:
+        """The thread that reads the input: the serial line's reader, or the Modbus poller."""
+        inp = self.site.input
+        on_line = self._queue.put_line
+        if inp.modbus is None:
+            return PortReader(
+                self.url, on_line=on_line, on_event=self._queue.put_event,
+                settings=PortSettings(inp.baudrate, inp.bytesize, inp.parity, inp.stopbits), clock=self.clock_fn,
+            )
+        mb = inp.modbus
+        link = LinkSettings(mb.protocol, self.url, inp.baudrate, inp.bytesize, inp.parity, inp.stopbits, mb.timeout_s, mb.retries)
+        self.poller = ModbusPoller(link, plan_requests(mb.channels, mb.device_time), mb.poll_s, on_line, self._queue.put_event, clock=self.clock_fn)
+        self._gap_reason = "modbus link lost"
+        row = writer.execute("SELECT value FROM meta WHERE key = 'failed_polls'").fetchone()
+        self._failed_before = int(row[0]) if row else 0  # a continued log adds to its count
+        return self.poller
+
+    def _count_failed_polls(self, writer: LogWriter) -> None:
+        """Keep the log's count of failed Modbus polls (shown by inspect) in the batch's transaction."""
+        n = self._failed_before + self.poller.failed_polls
+        if n != self._failed_written:
+            writer.execute("INSERT INTO meta(key, value) VALUES ('failed_polls', ?) ON CONFLICT(key) DO UPDATE SET value = excluded.value", (str(n),))
+            self._failed_written = n
 
     def _start_mqtt(self, writer: LogWriter, ingest: Ingest) -> None:
         """Publish through the outbox: messages are written with the readings, sent by a thread."""
@@ -503,12 +530,14 @@ class Recorder:
                     lines = []
                 writer.event(ingest.timeline(item.t), item.kind, item.detail)
                 if item.kind == "disconnect":
-                    ingest.pending_reason = "serial disconnect"
+                    ingest.pending_reason = self._gap_reason
                     self._say(f"lost the port: {item.detail}; reconnecting")
                 elif item.kind == "reconnect":
                     self._say(f"reconnected to {self.url}")
                 elif item.kind == "open-failed":
                     self._say(item.detail + "; retrying")
+                elif item.kind in ("poll-failed", "poll-ok"):
+                    self._say(item.detail)
             else:
                 lines.append(item)
         if lines:
@@ -523,6 +552,8 @@ class Recorder:
         if self.publisher is not None:
             self._mqtt_cycle(writer, now)
         writer.heartbeat()  # lines or not: viewers tell a silent line from a stopped recorder by it
+        if self.poller is not None:
+            self._count_failed_polls(writer)
         writer.commit()
         done = self.clock_fn()
         if lines and len(self.latencies) < 2_000_000:

@@ -76,7 +76,7 @@ def _parse_job(job: tuple[str, SiteProfile, str, int, int]) -> list:
         rows = con.execute("SELECT received_utc, line FROM raw_line WHERE id > ? AND id <= ? ORDER BY id", (lo, hi)).fetchall()
     finally:
         con.close()
-    parser = make_parser(site)
+    parser = make_parser(site, clock)
     names = site.channel_names
     gc.disable()
     out = []

@@ -10,7 +10,7 @@ from __future__ import annotations
 import math
 import re
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -27,6 +27,7 @@ from firewatch.settings._tomlcheck import (
     one_of,
     strings,
 )
+from firewatch.settings.modbus_map import MODBUS_FORMATS, MODBUS_INPUT_KEYS, ModbusInput, read_modbus_input
 
 __all__ = [
     "ProfileError",
@@ -118,6 +119,8 @@ class InputSettings:
     clock: str = "wall"
     """``wall``: stamp readings on receipt; ``device``: use the line's own time."""
     generic: dict[str, Any] = field(default_factory=dict)
+    modbus: ModbusInput | None = None
+    """For ``modbus-rtu`` and ``modbus-tcp``: the link and the register maps (docs/modbus.md)."""
 
 
 @dataclass(frozen=True)
@@ -268,13 +271,14 @@ SITE_FIELDS = (
           help="an IANA zone name such as `\"Europe/London\"`, for the clock times people read; the log itself keeps UTC"),
 )
 
-INPUT_FORMATS = ("native", "csv", "keyvalue")
+INPUT_FORMATS = ("native", "csv", "keyvalue", *MODBUS_FORMATS)
 """The line formats ``[input] format`` accepts; each has its parser in ``services.recorder.make_parser``."""
 GENERIC_FORMATS = ("csv", "keyvalue")
 """The formats read through ``[input.channels.NAME]`` maps (:mod:`firewatch.transport.generic`)."""
 
 INPUT_FIELDS = (
-    Field("format", str, "native", one_of(*INPUT_FORMATS), help="`native` (see [line-format.md](line-format.md)), `csv` or `keyvalue`"),
+    Field("format", str, "native", one_of(*INPUT_FORMATS),
+          help="`native` (see [line-format.md](line-format.md)), `csv`, `keyvalue`, or `modbus-rtu` / `modbus-tcp` (see [modbus.md](modbus.md))"),
     Field("baudrate", int, 9600, in_range(1, lo_open=False), help="serial speed, bits per second (ignored by `socket://`)"),
     Field("bytesize", int, 8, lambda v: None if v in (5, 6, 7, 8) else "must be 5, 6, 7 or 8", help="serial data bits: 5, 6, 7 or 8"),
     Field("parity", str, "N", one_of("N", "E", "O", "M", "S"), help="serial parity: `N`, `E`, `O`, `M` or `S`"),
@@ -286,10 +290,16 @@ INPUT_FIELDS = (
     Field("time_field", str, None, help="`csv`, `keyvalue`: the field holding the device's time, seconds"),
     Field("pair_separator", str, None, shown_default="white space", help="`keyvalue`: between pairs"),
     Field("kv_separator", str, None, shown_default='`"="`', help="`keyvalue`: between key and value"),
-    Field("channels", dict, None, help="`csv`, `keyvalue`: one `[input.channels.NAME]` table per channel (below)"),
+    Field("channels", dict, None, help="`csv`, `keyvalue`, Modbus: one `[input.channels.NAME]` table per channel (below; Modbus maps in [modbus.md](modbus.md))"),
+    # Modbus (read and checked by settings/modbus_map.py; listed here so that they are known keys and documented)
+    Field("port", str, None, help="Modbus: the serial device (`modbus-rtu`) or `HOST:PORT` (`modbus-tcp`) when `--port` is not given"),
+    Field("poll_s", float, None, shown_default="1.0", help="Modbus: seconds between polls (one reading set per poll)"),
+    Field("timeout_s", float, None, shown_default="0.5", help="Modbus: seconds to wait for an answer"),
+    Field("retries", int, None, shown_default="2", help="Modbus: retries of a request before its channels are marked `ERR`"),
+    Field("device_time", dict, None, help="Modbus: an optional register map of the device's clock (see [modbus.md](modbus.md))"),
 )
 """``[input]``: how the line is read."""
-_SERIAL_KEYS = ("format", "baudrate", "bytesize", "parity", "stopbits", "clock")
+_SERIAL_KEYS = ("format", "baudrate", "bytesize", "parity", "stopbits", "clock", *sorted(MODBUS_INPUT_KEYS))
 
 CHANNEL_FIELDS = (
     Field("field", str, None, shown_default="NAME", help="the column (`csv`) or key (`keyvalue`) to read"),
@@ -390,6 +400,9 @@ def _read_input(reader: TomlReader, channel_names: set[str]) -> InputSettings:
     generic = {k: table[k] for k in v if k not in _SERIAL_KEYS and v[k] is not None}
     maps: dict[str, dict[str, Any]] = {}
     channels = v["channels"] or {}
+    if fmt in MODBUS_FORMATS:  # register maps: read and checked by settings/modbus_map.py (in _read, with the channels)
+        generic.pop("channels", None)
+        channels = {}
     for name, spec in channels.items():
         where = path + ("channels", name)
         if not isinstance(spec, dict):
@@ -475,6 +488,8 @@ def _read(reader: TomlReader) -> SiteProfile | None:
             reader.problem((), f"channel name {n!r} is used twice")
         seen.add(n)
     input_settings = _read_input(reader, set(names))
+    # Modbus register maps, checked against the channels above (firewatch/settings/modbus_map.py)
+    input_settings = replace(input_settings, modbus=read_modbus_input(reader, reader.table(("input",)), input_settings.format, tcs, pys, cold_names))
 
     alarms = reader.read(reader.table(("alarms",)), ("alarms",), ALARM_FIELDS)
     if alarms["divergence_clear_k"] > alarms["divergence_k"]:

@@ -24,8 +24,10 @@ schedule-deviation  temperature off the segment's plan by more than            l
 over-temperature    any temperature above over_temperature_c                   high
 rate-limit          faster than a critical range's max_rate inside the range   medium
 sensor-fault        thermocouple open; reading out of range; value frozen;     high/med.
-                    pyrometer below range or saturated when the thermocouples
-                    say it should read; line noise (many malformed lines)
+                    a device error or failed signal (no answer, a 4-20 mA
+                    loop outside NAMUR NE 43's range); pyrometer below range
+                    or saturated when the thermocouples say it should read;
+                    line noise (many malformed lines)
 no-data             no readings from the line, or a channel missing            high/med.
 =================== ========================================================== =========
 

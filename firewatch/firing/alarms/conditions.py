@@ -230,7 +230,7 @@ class SensorFaults:
     THERMOCOUPLE_CODES = (
         (Status.OPEN, "open-circuit", "thermocouple open"),
         (Status.OUT_OF_RANGE, "out-of-range", "reading outside the type's range"),
-        (Status.ERROR, "device-error", "device error or no cold junction"),
+        (Status.ERROR, "device-error", "device error or failed signal (no answer, a 4-20 mA loop outside NAMUR NE 43's range, or no cold junction)"),
     )
     CODE_ON_S, CODE_OFF_S = 5.0, 30.0
     RANGE_ON_S, RANGE_OFF_S = 60.0, 60.0
@@ -257,9 +257,14 @@ class SensorFaults:
         return out
 
     def pyrometer(self, name: str, times: np.ndarray, status: np.ndarray, reference: np.ndarray | None) -> list[Change]:
-        """Below range or saturated while the thermocouples (``reference``, degC) say it should read; a missing channel."""
+        """A failed signal; below range or saturated while the thermocouples (``reference``, degC) say it should read; a missing channel."""
         out: list[Change] = []
         py = self.site.pyrometer(name)
+        # a failed signal: a device error, no answer, or a 4-20 mA loop outside NAMUR NE 43's range
+        out += self.debounces.run(("sensor-fault", f"{name}:signal-failure"), times, status == Status.ERROR, status == Status.OK,
+                                  self.CODE_ON_S, self.CODE_OFF_S,
+                                  _fault(name, "signal-failure", "signal failed (a device error, no answer, or a 4-20 mA loop outside NAMUR NE 43's range)",
+                                         "medium"), "reading again")
         if py is not None and reference is not None and math.isfinite(py.range_c[0]):
             lo, hi = py.range_c
             under_bad = (status == Status.UNDER) & (reference > lo + self.RANGE_MARGIN_C)
@@ -296,7 +301,7 @@ class SensorFaults:
             self._last_change[name] = (frozen_since, float(value[idx]))
         else:
             self._last_change[name] = (last_t, last_v)
-        now = float(times[-1])
+        now = float(times[ok][-1])  # a value that then goes missing is missing, not frozen (issue 13)
         if now - frozen_since >= frozen_s:
             return [Raise("sensor-fault", f"{name}:frozen", frozen_since + frozen_s, f"{name}: value unchanged for {frozen_s:.0f} s",
                           "medium", cause="frozen")]
