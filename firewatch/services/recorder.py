@@ -10,9 +10,9 @@ and records the gap.
 from __future__ import annotations
 
 import json
+import logging
 import signal
 import sqlite3
-import sys
 import threading
 import time
 import traceback
@@ -37,6 +37,8 @@ from firewatch.transport.ports import PortEvent, PortReader, PortSettings
 
 __all__ = ["Ingest", "LineQueue", "Overflow", "Recorder", "make_parser", "GAP_S", "SQLITE_WAL_FIX", "QUEUE_BYTES", "BATCH_LINES",
            "sqlite_note", "AlarmLog", "attach_alarms"]
+
+log = logging.getLogger(__name__)
 
 GAP_S = 5.0
 """A silence longer than this between readings is recorded as a gap, seconds (after a restart or a
@@ -301,9 +303,7 @@ class Recorder:
         duration_s: float | None = None,
         commit_interval_s: float = 0.5,
         clock_fn: Callable[[], float] = time.time,
-        out=sys.stderr,
         mqtt_url: str | None = None,
-        verbose: bool = False,
         queue_bytes: int = QUEUE_BYTES,
     ) -> None:
         self.url = url
@@ -314,12 +314,10 @@ class Recorder:
         self.duration_s = duration_s
         self.commit_interval_s = min(commit_interval_s, 1.0)
         self.clock_fn = clock_fn
-        self.out = out
         self.stop_event = threading.Event()
         self.stop_reason = "signal"
         """Why :meth:`stop` was called (a signal, unless a caller says otherwise)."""
         self.mqtt_url = mqtt_url
-        self.verbose = verbose
         self._unmarked: dict[int | None, str] = {}
         self.publisher = None
         self._handed = 0
@@ -330,13 +328,6 @@ class Recorder:
         self._gap_reason = "serial disconnect"
         self._failed_before = 0
         self._failed_written = -1
-
-    def _say(self, text: str) -> None:
-        try:
-            self.out.write(f"firewatch record: {text}\n")
-            self.out.flush()
-        except (OSError, ValueError):  # the terminal went away; keep recording
-            pass
 
     def stop(self, reason: str = "signal") -> None:
         """Stop recording, from a signal handler or another thread; ``reason`` ends the session."""
@@ -380,19 +371,18 @@ class Recorder:
             self.actions: ActionQueue | None = ActionQueue(self.log_path)
         except (ActionFileError, sqlite3.Error) as exc:
             self.actions = None
-            self._say(f"operator actions unavailable ({exc}); recording goes on")
+            log.warning(f"operator actions unavailable ({exc}); recording goes on")
         # the SQLite note is kept with the session (and shown by inspect), not printed at every start
         note = sqlite_note(sqlite3.sqlite_version)
         sqlite_text = f"SQLite {sqlite3.sqlite_version}" + (f" ({note})" if note else "")
         now = self.clock_fn()
         writer.event(ingest.timeline(now), "start", f"recording {self.url}; {sqlite_text}")
         writer.commit()
-        self._say(
+        log.info(
             f"recording {self.url} to {self.log_path} ({'continuing the firing' if writer.continuing else 'new firing'}). "
             "Stop with Ctrl-C or SIGTERM."
         )
-        if self.verbose:
-            self._say(sqlite_text)
+        log.debug(sqlite_text)
         reader = self._input_reader(writer)
         reader.start()
         started = time.monotonic()
@@ -422,7 +412,7 @@ class Recorder:
             )
             writer.event(ingest.timeline(self.clock_fn()), "stop", detail)
             writer.close(reason)
-            self._say(f"stopped: {detail}")
+            log.info(f"stopped: {detail}")
         return reason
 
     def _input_reader(self, writer: LogWriter) -> PortReader | ModbusPoller:
@@ -474,7 +464,7 @@ class Recorder:
         engine.sink = on_transition
         ingest.hooks.append(on_batch)
         self.publisher = mqtt.Publisher(url, kiln, self.site)
-        self._say(f"publishing to {'mqtts' if url.tls else 'mqtt'}://{url.host}:{url.port}/{url.prefix}/{kiln}/ (store and forward)")
+        log.info(f"publishing to {'mqtts' if url.tls else 'mqtt'}://{url.host}:{url.port}/{url.prefix}/{kiln}/ (store and forward)")
 
     def _mqtt_cycle(self, writer: LogWriter, now: float) -> None:
         """Hand new outbox rows to the publisher, mark what the broker acknowledged, apply plant actions."""
@@ -499,7 +489,7 @@ class Recorder:
         try:
             pending = self.actions.pending()
         except sqlite3.Error as exc:
-            self._say(f"cannot read operator actions: {exc}")
+            log.warning(f"cannot read operator actions: {exc}")
             return
         for action in pending:
             if action.id in self._unmarked:
@@ -512,7 +502,7 @@ class Recorder:
                 self._unmarked.pop(action.id, None)
             except sqlite3.Error as exc:  # a busy side file must not end the recorder, nor apply twice
                 self._unmarked[action.id] = result
-                self._say(f"cannot mark operator action {action.id} applied ({exc}); retrying")
+                log.warning(f"cannot mark operator action {action.id} applied ({exc}); retrying")
 
     def _cycle(self, writer: LogWriter, ingest: Ingest) -> None:
         lines: list[tuple[float, bytes]] = []
@@ -531,13 +521,15 @@ class Recorder:
                 writer.event(ingest.timeline(item.t), item.kind, item.detail)
                 if item.kind == "disconnect":
                     ingest.pending_reason = self._gap_reason
-                    self._say(f"lost the port: {item.detail}; reconnecting")
+                    log.warning(f"lost the port: {item.detail}; reconnecting")
                 elif item.kind == "reconnect":
-                    self._say(f"reconnected to {self.url}")
+                    log.info(f"reconnected to {self.url}")
                 elif item.kind == "open-failed":
-                    self._say(item.detail + "; retrying")
-                elif item.kind in ("poll-failed", "poll-ok"):
-                    self._say(item.detail)
+                    log.warning(item.detail + "; retrying")
+                elif item.kind == "poll-failed":
+                    log.warning(item.detail)
+                elif item.kind == "poll-ok":
+                    log.info(item.detail)
             else:
                 lines.append(item)
         if lines:
@@ -569,7 +561,7 @@ class Recorder:
         writer.event(ingest.timeline(overflow.first), "overflow", detail)
         if time.monotonic() - self._overflow_said >= 60.0:
             self._overflow_said = time.monotonic()
-            self._say(f"{detail}; {ingest.dropped} dropped so far")
+            log.warning(f"{detail}; {ingest.dropped} dropped so far")
 
 
 class AlarmLog:
