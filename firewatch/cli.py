@@ -65,10 +65,17 @@ def build_parser() -> Parser:
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=Parser)
     for name, module in COMMANDS.items():
         importlib.import_module(f"firewatch.commands.{module}").add_parser(sub)
-    for command in sub.choices.values():
-        # the same options after the subcommand; SUPPRESS keeps a value given before it
-        _add_common(command)
+    _add_common_below(parser)
     return parser
+
+
+def _add_common_below(parser: argparse.ArgumentParser) -> None:
+    """The same options after every subcommand, nested ones too (``calc tc``)."""
+    for action in parser._actions:  # argparse lists subcommands only there
+        if isinstance(action, argparse._SubParsersAction):
+            for command in action.choices.values():
+                _add_common(command)
+                _add_common_below(command)
 
 
 def _add_common(parser: argparse.ArgumentParser, top: bool = False) -> None:
