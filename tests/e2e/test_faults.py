@@ -77,7 +77,7 @@ def test_emissivity_step_through_a_cold_sight_tube(tmp_path: Path) -> None:
 
 def test_thermocouple_lag_is_named(tmp_path: Path) -> None:
     # tc2 in a heavy sheath lagging ten times its profile's 60 s: during the ramp the
-    # divergence follows the rate (shared/design.md section 3).
+    # divergence follows the rate: a first-order lag reads rate x time constant behind (common practice, no source).
     text = (DATA / "cold-sight-scenario.toml").read_text().replace("[ware]", "[instruments.tc2]\ntime_constant_s = 900\n\n[ware]")
     text = text.replace('site = "cold-sight-site.toml"', 'site = "demo-site.toml"')
     path = tmp_path / "lag.toml"

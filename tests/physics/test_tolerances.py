@@ -12,16 +12,16 @@ from firewatch.physics.tolerances import tolerance, tolerance_uncertainty
     ("tc_type", "t_c", "cls", "expected"),
     [
         # ASTM E230: K and N, +/-2.2 degC or 0.75 %, standard; 1.1 degC or 0.4 % special
-        # (shared/design.md section 2)
+        # (ASTM E230/E230M, Table 1)
         ("K", 100.0, "astm-standard", 2.2),
         ("K", 1000.0, "astm-standard", 7.5),
         ("N", 1000.0, "astm-special", 4.0),
         ("K", 200.0, "astm-special", 1.1),
-        # ASTM E230 R and S: 1.5 degC or 0.25 %; 0.6 degC or 0.1 % (shared/design.md)
+        # ASTM E230 R and S: 1.5 degC or 0.25 %; 0.6 degC or 0.1 % (ASTM E230/E230M, Table 1)
         ("S", 400.0, "astm-standard", 1.5),
         ("R", 1400.0, "astm-standard", 3.5),
         ("S", 1400.0, "astm-special", 1.4),
-        # ASTM E230 B: 0.5 % / 0.25 % over 870-1700 degC (shared/design.md)
+        # ASTM E230 B: 0.5 % / 0.25 % over 870-1700 degC (ASTM E230/E230M, Table 1)
         ("B", 1200.0, "astm-standard", 6.0),
         ("B", 1200.0, "astm-special", 3.0),
         # IEC 60584-1 class 2, K: 2.5 degC to 333 degC, 0.0075 |t| above (from memory)
@@ -42,7 +42,7 @@ def test_outside_class_range_is_nan() -> None:
 
 
 def test_rectangular_standard_uncertainty() -> None:
-    # tolerance as a rectangular bound: u = tol/sqrt(3) (GUM 4.3.7; shared/design.md section 3)
+    # tolerance as a rectangular bound: u = tol/sqrt(3) (GUM, JCGM 100:2008, 4.3.7)
     assert float(tolerance_uncertainty("K", 1000.0)) == pytest.approx(7.5 / np.sqrt(3))
 
 

@@ -17,8 +17,8 @@ from firewatch.physics.windows import (
 )
 
 DATA_INDEX = [
-    ("fused-silica", 0.90, 1.45175, 5e-5),  # Malitson 1965 (shared/design.md section 8)
-    ("sapphire", 1.60, 1.74530, 5e-5),  # Malitson & Dodge 1972, ordinary ray (shared/design.md)
+    ("fused-silica", 0.90, 1.45175, 5e-5),  # Malitson 1965
+    ("sapphire", 1.60, 1.74530, 5e-5),  # Malitson & Dodge 1972, ordinary ray
     ("fused-silica", 0.5876, 1.4585, 2e-4),  # Malitson 1965, d line, from memory
     ("calcium-fluoride", 0.5876, 1.4338, 2e-4),  # Malitson 1963, d line, from memory
     ("sapphire", 0.5876, 1.7682, 3e-4),  # Malitson & Dodge 1972, n_o at the d line, from memory
@@ -32,7 +32,8 @@ def test_refractive_index(name: str, lam_um: float, n: float, tol: float) -> Non
 
 
 def test_slab_transmission_check_values() -> None:
-    # shared/design.md section 8: fused silica 0.90 um -> 0.9343; sapphire (o) 1.60 um -> 0.8627.
+    # Fresnel slab transmission 2n/(n^2+1), Born & Wolf 1999, of Malitson 1965's and Malitson & Dodge 1972's indices, worked by hand:
+    # fused silica 0.90 um -> 0.9343; sapphire (o) 1.60 um -> 0.8627.
     assert float(slab_transmission(1.45175)) == pytest.approx(0.9343, abs=5e-5)
     assert float(slab_transmission(1.74530)) == pytest.approx(0.8627, abs=5e-5)
     # a slab of index 1 loses nothing (Fresnel, common practice)
@@ -41,7 +42,8 @@ def test_slab_transmission_check_values() -> None:
 
 @pytest.mark.parametrize(
     ("name", "expected"),
-    # band-effective values for a 0.9 um band (shared/design.md section 2, common practice)
+    # band-effective values for a 0.9 um band: Fresnel slab transmission 2n/(n^2+1), Born & Wolf 1999, of the indices of Malitson 1965,
+    # Malitson & Dodge 1972 (ordinary ray) and Malitson 1963 (calcium fluoride), worked by hand
     [("fused-silica", 0.934), ("sapphire", 0.860), ("calcium-fluoride", 0.939)],
 )
 def test_band_effective_near_design_values(name: str, expected: float) -> None:
@@ -50,7 +52,7 @@ def test_band_effective_near_design_values(name: str, expected: float) -> None:
 
 
 def test_glass_passes_no_thermal_band() -> None:
-    # Glass windows do not pass 8-14 um (shared/design.md section 2, common practice);
+    # Glass windows do not pass 8-14 um (common practice, no source);
     # calcium fluoride passes part of it (cut-off 9-10 um, from memory).
     thermal = Band(8.0, 14.0)
     for name in ("fused-silica", "sapphire", "borosilicate"):
@@ -69,8 +71,8 @@ def test_cutoffs_in_expected_order() -> None:
 
 
 def test_clean_fused_silica_reads_about_7_k_low() -> None:
-    # shared/design.md section 2: an uncorrected clean fused-silica window reads
-    # about 7 K low at 1000 degC and 0.9 um.
+    # An uncorrected clean fused-silica window reads about 7 K low at 1000 degC and 0.9 um: Wien's
+    # approximation, dT = lambda T^2 / c2 * ln(1/0.9343) = 6.9 K (DeWitt & Nutter 1988; worked by hand).
     low = 1000.0 - float(indicated_single_band(1000.0, Band(0.89, 0.91), 1.0, Window("fused-silica")))
     assert 6.5 < low < 7.5
 
