@@ -20,10 +20,8 @@ FORMAT = "%(asctime)s %(levelname)s %(name)s: %(message)s"
 class UtcFormatter(logging.Formatter):
     """ISO 8601 times in UTC with milliseconds, e.g. ``2024-05-01T12:00:00.250Z``."""
 
-    converter = time.gmtime
-
     def formatTime(self, record: logging.LogRecord, datefmt: str | None = None) -> str:  # noqa: N802 (logging's name)
-        stamp = time.strftime("%Y-%m-%dT%H:%M:%S", self.converter(record.created))
+        stamp = time.strftime("%Y-%m-%dT%H:%M:%S", time.gmtime(record.created))
         return f"{stamp}.{int(record.msecs):03d}Z"
 
     def format(self, record: logging.LogRecord) -> str:
@@ -31,13 +29,13 @@ class UtcFormatter(logging.Formatter):
         return super().format(record).replace("\n", " | ")
 
 
-class _Stderr(logging.StreamHandler):  # type: ignore[type-arg]
+class _Stderr(logging.StreamHandler):
     """A handler writing to whatever ``sys.stderr`` is now (pytest and the demo replace it)."""
 
     def __init__(self) -> None:
         super().__init__(sys.stderr)
 
-    @property  # type: ignore[override]
+    @property
     def stream(self) -> object:
         return sys.stderr
 

@@ -76,7 +76,7 @@ def run(args: argparse.Namespace) -> int:
     from rich.table import Table
 
     console = Console()
-    span = duration_text(result.end_t - result.start_t) if result.start_t is not None else "-"
+    span = duration_text(result.end_t - result.start_t) if result.start_t is not None and result.end_t is not None else "-"
     console.print(f"re-evaluated {args.log}: {result.lines} lines ({result.malformed} malformed), {span}, site '{site.name}', "
                   f"schedule '{info['schedule']}'. The log was not changed; it recorded {original} alarm(s).")
     table = Table(title=f"{len(alarms)} alarm(s) on re-evaluation", title_justify="left")

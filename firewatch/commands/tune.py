@@ -78,7 +78,7 @@ def run(args: argparse.Namespace) -> int:
         out["slope_per_100c"] = result.slope_per_100c
     if result.transmission is not None:
         out["transmission"] = result.transmission
-        out["transmission_ci95"] = list(result.transmission_ci95)
+        out["transmission_ci95"] = list(result.transmission_ci95) if result.transmission_ci95 is not None else None
     if args.apply:
         values = {"emissivity": result.emissivity,
                   "emissivity_uncertainty": round((result.ci95[1] - result.ci95[0]) / (2 * 1.96), 4)}

@@ -19,6 +19,7 @@ import traceback
 from collections import deque
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 from pathlib import Path
 
 import numpy as np
@@ -34,6 +35,9 @@ from firewatch.transport.modbus import ModbusParser, plan_requests
 from firewatch.transport.modbus_poll import LinkSettings, ModbusPoller
 from firewatch.transport.native import NativeParser
 from firewatch.transport.ports import PortEvent, PortReader, PortSettings
+
+if TYPE_CHECKING:  # paho-mqtt is optional: imported only when publishing
+    from firewatch.services.mqtt import Publisher
 
 __all__ = ["Ingest", "LineQueue", "Overflow", "Recorder", "make_parser", "GAP_S", "SQLITE_WAL_FIX", "QUEUE_BYTES", "BATCH_LINES",
            "sqlite_note", "AlarmLog", "attach_alarms"]
@@ -319,7 +323,7 @@ class Recorder:
         """Why :meth:`stop` was called (a signal, unless a caller says otherwise)."""
         self.mqtt_url = mqtt_url
         self._unmarked: dict[int | None, str] = {}
-        self.publisher = None
+        self.publisher: Publisher | None = None
         self._handed = 0
         self.latencies: list[float] = []
         self._queue = LineQueue(queue_bytes)
@@ -434,6 +438,8 @@ class Recorder:
 
     def _count_failed_polls(self, writer: LogWriter) -> None:
         """Keep the log's count of failed Modbus polls (shown by inspect) in the batch's transaction."""
+        if self.poller is None:
+            return
         n = self._failed_before + self.poller.failed_polls
         if n != self._failed_written:
             writer.execute("INSERT INTO meta(key, value) VALUES ('failed_polls', ?) ON CONFLICT(key) DO UPDATE SET value = excluded.value", (str(n),))
@@ -443,6 +449,8 @@ class Recorder:
         """Publish through the outbox: messages are written with the readings, sent by a thread."""
         from firewatch.services import mqtt
 
+        if self.mqtt_url is None:
+            return
         url = mqtt.parse_mqtt_url(self.mqtt_url)
         kiln = mqtt.kiln_id_for(self.site)
         self.outbox = outbox = Outbox(writer)
@@ -469,6 +477,8 @@ class Recorder:
     def _mqtt_cycle(self, writer: LogWriter, now: float) -> None:
         """Hand new outbox rows to the publisher, mark what the broker acknowledged, apply plant actions."""
         pub = self.publisher
+        if pub is None:
+            return
         acked = pub.acked()
         if acked:
             self.outbox.mark_sent(acked, self.clock_fn())
