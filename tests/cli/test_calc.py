@@ -45,11 +45,11 @@ def test_pyro(capsys) -> None:
     assert 1215 < out["corrected_c"] < 1235 and out["uncertainty_c"] > 0  # common practice, no source
     win = run_json(capsys, "pyro", "--indicated", "1200", "--band", "0.89:0.91", "--emissivity", "1",
                    "--window", "fused-silica")
-    assert win["transmission"] == pytest.approx(0.934, abs=0.001)  # shared/design.md, fused silica 0.9 um
+    assert win["transmission"] == pytest.approx(0.934, abs=0.001)  # 2n/(n^2+1) at Malitson 1965's n = 1.45175 (0.90 um)
 
 
 def test_pyro_predicts_reading(capsys) -> None:
-    # clean fused silica reads about 7 K low at 1000 degC and 0.9 um (shared/design.md)
+    # clean fused silica reads about 7 K low at 1000 degC and 0.9 um (Wien form, DeWitt & Nutter 1988: 6.9 K)
     out = run_json(capsys, "pyro", "--true", "1000", "--band", "0.89:0.91", "--emissivity", "1", "--window", "fused-silica")
     assert 6.5 < 1000 - out["indicated_c"] < 7.5
     assert out["corrected_c"] == pytest.approx(1000.0, abs=1e-3)
@@ -57,18 +57,18 @@ def test_pyro_predicts_reading(capsys) -> None:
 
 def test_ratio(capsys) -> None:
     out = run_json(capsys, "ratio", "--indicated", "1000", "--band1", "0.945:0.955", "--band2", "1.045:1.055", "--slope", "1.01")
-    assert 1000 - out["corrected_c"] == pytest.approx(11.0, abs=0.5)  # shared/design.md, about 11 K
+    assert 1000 - out["corrected_c"] == pytest.approx(11.0, abs=0.5)  # Wien ratio form (DeWitt & Nutter 1988), about 11 K
 
 
 def test_window(capsys) -> None:
     out = run_json(capsys, "window", "--material", "sapphire", "--band", "1.59:1.61", "--temperature", "1100")
-    assert out["transmission"] == pytest.approx(0.8627, abs=2e-4)  # Malitson & Dodge 1972 (shared/design.md)
+    assert out["transmission"] == pytest.approx(0.8627, abs=2e-4)  # 2n/(n^2+1) at Malitson & Dodge 1972's n_o = 1.74530
 
 
 def test_people_table(capsys) -> None:
     assert main(["calc", "window", "--material", "calcium-fluoride", "--band", "0.8:1.0"]) == 0
     text = capsys.readouterr().out
-    assert "band-effective transmission" in text and "0.939" in text  # shared/design.md ~0.939
+    assert "band-effective transmission" in text and "0.939" in text  # 2n/(n^2+1) at Malitson 1963's index near 0.9 um, ~0.939 (from memory)
 
 
 @pytest.mark.parametrize(

@@ -71,7 +71,7 @@ def test_cli_json_and_apply_round_trip(tmp_path: Path) -> None:
 
 
 def test_refuses_a_closed_kiln(tmp_path: Path) -> None:
-    # walls at the ware's temperature hide its emissivity (the cavity effect, shared/design.md)
+    # walls at the ware's temperature hide its emissivity (the cavity effect; DeWitt & Nutter 1988)
     log = simulate(tmp_path, None, 5)
     out = run("tune", str(log))
     assert out.returncode == 1
