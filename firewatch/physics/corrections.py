@@ -296,34 +296,56 @@ def _probe(
     band: Band, scene_band: Band, eps_b: NDArray[np.float64], ue: NDArray[np.float64], gray: NDArray[np.float64],
     tau_eff: NDArray[np.float64], u_tau: NDArray[np.float64], log_meas: NDArray[np.float64], t_ind: NDArray[np.float64],
     u_ind: NDArray[np.float64], settings: NDArray[np.float64], t_bg: NDArray[np.float64] | None,
-    u_bg: NDArray[np.float64], shape: tuple[int, ...],
+    u_bg: NDArray[np.float64], shape: tuple[int, ...], t: NDArray[np.float64],
 ) -> NDArray[np.float64]:
-    """The corrected temperature (K) at the twelve probe points of :func:`_check_linearity`, stacked on a first axis."""
+    """The corrected temperature (K) at the probe points of :func:`_check_linearity`, stacked on a first axis.
+
+    Twelve rows: emissivity +/-, transmission +/-, indicated +/-, background +/-, then the emissivity-background
+    corners (++, +-, -+, --). Rows for an input without uncertainty are ``t``, the estimate itself (not computed).
+    """
     has_bg = t_bg is not None
+    lm = np.broadcast_to(log_meas, shape)
+    g_b = np.broadcast_to(gray, shape)
+    sb = np.broadcast_to(np.exp(scene_band.log_signal(t_bg)), shape) if has_bg else None
+    active = [bool(np.any(ue > 0)), bool(np.any(u_tau > 0)), bool(np.any(u_ind > 0)), has_bg and bool(np.any(u_bg > 0))]
     e_hi = np.minimum(eps_b + 2 * ue, 1.0)
     e_lo = np.maximum(eps_b - 2 * ue, 1e-6)
-    g_b = np.broadcast_to(gray, shape)
-    g_hi = np.broadcast_to(g_b * np.minimum(1.0 + 2 * u_tau / tau_eff, 1.0 / tau_eff), shape)
-    g_lo = np.broadcast_to(g_b * np.maximum(1.0 - 2 * u_tau / tau_eff, 1e-6), shape)
-    lm = np.broadcast_to(log_meas, shape)
-    lm_hi = np.broadcast_to(band.log_signal(t_ind + 2 * u_ind) + np.log(settings), shape)
-    lm_lo = np.broadcast_to(band.log_signal(np.maximum(t_ind - 2 * u_ind, 1.0)) + np.log(settings), shape)
-    if has_bg:
-        sb = np.broadcast_to(np.exp(scene_band.log_signal(t_bg)), shape)
+    if active[1]:
+        g_hi = np.broadcast_to(g_b * np.minimum(1.0 + 2 * u_tau / tau_eff, 1.0 / tau_eff), shape)
+        g_lo = np.broadcast_to(g_b * np.maximum(1.0 - 2 * u_tau / tau_eff, 1e-6), shape)
+    if active[2]:
+        lm_hi = np.broadcast_to(band.log_signal(t_ind + 2 * u_ind) + np.log(settings), shape)
+        lm_lo = np.broadcast_to(band.log_signal(np.maximum(t_ind - 2 * u_ind, 1.0)) + np.log(settings), shape)
+    if active[3]:
         sb_hi = np.broadcast_to(np.exp(scene_band.log_signal(t_bg + 2 * u_bg)), shape)
         sb_lo = np.broadcast_to(np.exp(scene_band.log_signal(np.maximum(t_bg - 2 * u_bg, 1.0))), shape)
-    else:
-        sb = sb_hi = sb_lo = np.zeros(shape)
-    # probes: (emissivity, gray, ln S_meas, background signal) for each input's two ends and the four corners
-    probes = [
-        (e_hi, g_b, lm, sb), (e_lo, g_b, lm, sb),
-        (eps_b, g_hi, lm, sb), (eps_b, g_lo, lm, sb),
-        (eps_b, g_b, lm_hi, sb), (eps_b, g_b, lm_lo, sb),
-        (eps_b, g_b, lm, sb_hi), (eps_b, g_b, lm, sb_lo),
-        (e_hi, g_b, lm, sb_hi), (e_hi, g_b, lm, sb_lo), (e_lo, g_b, lm, sb_hi), (e_lo, g_b, lm, sb_lo),
-    ]
-    e_p, g_p, lm_p, sb_p = (np.stack(parts) for parts in zip(*probes))
-    log_scene, _ = _log_scene(lm_p - np.log(g_p), e_p, sb_p if has_bg else None)
+    # (emissivity, gray, ln S_meas, background signal) at each probe that moves something
+    wanted: dict[int, tuple] = {}
+    if active[0]:
+        wanted[0], wanted[1] = (e_hi, g_b, lm, sb), (e_lo, g_b, lm, sb)
+    if active[1]:
+        wanted[2], wanted[3] = (eps_b, g_hi, lm, sb), (eps_b, g_lo, lm, sb)
+    if active[2]:
+        wanted[4], wanted[5] = (eps_b, g_b, lm_hi, sb), (eps_b, g_b, lm_lo, sb)
+    if active[3]:
+        wanted[6], wanted[7] = (eps_b, g_b, lm, sb_hi), (eps_b, g_b, lm, sb_lo)
+        if active[0]:
+            for row, (e, b) in enumerate(((e_hi, sb_hi), (e_hi, sb_lo), (e_lo, sb_hi), (e_lo, sb_lo)), start=8):
+                wanted[row] = (e, g_b, lm, b)
+    out = np.empty((12, *shape))
+    out[...] = t
+    if wanted:
+        rows = sorted(wanted)
+        e_p, g_p, lm_p = (np.stack([wanted[r][k] for r in rows]) for k in range(3))
+        sb_p = np.stack([wanted[r][3] for r in rows]) if has_bg else None
+        out[rows] = _solve(scene_band, lm_p - np.log(g_p), e_p, sb_p)
+    return out
+
+
+def _solve(scene_band: Band, log_meas_gray: NDArray[np.float64], eps: NDArray[np.float64],
+           s_bg: NDArray[np.float64] | None) -> NDArray[np.float64]:
+    """The ware's temperature, K, from ln(S_meas / f), without checks (NaN where there is none)."""
+    log_scene, _ = _log_scene(log_meas_gray, eps, s_bg)
     return scene_band.temperature_from_log_signal(log_scene)
 
 
@@ -350,7 +372,7 @@ def _check_linearity(
         return
     with warnings.catch_warnings(), np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         warnings.simplefilter("ignore", OutOfRangeWarning)  # a probe off the table is an undefined value, counted below
-        f = _probe(band, scene_band, eps_b, ue, gray, tau_eff, u_tau, log_meas, t_ind, u_ind, settings, t_bg, u_bg, shape)
+        f = _probe(band, scene_band, eps_b, ue, gray, tau_eff, u_tau, log_meas, t_ind, u_ind, settings, t_bg, u_bg, shape, t)
     d = f - np.broadcast_to(t, shape)
     pairs = d[:8].reshape(4, 2, *shape)
     up = np.sqrt(np.sum(np.square(np.maximum(pairs.max(axis=1), 0.0)), axis=0))

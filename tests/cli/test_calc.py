@@ -65,6 +65,45 @@ def test_window(capsys) -> None:
     assert out["transmission"] == pytest.approx(0.8627, abs=2e-4)  # 2n/(n^2+1) at Malitson & Dodge 1972's n_o = 1.74530
 
 
+def test_window_states_the_dispersion_formulas_validity(capsys) -> None:
+    # issue 12: the index at the end of the formula's validity was reported as the band's.
+    # Malitson 1965's fused-silica formula holds from 0.21 to 3.71 um.
+    thermal = run_json(capsys, "window", "--material", "fused-silica", "--band", "8:14")
+    assert thermal["refractive_index"] is None and thermal["dispersion_valid_um"] == [0.21, 3.71]
+    assert "outside the dispersion formula's validity" in thermal["dispersion_note"]
+    partly = run_json(capsys, "window", "--material", "fused-silica", "--band", "3:4")
+    assert partly["refractive_index"] is not None and "runs past" in partly["dispersion_note"]
+    inside = run_json(capsys, "window", "--material", "fused-silica", "--band", "0.89:0.91")
+    assert inside["refractive_index"] == pytest.approx(1.45175, abs=5e-5) and inside["dispersion_note"] is None  # Malitson 1965
+    assert main(["calc", "window", "--material", "fused-silica", "--band", "8:14"]) == 0
+    text = capsys.readouterr().out
+    assert "0.21-3.71 um" in text and "none: 11 um is outside" in text
+
+
+def test_pyro_monte_carlo_interval(capsys) -> None:
+    # issue 12: an asymmetric 95 % interval on request (JCGM 101:2008), reproducible for a seed
+    argv = ["pyro", "--indicated", "1200", "--band", "0.8:1.1", "--emissivity", "0.5", "--emissivity-uncertainty", "0.1"]
+    out = run_json(capsys, *argv, "--monte-carlo", "--draws", "20000")
+    mc = out["monte_carlo"]
+    assert set(mc) == {"draws", "seed", "mean_c", "u_c", "ci95_c", "undefined_fraction"} and mc["draws"] == 20000
+    low, high = mc["ci95_c"]
+    t, u = out["corrected_c"], out["uncertainty_c"]
+    assert high - t > 1.3 * (t - low)  # the hot side is longer: T goes as an inverse power of e
+    assert high - t > 1.96 * u * 1.15  # and longer than first-order propagation says (regression bound)
+    assert out["linear_unreliable"] and "u(e)/e = 0.20" in out["linear_unreliable"]
+    again = run_json(capsys, *argv, "--monte-carlo", "--draws", "20000")
+    assert again["monte_carlo"]["ci95_c"] == mc["ci95_c"]
+    # where first-order propagation is fine there is no note
+    plain = run_json(capsys, "pyro", "--indicated", "1200", "--band", "0.8:1.1", "--emissivity", "0.88", "--emissivity-uncertainty", "0.02")
+    assert plain["linear_unreliable"] is None and "monte_carlo" not in plain
+    # the people's table: the interval as "A to B", and the note
+    assert main(["calc", *argv, "--monte-carlo", "--draws", "1000"]) == 0
+    text = capsys.readouterr().out
+    assert "95 % interval (Monte Carlo" in text and " to " in text and "note: first-order uncertainty unreliable" in text
+    assert main(["calc", *argv]) == 0
+    assert "calc pyro --monte-carlo" in capsys.readouterr().out
+
+
 def test_people_table(capsys) -> None:
     assert main(["calc", "window", "--material", "calcium-fluoride", "--band", "0.8:1.0"]) == 0
     text = capsys.readouterr().out
@@ -83,6 +122,15 @@ def test_people_table(capsys) -> None:
         (["window", "--material", "glass", "--band", "1:2"], "--material: unknown window material 'glass'"),
         (["pyro", "--indicated", "1200", "--band-file", "/no/such.csv", "--emissivity", "0.9"], "--band-file: no such file"),
         (["pyro", "--indicated", "9000", "--band", "0.8:1.1", "--emissivity", "0.9"], "--indicated:"),
+        # issue 12: the exact rejected value, not a rounded one (type K's range ends at 1372 degC, NIST Monograph 175)
+        (["tc", "--type", "K", "--temperature", "1372.0001"], "1372.0001 is outside -270..1372 degC"),
+        # issue 12: one reading below its background is an error, as the README says
+        (["pyro", "--indicated", "900", "--band", "0.8:1.1", "--emissivity", "0.5", "--background", "1150"],
+         "--indicated: indicated temperature (degC) 900 lies below what the background at 1150 degC"),
+        (["pyro", "--indicated", "900", "--band", "0.8:1.1", "--emissivity", "0.5", "--monte-carlo", "--draws", "5"],
+         "--draws: must be at least 100"),
+        (["pyro", "--indicated", "900", "--band", "0.8:1.1", "--emissivity", "0.5", "--background-uncertainty", "5"],
+         "--background-uncertainty: needs --background"),
     ],
 )
 def test_bad_input_one_line_exit_2(capsys, argv: list[str], fragment: str) -> None:
