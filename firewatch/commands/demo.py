@@ -22,12 +22,34 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--speed", type=_args.positive, default=60.0, help="simulated seconds per real second (default 60)")
     p.add_argument("--log", metavar="FILE.db", help="keep the firing log here (default: a temporary file, removed on exit)")
     p.add_argument("--fault", action="append", default=[], metavar="KIND@MINUTES[:K=V,...]", help="a simulator fault (repeatable)")
+    p.add_argument("--scenario", metavar="NAME|FILE", help="a built-in scenario by name (closed-kiln, open-port; see "
+                   "firewatch sim --list-scenarios) or a scenario TOML (default: closed-kiln)")
 
 
-def start_demo(log: Path, speed: float, faults: list[str]) -> tuple[subprocess.Popen, subprocess.Popen]:
+def scenario_profiles(scenario: str | None) -> list[str]:
+    """The recorder's ``--site`` and ``--schedule`` for a scenario (name or file), so that it records what is simulated."""
+    from firewatch.settings._tomlcheck import ProfileError
+    from firewatch.simulator.scenario import load_scenario
+
+    try:
+        sc = load_scenario(scenario)
+    except ProfileError as exc:
+        raise UsageError(f"--scenario: {exc.problems[0]}") from None
+    out: list[str] = []
+    if sc.site.path is not None:
+        out += ["--site", str(sc.site.path)]
+    if sc.schedule.path is not None:
+        out += ["--schedule", str(sc.schedule.path)]
+    return out
+
+
+def start_demo(log: Path, speed: float, faults: list[str], scenario: str | None = None) -> tuple[subprocess.Popen, subprocess.Popen]:
     """Start the simulator and a recorder; return both processes once the log has readings."""
+    profiles = scenario_profiles(scenario)
+    chosen = ["--scenario", str(scenario)] if scenario else []
     sim = subprocess.Popen(
-        [sys.executable, "-m", "firewatch", "sim", "--tcp", "127.0.0.1:0", "--speed", f"{speed:g}", *sum((["--fault", f] for f in faults), [])],
+        [sys.executable, "-m", "firewatch", "sim", "--tcp", "127.0.0.1:0", "--speed", f"{speed:g}", *chosen,
+         *sum((["--fault", f] for f in faults), [])],
         stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True,
     )
     first = sim.stdout.readline().strip() if sim.stdout else ""
@@ -36,7 +58,8 @@ def start_demo(log: Path, speed: float, faults: list[str]) -> tuple[subprocess.P
         raise UsageError("the simulator did not start")
     port = first.rsplit(":", 1)[1]
     rec = subprocess.Popen(
-        [sys.executable, "-m", "firewatch", "record", "--port", f"socket://127.0.0.1:{port}", "--clock", "device", "--log", str(log)],
+        [sys.executable, "-m", "firewatch", "record", "--port", f"socket://127.0.0.1:{port}", "--clock", "device", "--log", str(log),
+         *profiles],
         stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
     )
     from firewatch.store._common import LogError
@@ -79,7 +102,7 @@ def run(args: argparse.Namespace) -> int:
         log = tmp / "demo-firing.db"
     sim = rec = None
     try:
-        sim, rec = start_demo(log, args.speed, args.fault)
+        sim, rec = start_demo(log, args.speed, args.fault, args.scenario)
         from firewatch.ui import run_watch
 
         return run_watch(log)
