@@ -10,6 +10,8 @@ Run by hand: ``python benchmarks/bench_tune.py``.
 
 from __future__ import annotations
 
+import os
+import subprocess
 import sys
 import tempfile
 import time
@@ -65,6 +67,12 @@ def bench(name: str, log: Path) -> None:
         print(f"  ware's emissivity {w.emissivity:.3f} ({w.ci95[0]:.3f} to {w.ci95[1]:.3f})")
     else:
         print(f"  ware's emissivity hidden: {result.hidden_reason}")
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    t_cli = best_of(lambda: subprocess.run([sys.executable, "-m", "firewatch", "tune", str(log), "--json"], env=env,
+                                           capture_output=True, check=True))
+    t_start = best_of(lambda: subprocess.run([sys.executable, "-m", "firewatch", "--version"], env=env, capture_output=True))
+    print(f"  firewatch tune --json, a new process:  {t_cli:6.3f} s  (the process start alone {t_start:.3f} s; "
+          f"tuning in it {t_cli - t_start:.3f} s, ratio to the baseline {(t_cli - t_start) / t_load:.2f})")
     idx = np.unique(np.linspace(0, data.t.size - 1, 2000).astype(int))
     t_key = best_of(lambda: reconcile_with(data, 0.8, 1.0, idx), repeat=20)
     print(f"  tuning screen, one key press: reconcile 2000 points {t_key * 1e3:.1f} ms (target <= 100 ms with the redraw)")

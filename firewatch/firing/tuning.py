@@ -118,7 +118,11 @@ class EmissivityHidden(TuneError):
 
 @dataclass
 class TuneData:
-    """What the fit works on, for one pyrometer and its reference, over the whole firing."""
+    """What both answers work on, for one pyrometer and its reference, over the span where the pyrometer read.
+
+    ``t``, ``indicated``, ``ref``, ``background``, ``valid`` and ``rate`` are aligned arrays, one element per
+    reading set; ``start_t`` is the firing's first reading (times in ``windows`` are counted from it).
+    """
 
     py: Pyrometer
     reference: str
@@ -140,6 +144,8 @@ class TuneData:
 
 @dataclass
 class FitResult:
+    """The ware's emissivity (constant, or linear in temperature) and optionally a transmission factor, fitted."""
+
     emissivity: float
     ci95: tuple[float, float]
     model: str
@@ -164,10 +170,10 @@ class InstrumentSetting:
     emissivity: float
     ci95: tuple[float, float]
     basis: str
-    """Where it comes from: "the hold at 1200 degC (9.97 h to 10.97 h)" or "all valid stretches"."""
+    """Where it comes from: "the hold at 1200 °C (9.97 h to 10.97 h), the firing's top" or "all valid stretches (...)"."""
     points: int
     by_stretch: list[dict[str, Any]] = field(default_factory=list)
-    """One entry per valid stretch: start_s, end_s, ref_c, hold, emissivity, ci95, points."""
+    """One entry per valid stretch: start_s, end_s, ref_c, hold, emissivity, ci95, points (and basis: True on the one used)."""
     note: str = ""
 
 
@@ -311,7 +317,7 @@ def check_usable(data: TuneData) -> None:
         read = [w for w in data.windows if not w["used"]]
         lo, hi = data.py.range_c
         if not read:
-            raise TuneError(f"{name} never read in its range ({lo:g} to {hi:g} degC), so no stretch is usable")
+            raise TuneError(f"{name} never read in its range ({lo:g} to {hi:g} °C), so no stretch is usable")
         worst = max(read, key=lambda w: w["points"])
         if "failed or out of range" in worst["reason"]:
             raise TuneError(f"the reference thermocouple {ref} failed or was out of range while {name} read "
@@ -365,7 +371,7 @@ def _setting_estimate(data: TuneData, idx: np.ndarray, log_e: np.ndarray) -> tup
     return value, (value * math.exp(-1.96 * u_ln), value * math.exp(1.96 * u_ln))
 
 
-def finite_mask(n: int, idx: np.ndarray) -> np.ndarray:
+def _mask(n: int, idx: np.ndarray) -> np.ndarray:
     """A boolean mask of length ``n``, True at ``idx``."""
     mask = np.zeros(n, dtype=bool)
     mask[idx] = True
@@ -421,8 +427,8 @@ def instrument_setting(data: TuneData) -> InstrumentSetting:
     position = np.full(data.t.size, -1)
     position[idx] = np.arange(idx.size)
     stretches: list[dict[str, Any]] = []
-    top: tuple[int, int] | None = None
-    for a, b, hold in _stretches(data, finite_mask(data.t.size, idx)):
+    top: int | None = None
+    for a, b, hold in _stretches(data, _mask(data.t.size, idx)):
         sel = position[a:b]
         sel = sel[sel >= 0]
         e, ci = _setting_estimate(data, idx[sel], log_e[sel])
@@ -431,10 +437,10 @@ def instrument_setting(data: TuneData) -> InstrumentSetting:
                  "ref_c": round(ref_c, 1), "hold": hold, "emissivity": round(e, 4),
                  "ci95": [round(ci[0], 4), round(ci[1], 4)], "points": int(sel.size)}
         stretches.append(entry)
-        if hold and ref_c >= top_c - TOP_HOLD_BAND_C and (top is None or sel.size > stretches[top[0]]["points"]):
-            top = (len(stretches) - 1, a)
+        if hold and ref_c >= top_c - TOP_HOLD_BAND_C and (top is None or sel.size > stretches[top]["points"]):
+            top = len(stretches) - 1
     if top is not None:
-        entry = stretches[top[0]]
+        entry = stretches[top]
         value, ci = entry["emissivity"], (entry["ci95"][0], entry["ci95"][1])
         basis = (f"the hold at {entry['ref_c']:.0f} °C ({entry['start_s'] / 3600:.2f} h to "
                  f"{entry['end_s'] / 3600:.2f} h), the firing's top")
