@@ -68,7 +68,7 @@ See ``DeWitt1988``, ``GUM2008``, ``JCGM101`` and ``Planck1901`` in docs/referenc
 from __future__ import annotations
 
 import warnings
-from typing import overload
+from typing import Any, overload
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -292,61 +292,63 @@ def _log_scene(log_meas_gray: NDArray[np.float64], eps: NDArray[np.float64], s_b
         return np.log(np.where(below, np.nan, s_scene)), below
 
 
+_INPUTS = ("emissivity", "transmission", "indicated temperature", "background")
+
+
 def _probe(
-    band: Band, scene_band: Band, eps_b: NDArray[np.float64], ue: NDArray[np.float64], gray: NDArray[np.float64],
-    tau_eff: NDArray[np.float64], u_tau: NDArray[np.float64], log_meas: NDArray[np.float64], t_ind: NDArray[np.float64],
-    u_ind: NDArray[np.float64], settings: NDArray[np.float64], t_bg: NDArray[np.float64] | None,
-    u_bg: NDArray[np.float64], shape: tuple[int, ...], t: NDArray[np.float64],
-) -> NDArray[np.float64]:
-    """The corrected temperature (K) at the probe points of :func:`_check_linearity`, stacked on a first axis.
+    band: Band, scene_band: Band, t: NDArray[np.float64], eps: NDArray[np.float64], u_eps: NDArray[np.float64],
+    gray: NDArray[np.float64], tau_eff: NDArray[np.float64], u_tau: NDArray[np.float64], log_meas: NDArray[np.float64],
+    t_ind: NDArray[np.float64], u_ind: NDArray[np.float64], settings: NDArray[np.float64],
+    t_bg: NDArray[np.float64] | None, u_bg: NDArray[np.float64], shape: tuple[int, ...],
+) -> tuple[dict[int, tuple[NDArray[np.float64], NDArray[np.float64]]], NDArray[np.float64] | None]:
+    """Departures of the corrected temperature from ``t`` (K) at the probes of :func:`_check_linearity`.
 
-    Twelve rows: emissivity +/-, transmission +/-, indicated +/-, background +/-, then the emissivity-background
-    corners (++, +-, -+, --). Rows for an input without uncertainty are ``t``, the estimate itself (not computed).
+    Returns the departures at +2 u and -2 u for each input that has an uncertainty (keyed by its index in
+    ``_INPUTS``), and, where both the emissivity and the background have one, the product term: the mixed
+    difference over their four corners, scaled to f_xy u_x u_y and doubled to compare with a 95 % half-width.
+    All probes are solved in one pass: the scene signals are stacked, then one logarithm and one table lookup.
     """
-    has_bg = t_bg is not None
-    lm = np.broadcast_to(log_meas, shape)
-    g_b = np.broadcast_to(gray, shape)
-    sb = np.broadcast_to(np.exp(scene_band.log_signal(t_bg)), shape) if has_bg else None
-    active = [bool(np.any(ue > 0)), bool(np.any(u_tau > 0)), bool(np.any(u_ind > 0)), has_bg and bool(np.any(u_bg > 0))]
-    e_hi = np.minimum(eps_b + 2 * ue, 1.0)
-    e_lo = np.maximum(eps_b - 2 * ue, 1e-6)
-    if active[1]:
-        g_hi = np.broadcast_to(g_b * np.minimum(1.0 + 2 * u_tau / tau_eff, 1.0 / tau_eff), shape)
-        g_lo = np.broadcast_to(g_b * np.maximum(1.0 - 2 * u_tau / tau_eff, 1e-6), shape)
-    if active[2]:
-        lm_hi = np.broadcast_to(band.log_signal(t_ind + 2 * u_ind) + np.log(settings), shape)
-        lm_lo = np.broadcast_to(band.log_signal(np.maximum(t_ind - 2 * u_ind, 1.0)) + np.log(settings), shape)
-    if active[3]:
-        sb_hi = np.broadcast_to(np.exp(scene_band.log_signal(t_bg + 2 * u_bg)), shape)
-        sb_lo = np.broadcast_to(np.exp(scene_band.log_signal(np.maximum(t_bg - 2 * u_bg, 1.0))), shape)
-    # (emissivity, gray, ln S_meas, background signal) at each probe that moves something
-    wanted: dict[int, tuple] = {}
+    active = [bool(np.any(u_eps > 0)), bool(np.any(u_tau > 0)), bool(np.any(u_ind > 0)),
+              t_bg is not None and bool(np.any(u_bg > 0))]
+    s_m = np.broadcast_to(np.exp(log_meas) / gray, shape)
+    s_b = np.broadcast_to(np.exp(scene_band.log_signal(t_bg)), shape) if t_bg is not None else None
+    e = np.broadcast_to(eps, shape)
+    e_hi = np.broadcast_to(np.minimum(eps + 2 * u_eps, 1.0), shape)
+    e_lo = np.broadcast_to(np.maximum(eps - 2 * u_eps, 1e-6), shape)
+    rows: list[tuple[Any, Any, Any]] = []  # (measured signal / gray, emissivity, background signal) per probe
     if active[0]:
-        wanted[0], wanted[1] = (e_hi, g_b, lm, sb), (e_lo, g_b, lm, sb)
-    if active[1]:
-        wanted[2], wanted[3] = (eps_b, g_hi, lm, sb), (eps_b, g_lo, lm, sb)
+        rows += [(s_m, e_hi, s_b), (s_m, e_lo, s_b)]
+    if active[1]:  # the transmission kept at or below 1
+        rows += [(s_m / np.minimum(1.0 + 2 * u_tau / tau_eff, 1.0 / tau_eff), e, s_b),
+                 (s_m / np.maximum(1.0 - 2 * u_tau / tau_eff, 1e-6), e, s_b)]
     if active[2]:
-        wanted[4], wanted[5] = (eps_b, g_b, lm_hi, sb), (eps_b, g_b, lm_lo, sb)
+        for sign in (1.0, -1.0):
+            lm = band.log_signal(np.maximum(t_ind + sign * 2 * u_ind, 1.0)) + np.log(settings)
+            rows.append((np.broadcast_to(np.exp(lm) / gray, shape), e, s_b))
     if active[3]:
-        wanted[6], wanted[7] = (eps_b, g_b, lm, sb_hi), (eps_b, g_b, lm, sb_lo)
+        assert t_bg is not None
+        b_hi = np.broadcast_to(np.exp(scene_band.log_signal(t_bg + 2 * u_bg)), shape)
+        b_lo = np.broadcast_to(np.exp(scene_band.log_signal(np.maximum(t_bg - 2 * u_bg, 1.0))), shape)
+        rows += [(s_m, e, b_hi), (s_m, e, b_lo)]
         if active[0]:
-            for row, (e, b) in enumerate(((e_hi, sb_hi), (e_hi, sb_lo), (e_lo, sb_hi), (e_lo, sb_lo)), start=8):
-                wanted[row] = (e, g_b, lm, b)
-    out = np.empty((12, *shape))
-    out[...] = t
-    if wanted:
-        rows = sorted(wanted)
-        e_p, g_p, lm_p = (np.stack([wanted[r][k] for r in rows]) for k in range(3))
-        sb_p = np.stack([wanted[r][3] for r in rows]) if has_bg else None
-        out[rows] = _solve(scene_band, lm_p - np.log(g_p), e_p, sb_p)
-    return out
-
-
-def _solve(scene_band: Band, log_meas_gray: NDArray[np.float64], eps: NDArray[np.float64],
-           s_bg: NDArray[np.float64] | None) -> NDArray[np.float64]:
-    """The ware's temperature, K, from ln(S_meas / f), without checks (NaN where there is none)."""
-    log_scene, _ = _log_scene(log_meas_gray, eps, s_bg)
-    return scene_band.temperature_from_log_signal(log_scene)
+            rows += [(s_m, e_hi, b_hi), (s_m, e_hi, b_lo), (s_m, e_lo, b_hi), (s_m, e_lo, b_lo)]
+    scene = np.empty((len(rows), *shape))
+    for k, (m, ek, bk) in enumerate(rows):
+        scene[k] = m / ek if bk is None else (m - (1.0 - ek) * bk) / ek
+    scene[~(scene > 0)] = np.nan  # no solution: the background alone gives more than the reading
+    d = scene_band.temperature_from_log_signal(np.log(scene)) - np.broadcast_to(t, shape)
+    out: dict[int, tuple[NDArray[np.float64], NDArray[np.float64]]] = {}
+    k = 0
+    for i, on in enumerate(active):
+        if on:
+            out[i] = (d[k], d[k + 1])
+            k += 2
+    cross = None
+    if active[0] and active[3]:
+        step = np.broadcast_to(e_hi - e_lo, shape)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            cross = np.where(step > 0, (d[k] - d[k + 1] - d[k + 2] + d[k + 3]) * np.broadcast_to(u_eps, shape) / (2.0 * step), 0.0)
+    return out, cross
 
 
 def _check_linearity(
@@ -359,51 +361,54 @@ def _check_linearity(
 
     The model is evaluated at each input's estimate +/- 2 u (emissivity and
     transmission kept inside (0, 1]) and at the corners of emissivity and
-    background together, all in one vectorised pass. The one-sided
-    departures, summed in quadrature with the emissivity-background product
-    term (its mixed second difference, JCGM 100 5.1.2 note; added whole, as
-    a product of two uncertain inputs has heavy tails), estimate the upper
-    and lower 95 % half-widths; they are compared with 2 u.
+    background together, in one vectorised pass. The one-sided departures,
+    summed in quadrature, plus the emissivity-background product term (its
+    mixed second difference, JCGM 100 5.1.2 note; added whole, as a product
+    of two uncertain inputs has heavy tails), estimate the upper and lower
+    95 % half-widths; they are compared with 2 u.
     """
-    shape = np.broadcast_shapes(t.shape, u.shape)
-    has_bg = t_bg is not None
-    eps_b, ue = np.broadcast_to(eps, shape), np.broadcast_to(u_eps, shape)
-    if not (np.any(ue > 0) or np.any(u_tau > 0) or np.any(u_ind > 0) or (has_bg and np.any(u_bg > 0))):
+    if not (np.any(u_eps > 0) or np.any(u_tau > 0) or np.any(u_ind > 0) or (t_bg is not None and np.any(u_bg > 0))):
         return
+    shape = np.broadcast_shapes(t.shape, u.shape)
     with warnings.catch_warnings(), np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         warnings.simplefilter("ignore", OutOfRangeWarning)  # a probe off the table is an undefined value, counted below
-        f = _probe(band, scene_band, eps_b, ue, gray, tau_eff, u_tau, log_meas, t_ind, u_ind, settings, t_bg, u_bg, shape, t)
-    d = f - np.broadcast_to(t, shape)
-    pairs = d[:8].reshape(4, 2, *shape)
-    up = np.sqrt(np.sum(np.square(np.maximum(pairs.max(axis=1), 0.0)), axis=0))
-    down = np.sqrt(np.sum(np.square(np.minimum(pairs.min(axis=1), 0.0)), axis=0))
-    # the emissivity-background product term f_xy u_x u_y from the mixed difference over the corners (the
-    # emissivity's step may be cut short by its bounds), doubled to compare with a 95 % half-width
-    e_step = np.broadcast_to(np.minimum(eps + 2 * u_eps, 1.0) - np.maximum(eps - 2 * u_eps, 1e-6), shape)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        cross = np.where(e_step > 0, (d[8] - d[9] - d[10] + d[11]) * ue / (2.0 * e_step), 0.0)
-    up, down = up + np.abs(cross), down + np.abs(cross)  # the product term is not Gaussian (heavy tails): add it whole
+        pairs, cross = _probe(band, scene_band, t, eps, u_eps, gray, tau_eff, u_tau, log_meas, t_ind, u_ind, settings,
+                              t_bg, u_bg, shape)
+    if not pairs:
+        return
+    up = np.sqrt(sum(np.square(np.maximum(np.fmax(a, b), 0.0)) for a, b in pairs.values()))
+    down = np.sqrt(sum(np.square(np.minimum(np.fmin(a, b), 0.0)) for a, b in pairs.values()))
+    if cross is not None:
+        up, down = up + np.abs(cross), down + np.abs(cross)  # the product term is not Gaussian (heavy tails): added whole
     two_u = 2.0 * np.broadcast_to(u, shape)
     with np.errstate(divide="ignore", invalid="ignore"):
         off = np.maximum(np.abs(up / two_u - 1.0), np.abs(down / two_u - 1.0))
-    undefined = np.isnan(d).any(axis=0) & np.isfinite(np.broadcast_to(t, shape))
+    undefined = np.zeros(shape, dtype=bool)
+    for a, b in pairs.values():
+        undefined |= np.isnan(a) | np.isnan(b)
+    if cross is not None:
+        undefined |= np.isnan(cross)
+    undefined &= np.isfinite(np.broadcast_to(t, shape))
     bad = ((off > LINEARITY_LIMIT) & (two_u > 0)) | undefined
     if not bad.any():
         return
     # the worst value, and the input whose probes stray furthest from a straight line there
     i = np.unravel_index(int(np.argmax(np.where(bad, np.nan_to_num(off, nan=np.inf), -1.0))), shape)
-    stray = np.abs(pairs[:, 0] + pairs[:, 1])[(slice(None), *i)]
-    stray[3] = max(float(np.nan_to_num(stray[3])), abs(float(np.nan_to_num(cross[i])))) if has_bg else 0.0
-    k = int(np.argmax(np.nan_to_num(stray, nan=np.inf)))
+    stray = {k: abs(float(a[i]) + float(b[i])) for k, (a, b) in pairs.items()}
+    if cross is not None:
+        stray[3] = max(stray.get(3, 0.0), abs(float(cross[i])))
+    k = max(stray, key=lambda key: np.inf if np.isnan(stray[key]) else stray[key])
     t_i = float(np.broadcast_to(t, shape)[i]) - ZERO_CELSIUS
     if k == 0:
-        why = (f"u(e)/e = {float(ue[i] / eps_b[i]):.2f} at {band.centre_m * 1e6:.2g} um and {t_i:.0f} degC "
+        ratio = float(np.broadcast_to(u_eps, shape)[i] / np.broadcast_to(eps, shape)[i])
+        why = (f"u(e)/e = {ratio:.2f} at {band.centre_m * 1e6:.2g} um and {t_i:.0f} degC "
                "(T is steeply non-linear in the emissivity)")
     elif k == 3:
+        assert t_bg is not None
         why = (f"the background ({float(np.broadcast_to(t_bg, shape)[i]) - ZERO_CELSIUS:.0f} degC) is near the target "
                f"({t_i:.0f} degC): the emissivity's and background's uncertainties act together")
     else:
-        why = f"the {('transmission', 'indicated temperature')[k - 1]}'s uncertainty is large for the model's curvature"
+        why = f"the {_INPUTS[k]}'s uncertainty is large for the model's curvature"
     if bool(undefined[i]):
         why = "the model has no value within 2 u of the inputs (a reading near what the background alone gives, or an emissivity near 0); " + why
     count = f"{int(bad.sum())} of {bad.size} values: " if bad.ndim and bad.size > 1 else ""
