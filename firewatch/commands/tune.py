@@ -67,7 +67,7 @@ def run(args: argparse.Namespace) -> int:
             return 1
         start = reader.firing().get("started_t")
     data, setting, ware = result.data, result.instrument, result.ware
-    identified = ware is not None and not ware.emissivity_held
+    found = ware if ware is not None and not ware.emissivity_held else None  # the ware's emissivity, where identified
     out: dict[str, Any] = {
         "channel": data.py.name,
         "reference": data.reference,
@@ -77,27 +77,27 @@ def run(args: argparse.Namespace) -> int:
         "instrument_stretches": setting.by_stretch,
         "instrument_note": setting.note,
         "profile_set_emissivity": data.py.set_emissivity,
-        "emissivity": ware.emissivity if identified else None,
-        "ci95": list(ware.ci95) if identified else None,
+        "emissivity": found.emissivity if found is not None else None,
+        "ci95": list(found.ci95) if found is not None else None,
         "hidden_reason": result.hidden_reason,
         "model": args.model,
         "points_used": int(data.valid.sum()),
         "blocks": ware.blocks if ware is not None else None,
         "windows": data.windows,
-        "residual_c": ware.residual_c if identified else None,
-        "model_fits": ware.model_fits if identified else None,
+        "residual_c": found.residual_c if found is not None else None,
+        "model_fits": found.model_fits if found is not None else None,
         "note": ware.note if ware is not None else "",
         "profile_emissivity": data.py.emissivity,
     }
-    if identified and ware.slope_per_100c is not None:
-        out["slope_per_100c"] = ware.slope_per_100c
-    if ware is not None and ware.transmission is not None:
+    if found is not None and found.slope_per_100c is not None:
+        out["slope_per_100c"] = found.slope_per_100c
+    if ware is not None and ware.transmission is not None and ware.transmission_ci95 is not None:
         out["transmission"] = ware.transmission
         out["transmission_ci95"] = list(ware.transmission_ci95)
     written: dict[str, float] = {}
     not_written: list[str] = []
     if args.apply:
-        written, not_written = _apply(args, result, start, identified)
+        written, not_written = _apply(args, result, start, found)
         out["applied_to"] = args.apply
         out["applied"] = written
         out["not_applied"] = not_written
@@ -124,16 +124,16 @@ def run(args: argparse.Namespace) -> int:
         console.print(by)
     if setting.note:
         console.print(f"  {setting.note}")
-    if identified:
-        console.print(f"ware's emissivity: [bold]{ware.emissivity:.3f}[/bold] (95 % interval {interval_text(ware.ci95)}; "
+    if found is not None:
+        console.print(f"ware's emissivity: [bold]{found.emissivity:.3f}[/bold] (95 % interval {interval_text(found.ci95)}; "
                       f"the profile says {data.py.emissivity:g})"
-                      + (f", window transmission factor {ware.transmission:.3f} ({interval_text(ware.transmission_ci95)})"
-                         if ware.transmission is not None else ""))
-        console.print(f"  {ware.points_used} points in {ware.blocks} ten-minute blocks; residuals mean {ware.residual_c['mean']:+.2f} K, "
-                      f"sd {ware.residual_c['sd']:.2f} K, trend {ware.residual_c['trend_per_100c']:+.2f} K per 100 °C")
+                      + (f", window transmission factor {found.transmission:.3f} ({interval_text(found.transmission_ci95)})"
+                         if found.transmission is not None and found.transmission_ci95 is not None else ""))
+        console.print(f"  {found.points_used} points in {found.blocks} ten-minute blocks; residuals mean {found.residual_c['mean']:+.2f} K, "
+                      f"sd {found.residual_c['sd']:.2f} K, trend {found.residual_c['trend_per_100c']:+.2f} K per 100 °C")
     else:
         console.print(f"ware's emissivity: not found: {result.hidden_reason}")
-        if ware is not None and ware.transmission is not None:
+        if ware is not None and ware.transmission is not None and ware.transmission_ci95 is not None:
             console.print(f"  window transmission factor {ware.transmission:.3f} ({interval_text(ware.transmission_ci95)}), "
                           f"with the emissivity held at the profile's {data.py.emissivity:g}")
     if ware is not None and ware.note and not ware.emissivity_held:
@@ -154,7 +154,7 @@ def run(args: argparse.Namespace) -> int:
     return 0
 
 
-def _apply(args: argparse.Namespace, result: Any, start: float | None, identified: bool) -> tuple[dict[str, float], list[str]]:
+def _apply(args: argparse.Namespace, result: Any, start: float | None, found: Any) -> tuple[dict[str, float], list[str]]:
     """Write what the firing answered into the profile; return what was written and why anything was not."""
     from firewatch.firing.profile_writer import apply_tuning
     from firewatch.firing.tuning import interval_text
@@ -169,11 +169,11 @@ def _apply(args: argparse.Namespace, result: Any, start: float | None, identifie
         parts.append(f"instrument setting {setting.emissivity:.3f} (95 % interval {interval_text(setting.ci95)}) from {setting.basis}")
     else:
         not_written.append(f"set_emissivity: the instrument setting {setting.emissivity:.3f} is above 1 ({setting.note})")
-    if identified:
-        values["emissivity"] = ware.emissivity
-        values["emissivity_uncertainty"] = round((ware.ci95[1] - ware.ci95[0]) / (2 * 1.96), 4)
-        parts.append(f"ware's emissivity {ware.emissivity:.3f} (95 % interval {interval_text(ware.ci95)}), "
-                     f"{ware.points_used} points, residual sd {ware.residual_c['sd']:.2f} K")
+    if found is not None:
+        values["emissivity"] = found.emissivity
+        values["emissivity_uncertainty"] = round((found.ci95[1] - found.ci95[0]) / (2 * 1.96), 4)
+        parts.append(f"ware's emissivity {found.emissivity:.3f} (95 % interval {interval_text(found.ci95)}), "
+                     f"{found.points_used} points, residual sd {found.residual_c['sd']:.2f} K")
     else:
         not_written.append(f"emissivity: the ware's emissivity was not found ({result.hidden_reason})")
     if ware is not None and ware.transmission is not None:

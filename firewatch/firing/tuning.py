@@ -245,10 +245,10 @@ def load_data(reader: FiringSource, site: SiteProfile, channel: str | None = Non
     r = np.abs(np.nan_to_num(rate_c_per_h, nan=np.inf))
     slow = (r <= max_rate_c_per_h) & (tc.time_constant_s * r / 3600.0 <= max_lag_c)
     faulted = np.zeros(n, dtype=bool)
-    for a in reader.alarms():
-        if a["kind"] == "sensor-fault" and a["channel"] in (py.name, tc.name):
-            end = a["cleared_t"] if a["cleared_t"] is not None else math.inf
-            faulted |= (t >= a["raised_t"]) & (t <= end)
+    for alarm in reader.alarms():
+        if alarm["kind"] == "sensor-fault" and alarm["channel"] in (py.name, tc.name):
+            end = alarm["cleared_t"] if alarm["cleared_t"] is not None else math.inf
+            faulted |= (t >= alarm["raised_t"]) & (t <= end)
     if not ok_ref.any():
         raise TuneError(f"the reference thermocouple {tc.name} gave no reading while {py.name} read, so no stretch is usable")
     valid = ok_ref & ok_py & slow & ~faulted
@@ -325,7 +325,7 @@ def check_usable(data: TuneData) -> None:
         if "sensor-fault" in worst["reason"]:
             raise TuneError(f"a sensor-fault alarm was active whenever {name} read, so no stretch is usable")
         raise TuneError("no hold or slow ramp while the pyrometer read: every stretch ramped too fast "
-                        f"(over the allowed rate, or the reference's lag over the limit), so no stretch is usable")
+                        "(over the allowed rate, or the reference's lag over the limit), so no stretch is usable")
     if n_valid < MIN_POINTS:
         raise TuneError(f"only {n_valid} valid points (holds and slow ramps with a healthy reference); at least {MIN_POINTS} are needed")
     blocks = np.unique(np.floor((data.t[data.valid] - data.start_t) / BLOCK_S))
@@ -433,7 +433,7 @@ def instrument_setting(data: TuneData) -> InstrumentSetting:
         sel = sel[sel >= 0]
         e, ci = _setting_estimate(data, idx[sel], log_e[sel])
         ref_c = float(np.mean(data.ref[a:b]))
-        entry = {"start_s": round(float(data.t[a]) - data.start_t, 1), "end_s": round(float(data.t[b - 1]) - data.start_t, 1),
+        entry: dict[str, Any] = {"start_s": round(float(data.t[a]) - data.start_t, 1), "end_s": round(float(data.t[b - 1]) - data.start_t, 1),
                  "ref_c": round(ref_c, 1), "hold": hold, "emissivity": round(e, 4),
                  "ci95": [round(ci[0], 4), round(ci[1], 4)], "points": int(sel.size)}
         stretches.append(entry)
@@ -467,13 +467,14 @@ def tune(data: TuneData, model: str = "constant", fit_transmission: bool = False
         Only when no stretch is usable; a hidden emissivity is an answer, not an error.
     """
     setting = instrument_setting(data)
+    ware: FitResult | None = None
+    hidden: str | None = None
     try:
-        ware: FitResult | None = fit(data, model, fit_transmission)
-        hidden = None
-        if ware.emissivity_held:
-            hidden = _hidden_sentence(data, None)
+        ware = fit(data, model, fit_transmission)
     except EmissivityHidden as exc:
-        ware, hidden = None, str(exc)
+        hidden = str(exc)
+    if ware is not None and ware.emissivity_held:
+        hidden = _hidden_sentence(data, None)
     return TuneResult(instrument=setting, ware=ware, hidden_reason=hidden, data=data)
 
 
