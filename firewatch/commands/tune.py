@@ -25,7 +25,7 @@ __all__ = ["add_parser", "run"]
 def add_parser(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("tune", help="set the pyrometer's emissivity from thermocouple references",
                        description="From the holds and slow ramps of a recorded firing: the emissivity to set on the "
-                       "instrument so that it reads what the reference thermocouple reads (always, with a 95 %% interval), "
+                       "instrument so that it reads what the reference thermocouple reads (always, with a 95 % interval), "
                        "and the ware's own emissivity where the firing can separate it from the window and the reflected "
                        "background (optionally with the window transmission, or linear in temperature). Exits 1, saying "
                        "why, only when no stretch of the firing is usable.")
