@@ -13,7 +13,7 @@ from firewatch.physics.bands import Band
 from firewatch.physics.planck import planck_radiance
 
 BANDS = [(0.65, 0.66), (0.8, 1.1), (0.95, 1.05), (1.5, 1.7), (8.0, 14.0)]
-"""Typical instrument bands, um (shared/design.md section 2, common practice)."""
+"""Typical instrument bands, um (common practice, no source)."""
 
 INVERSION_LIMIT_K = 0.01
 """Issue 2: the fast inversion must hold 0.01 K against quadrature over 300-3300 K."""

@@ -20,7 +20,7 @@ from firewatch.physics.planck import (
 )
 
 # Mechanical Engineers' Handbook vol. 4 (Kutz, ed.), table "Radiation function
-# F0-lambdaT", four figures (quoted in shared/design.md section 8): lambda T in um K.
+# F0-lambdaT", four figures: lambda T in um K.
 DATA_BLACKBODY_FRACTION = [
     (1000.0, 0.3207e-3),
     (2000.0, 0.06673),
@@ -31,7 +31,7 @@ DATA_BLACKBODY_FRACTION = [
 
 
 def test_radiation_constants_are_codata() -> None:
-    # CODATA 2018 (exact under the 2019 SI), quoted in shared/design.md section 2.
+    # CODATA 2018 (Tiesinga et al., Rev. Mod. Phys. 93, 025010, 2021; exact under the 2019 SI).
     assert C1L == pytest.approx(1.191042972e-16, rel=1e-9)
     assert C2 == pytest.approx(1.438776877e-2, rel=1e-9)
     assert SIGMA == sc.Stefan_Boltzmann
@@ -81,7 +81,7 @@ def test_long_wavelength_limit_is_rayleigh_jeans() -> None:
 
 
 def test_short_wavelength_limit_is_wien() -> None:
-    # Wien is within 1 % of Planck below lambda T = 3000 um K (shared/design.md, common practice).
+    # Wien is within 1 % of Planck below lambda T = 3000 um K (common practice, no source).
     lt = np.linspace(200.0, 3000.0, 50) * 1e-6
     lam = lt / 1500.0
     np.testing.assert_array_less(1.0 - wien_radiance(lam, 1500.0) / planck_radiance(lam, 1500.0), 0.01)
@@ -89,7 +89,8 @@ def test_short_wavelength_limit_is_wien() -> None:
 
 def test_its90_second_constant_effect() -> None:
     # T inverted from a radiance scales with c2: using ITS-90's c2 = 0.014388 m K
-    # instead of CODATA's moves T by +1.6e-5 T, 0.02 K at 1000 degC (shared/design.md).
+    # instead of CODATA's moves T by +1.6e-5 T, 0.02 K at 1000 degC (the ratio of the two c2 values,
+    # Preston-Thomas, Metrologia 27, 1990, and CODATA 2018).
     lam, t = 0.65e-6, 1273.15
     radiance = float(planck_radiance(lam, t))
 
