@@ -6,21 +6,28 @@ against baselines measured in the same run; no timings are asserted in tests.
 Targets (issue 2): no slower than 3 x one numpy.interp over the same number
 of readings; at least 500 x faster than per-reading quadrature inside a
 root-finder; largest error against quadrature <= 0.01 K over 500-3000 degC.
+Issue 12: the Monte Carlo propagation at 10^4 draws under 50 ms per reading,
+against first-order propagation over the same 10^4 values as a baseline.
 """
 
 from __future__ import annotations
 
 import argparse
+import sys
 import time
+from pathlib import Path
 
 import numpy as np
 from scipy.integrate import quad
 from scipy.optimize import brentq
 
-from firewatch.physics.bands import Band
-from firewatch.physics.corrections import correct_single_band
-from firewatch.physics.planck import planck_radiance
-from firewatch.physics.windows import Window
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # this checkout's firewatch, not an installed one
+
+from firewatch.physics.bands import Band  # noqa: E402
+from firewatch.physics.corrections import correct_single_band  # noqa: E402
+from firewatch.physics.montecarlo import monte_carlo_single_band  # noqa: E402
+from firewatch.physics.planck import planck_radiance  # noqa: E402
+from firewatch.physics.windows import Window  # noqa: E402
 
 
 def best_of(fn, repeat: int = 5) -> float:
@@ -80,6 +87,25 @@ def main() -> None:
     print(f"  with uncertainty:                {t_unc * 1e3:8.1f} ms  ratio to interp {t_unc / t_interp:.2f}")
     print(f"naive quadrature+root per reading: {t_naive_each * 1e3:8.2f} ms  speed-up {t_naive_each * n / t_plain:,.0f} x (target >= 500)")
     print(f"largest error vs quadrature, {sample.size} readings 500-3000 degC: {err:.2e} K (target <= 0.01)")
+
+    # Monte Carlo (issue 12): 10^4 draws of every input per reading, with a window and a background
+    draws = 10_000
+    mc_kw = dict(emissivity_u=0.05, transmission_u=0.01, instrument_u_c=2.0, background_c=900.0, background_u_c=10.0)
+    hot = rng.uniform(1000.0, 1500.0, draws)  # readings well above the 900 degC background
+    t_lin = best_of(lambda: correct_single_band(hot, band, eps, window, background_c=900.0, emissivity_u=0.05,
+                                                transmission_u=0.01, instrument_u_c=2.0, background_u_c=10.0,
+                                                return_uncertainty=True, check_linearity=False))
+    t_check = best_of(lambda: correct_single_band(hot, band, eps, window, background_c=900.0, emissivity_u=0.05,
+                                                  transmission_u=0.01, instrument_u_c=2.0, background_u_c=10.0,
+                                                  return_uncertainty=True))
+    monte_carlo_single_band(1200.0, band, eps, window, **mc_kw)  # tables built outside the timing
+    t_mc1 = best_of(lambda: monte_carlo_single_band(1200.0, band, eps, window, draws=draws, **mc_kw))
+    batch = hot[:100]
+    t_mc100 = best_of(lambda: monte_carlo_single_band(batch, band, eps, window, draws=draws, **mc_kw), repeat=3) / batch.size
+    print(f"first-order uncertainty over {draws:,} readings (baseline): {t_lin * 1e3:8.2f} ms")
+    print(f"  with the linearity probes (the default):        {t_check * 1e3:8.2f} ms  ratio to baseline {t_check / t_lin:.2f}")
+    print(f"Monte Carlo, {draws:,} draws, one reading:        {t_mc1 * 1e3:8.2f} ms  ratio to baseline {t_mc1 / t_lin:.2f} (target <= 50 ms)")
+    print(f"Monte Carlo, {draws:,} draws, per reading of 100: {t_mc100 * 1e3:8.2f} ms  ratio to baseline {t_mc100 / t_lin:.2f}")
 
 
 if __name__ == "__main__":

@@ -42,6 +42,10 @@ garbage             seconds [60], fraction of lines spoiled [0.3]
 
 On the command line a fault is ``KIND@MINUTES[:KEY=VALUE,...]``, for
 example ``tc-drift@600:channel=tc2,rate=6``.
+
+Built-in scenarios are named in :data:`BUILT_IN` (``firewatch sim
+--list-scenarios``); wherever a scenario is asked for, a built-in name or a
+file will do.
 """
 
 from __future__ import annotations
@@ -57,9 +61,26 @@ from firewatch.settings.schedule import Schedule, load_schedule
 
 from firewatch.simulator.kiln import KilnParameters
 
-__all__ = ["FAULT_KINDS", "Fault", "Scenario", "load_scenario", "parse_fault", "DEMO_SCENARIO"]
+__all__ = ["BUILT_IN", "FAULT_KINDS", "Fault", "Scenario", "load_scenario", "parse_fault", "scenario_path", "DEMO_SCENARIO"]
 
 DEMO_SCENARIO = "demo-scenario.toml"
+
+BUILT_IN: dict[str, tuple[str, str]] = {
+    "closed-kiln": (DEMO_SCENARIO, "Kiln 3, a closed electric kiln, glaze firing; its walls hide the ware's emissivity "
+                                   "from the pyrometer; the default"),
+    "open-port": ("open-port-scenario.toml", "Furnace 5, an electric box furnace for trials; its pyrometer looks at the "
+                                             "load through a water-cooled sight tube, so the load's emissivity can be fitted"),
+}
+"""Built-in scenarios: name -> (file among the shipped profiles, what it is)."""
+
+
+def scenario_path(name: str | Path | None) -> Path:
+    """The file of a built-in scenario by name, else ``name`` as a path (the default scenario for None)."""
+    if name is None:
+        return profiles_dir() / DEMO_SCENARIO
+    if str(name) in BUILT_IN:
+        return profiles_dir() / BUILT_IN[str(name)][0]
+    return Path(name)
 
 FAULT_KINDS: dict[str, dict[str, Any]] = {
     "tc-drift": {"channel": None, "rate": 6.0},
@@ -154,8 +175,11 @@ _KILN_FIELDS = {f.name for f in fields(KilnParameters)}
 
 
 def load_scenario(path: str | Path | None = None) -> Scenario:
-    """Load a scenario (the demo one when ``path`` is None), raising ProfileError listing every problem."""
-    path = Path(path) if path is not None else profiles_dir() / DEMO_SCENARIO
+    """Load a scenario by built-in name or file (the default one when ``path`` is None), raising ProfileError listing every problem."""
+    given = path
+    path = scenario_path(path)
+    if given is not None and str(given) not in BUILT_IN and not path.exists():
+        raise ProfileError([f"{given}: no such file, and no built-in scenario of that name ({', '.join(BUILT_IN)})"])
     reader = TomlReader(path)
     reader.unknown_keys((), reader.data, {"scenario", "ware", "kiln", "fault", "instruments"})
     head = reader.table(("scenario",), required=True)

@@ -2,6 +2,11 @@
 
 ``--json`` prints one JSON object whose temperature keys end in ``_c`` and
 are in degC whatever ``--units`` says; otherwise a small table.
+
+One value is worked at a time, so any range warning of the physics is an
+error here (exit status 2), except :class:`UncertaintyWarning`: the answer
+stands, with a note that its first-order uncertainty is unreliable and the
+suggestion of ``--monte-carlo``.
 """
 
 from __future__ import annotations
@@ -57,6 +62,11 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     pyro.add_argument("--emissivity-uncertainty", type=_args.non_negative, default=0.0, help="standard uncertainty of the emissivity")
     pyro.add_argument("--transmission-uncertainty", type=_args.non_negative, default=0.0, help="standard uncertainty of the transmission")
     pyro.add_argument("--instrument-uncertainty", type=_args.non_negative, default=0.0, help="the instrument's stated standard uncertainty, degrees")
+    pyro.add_argument("--background-uncertainty", type=_args.non_negative, default=0.0, help="standard uncertainty of the background temperature, degrees")
+    pyro.add_argument("--monte-carlo", action="store_true",
+                      help="also propagate the uncertainties by Monte Carlo (JCGM 101): an asymmetric 95 %% interval")
+    pyro.add_argument("--draws", type=_draws, default=100_000, help="Monte Carlo draws (default 100000)")
+    pyro.add_argument("--seed", type=int, default=1, help="Monte Carlo seed (default 1; the same seed gives the same interval)")
     common(pyro)
 
     ratio = kinds.add_parser("ratio", help="correct a ratio (two-colour) pyrometer reading")
@@ -76,16 +86,37 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     common(window)
 
 
+def _draws(text: str) -> int:
+    """Monte Carlo draws: a whole number of at least 100."""
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+    if value < 100:
+        raise argparse.ArgumentTypeError(f"must be at least 100, got {text}")
+    return value
+
+
 def run(args: argparse.Namespace) -> int:
+    from firewatch.physics._warnings import UncertaintyWarning
+
     handler = {"tc": _tc, "pyro": _pyro, "ratio": _ratio, "window": _window}[args.calc]
-    with warnings.catch_warnings():
-        warnings.simplefilter("error")  # one value: any range warning is an error here
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("error")  # one value: any range warning is an error here ...
+        warnings.simplefilter("always", UncertaintyWarning)  # ... but an unreliable linear uncertainty is a note
         result, rows = handler(args)
+    notes = [str(w.message) for w in caught if issubclass(w.category, UncertaintyWarning)]
+    if args.calc == "pyro":
+        result["linear_unreliable"] = notes[0] if notes else None
     if args.json:
         json.dump(result, sys.stdout)
         sys.stdout.write("\n")
     else:
         _print_table(f"firewatch calc {args.calc}", rows)
+        for note in notes:
+            if getattr(args, "monte_carlo", False):
+                note = note.split("; use the Monte Carlo")[0] + "; the Monte Carlo interval above allows for it"
+            print(f"note: {note}")
     return 0
 
 
@@ -178,6 +209,7 @@ def _band(args: argparse.Namespace, option: str = "--band"):
 
 
 def _pyro(args: argparse.Namespace) -> tuple[dict[str, Any], list[tuple[str, str]]]:
+    from firewatch.physics._warnings import UncertaintyWarning
     from firewatch.physics.corrections import correct_single_band, effective_transmission, indicated_single_band
     from firewatch.physics.windows import Window
 
@@ -205,16 +237,24 @@ def _pyro(args: argparse.Namespace) -> tuple[dict[str, Any], list[tuple[str, str
         else:
             option = "--indicated"
             indicated_c = _c(args.indicated, args)
-        corrected, u = correct_single_band(
-            indicated_c,
-            **common,
+        uncertainties = dict(
             emissivity_u=args.emissivity_uncertainty,
             transmission_u=args.transmission_uncertainty,
             instrument_u_c=_uncertainty_c(args.instrument_uncertainty, args),
-            return_uncertainty=True,
+            background_u_c=_uncertainty_c(args.background_uncertainty, args),
         )
+        if args.background_uncertainty and background_c is None:
+            raise UsageError("--background-uncertainty: needs --background")
+        corrected, u = correct_single_band(indicated_c, **common, **uncertainties, return_uncertainty=True)
         tau = float(effective_transmission(band, transmission, float(corrected)))
+        mc = None
+        if args.monte_carlo:
+            from firewatch.physics.montecarlo import monte_carlo_single_band
+
+            mc = monte_carlo_single_band(indicated_c, **common, **uncertainties, draws=args.draws, seed=args.seed)
     except (ValueError, Warning) as exc:
+        if isinstance(exc, UncertaintyWarning):
+            raise
         raise _fail(option, exc) from None
     corrected, u = float(corrected), float(u)
     result: dict[str, Any] = {
@@ -236,7 +276,34 @@ def _pyro(args: argparse.Namespace) -> tuple[dict[str, Any], list[tuple[str, str
         ("reflected background", "none" if background_c is None else _show(background_c, args)),
         ("true temperature", f"{_show(corrected, args)} ± {_show_delta(u, args)} (1 σ)"),
     ]
+    if mc is not None:
+        low, high = float(mc.low_c), float(mc.high_c)
+        result["monte_carlo"] = {
+            "draws": mc.draws,
+            "seed": args.seed,
+            "mean_c": _rounded(float(mc.mean_c)),
+            "u_c": _rounded(float(mc.u_c)),
+            "ci95_c": [_rounded(low), _rounded(high)],
+            "undefined_fraction": round(float(mc.undefined), 6),
+        }
+        rows.append((f"95 % interval (Monte Carlo, {mc.draws} draws)",
+                     f"{_show(low, args)} to {_show(high, args)} "
+                     f"({_signed_delta(low - corrected, args)}, {_signed_delta(high - corrected, args)})"))
     return result, rows
+
+
+def _rounded(value: float) -> float | None:
+    """A temperature for JSON: 4 decimals, or null where the Monte Carlo gives none (an unbounded tail)."""
+    import math
+
+    return round(value, 4) if math.isfinite(value) else None
+
+
+def _signed_delta(delta: float, args: argparse.Namespace) -> str:
+    from firewatch.settings.units import delta_from_celsius, symbol
+
+    sym = "K" if args.units == "K" else symbol(args.units)
+    return f"{float(delta_from_celsius(delta, args.units)):+.2f} {sym}"
 
 
 def _ratio(args: argparse.Namespace) -> tuple[dict[str, Any], list[tuple[str, str]]]:
@@ -288,22 +355,42 @@ def _window(args: argparse.Namespace) -> tuple[dict[str, Any], list[tuple[str, s
         tau = float(band_effective_transmission(band, Window(mat), t_c + 273.15))
     except (ValueError, Warning) as exc:
         raise _fail("--temperature", exc) from None
-    n = float(refractive_index(mat, band.centre_m))
+    # The dispersion formula holds only over its published range; outside it the model keeps the index at the
+    # range's end (where the cut-off edge dominates), which is not the band's index and is not reported as one.
+    lo_um, hi_um = mat.valid_um
+    centre_um = band.centre_m * 1e6
+    inside = lo_um <= centre_um <= hi_um
+    n = float(refractive_index(mat, band.centre_m)) if inside else None
+    validity = f"{lo_um:g}-{hi_um:g} um"
+    if not inside:
+        note = (f"the band centre ({centre_um:.3g} um) lies outside the dispersion formula's validity ({validity}); "
+                "no index is given for it, and the model holds the index at the end of that range")
+    elif band.start_um < lo_um or band.end_um > hi_um:
+        edge = hi_um if band.end_um > hi_um else lo_um
+        note = (f"the band runs past the dispersion formula's validity ({validity}) at {edge:g} um; "
+                "beyond it the model holds the index at its value there")
+    else:
+        note = None
     result = {
         "material": mat.name,
         "band_um": [band.start_um, band.end_um],
         "temperature_c": t_c,
         "transmission": round(tau, 6),
-        "refractive_index": round(n, 5),
+        "refractive_index": None if n is None else round(n, 5),
+        "dispersion_valid_um": [lo_um, hi_um],
+        "dispersion_note": note,
         "cutoff_um": mat.cutoff_um,
     }
     rows = [
         ("material", f"{mat.name} ({mat.reference})"),
         ("band", band.name),
-        ("refractive index at band centre", f"{n:.5f}"),
-        ("clean slab, no absorption", f"{float(slab_transmission(n)):.4f}"),
+        ("dispersion formula valid", validity),
+        ("refractive index at band centre", f"{n:.5f}" if n is not None else f"none: {centre_um:.3g} um is outside {validity}"),
+        ("clean slab, no absorption", f"{float(slab_transmission(n)):.4f}" if n is not None else "none"),
         ("long-wavelength cut-off", f"{mat.cutoff_um:g} um"),
         ("target temperature", _show(t_c, args)),
         ("band-effective transmission", f"{tau:.4f}"),
     ]
+    if note is not None:
+        rows.append(("note", note))
     return result, rows

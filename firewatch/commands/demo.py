@@ -47,6 +47,25 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     keep.add_argument("--discard", dest="discard", action="store_true", help="delete the firing log on exit")
     p.set_defaults(discard=False)
     p.add_argument("--fault", action="append", default=[], metavar="KIND@MINUTES[:K=V,...]", help="a simulator fault (repeatable)")
+    p.add_argument("--scenario", metavar="NAME|FILE", help="a built-in scenario by name (closed-kiln, open-port; see "
+                   "firewatch sim --list-scenarios) or a scenario TOML (default: closed-kiln)")
+
+
+def scenario_profiles(scenario: str | None) -> list[str]:
+    """The recorder's ``--site`` and ``--schedule`` for a scenario (name or file), so that it records what is simulated."""
+    from firewatch.settings._tomlcheck import ProfileError
+    from firewatch.simulator.scenario import load_scenario
+
+    try:
+        sc = load_scenario(scenario)
+    except ProfileError as exc:
+        raise UsageError(f"--scenario: {exc.problems[0]}") from None
+    out: list[str] = []
+    if sc.site.path is not None:
+        out += ["--site", str(sc.site.path)]
+    if sc.schedule.path is not None:
+        out += ["--schedule", str(sc.schedule.path)]
+    return out
 
 
 def demo_folder() -> Path:
@@ -75,16 +94,19 @@ def discard_log(log: Path) -> None:
             pass
 
 
-def start_demo(log: Path, speed: float, faults: list[str], children: list[subprocess.Popen] | None = None) -> tuple[subprocess.Popen, subprocess.Popen]:
+def start_demo(log: Path, speed: float, faults: list[str], children: list[subprocess.Popen] | None = None,
+               scenario: str | None = None) -> tuple[subprocess.Popen, subprocess.Popen]:
     """Start the simulator and a recorder; return both processes once the log has readings.
 
     Each started process is appended to ``children`` at once, so that a signal arriving while
     this waits can stop it.
     """
     children = [] if children is None else children
+    profiles = scenario_profiles(scenario)
+    chosen = ["--scenario", str(scenario)] if scenario else []
     me = str(os.getpid())
     sim = subprocess.Popen(
-        [sys.executable, "-m", "firewatch", "sim", "--tcp", "127.0.0.1:0", "--speed", f"{speed:g}", "--parent-pid", me,
+        [sys.executable, "-m", "firewatch", "sim", "--tcp", "127.0.0.1:0", "--speed", f"{speed:g}", *chosen, "--parent-pid", me,
          *sum((["--fault", f] for f in faults), [])],
         stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True, process_group=0,
     )
@@ -96,7 +118,7 @@ def start_demo(log: Path, speed: float, faults: list[str], children: list[subpro
     port = first.rsplit(":", 1)[1]
     rec = subprocess.Popen(
         [sys.executable, "-m", "firewatch", "record", "--port", f"socket://127.0.0.1:{port}", "--clock", "device",
-         "--log", str(log), "--parent-pid", me],
+         "--log", str(log), "--parent-pid", me, *profiles],
         stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, process_group=0,
     )
     children.insert(0, rec)  # stopped first: it closes the session while the simulator still serves
@@ -173,7 +195,7 @@ def run(args: argparse.Namespace) -> int:
     for sig in (signal.SIGHUP, signal.SIGTERM, signal.SIGINT):
         signal.signal(sig, on_signal)
     try:
-        start_demo(log, args.speed, args.fault, children)
+        start_demo(log, args.speed, args.fault, children, args.scenario)
         from firewatch.ui import run_app
         from firewatch.ui.app import FirewatchApp
 

@@ -35,13 +35,16 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
         description="A simulated kiln with thermocouples, pyrometers and scriptable faults, speaking the native line format, "
         "or Modbus as a thermocouple module (unit 1) and a pyrometer (unit 2); docs/modbus.md has the register map.",
     )
-    p.add_argument("--scenario", help="scenario TOML (default: the demo scenario)")
+    p.add_argument("--scenario", metavar="NAME|FILE",
+                   help="a built-in scenario by name (closed-kiln, open-port; see --list-scenarios) or a scenario TOML "
+                   "(default: closed-kiln)")
+    p.add_argument("--list-scenarios", action="store_true", help="list the built-in scenarios and exit")
     p.add_argument("--speed", type=_args.non_negative, default=1.0, help="simulated seconds per real second (default 1; 0 = as fast as possible)")
     p.add_argument("--seed", type=int, help="random seed (default: the scenario's)")
     p.add_argument("--true-emissivity", type=_args.fraction, help="the ware's true emissivity (default: the scenario's)")
     p.add_argument("--fault", action="append", type=_fault, default=[], metavar="KIND@MINUTES[:K=V,...]",
                    help="inject a fault: tc-drift, tc-open, loop-break, window-fouling, emissivity-step, dropout, garbage (repeatable)")
-    out = p.add_mutually_exclusive_group(required=True)
+    out = p.add_mutually_exclusive_group()  # one is required unless --list-scenarios
     out.add_argument("--tcp", type=_host_port, metavar="HOST:PORT", help="listen like a serial device server (port 0 picks a free one)")
     out.add_argument("--pty", action="store_true", help="serve on a new pseudo-terminal; its path is the first line printed")
     out.add_argument("--stdout", action="store_true", help="write lines to standard output")
@@ -52,6 +55,17 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--minutes", type=_args.positive, help="simulated minutes to run (default: the scenario's duration; streams run until stopped)")
     # for firewatch demo: end when the process that started this one ends
     p.add_argument("--parent-pid", type=int, help=argparse.SUPPRESS)
+
+
+def list_scenarios() -> int:
+    """Print the built-in scenarios, one a line: the name, what it is, and its file (to copy and change)."""
+    from firewatch.settings.profile import profiles_dir
+    from firewatch.simulator.scenario import BUILT_IN
+
+    width = max(len(n) for n in BUILT_IN)
+    for name, (file, what) in BUILT_IN.items():
+        print(f"{name:<{width}}  {what} ({profiles_dir() / file})")
+    return 0
 
 
 def run(args: argparse.Namespace) -> int:
@@ -66,6 +80,11 @@ def run(args: argparse.Namespace) -> int:
     from firewatch.settings._tomlcheck import ProfileError
     from firewatch.simulator.run import Simulation
     from firewatch.simulator.scenario import load_scenario
+
+    if args.list_scenarios:
+        return list_scenarios()
+    if not (args.tcp or args.pty or args.stdout or args.to_log):
+        raise UsageError("one of --tcp, --pty, --stdout or --to-log is required (or --list-scenarios)")
 
     try:
         scenario = load_scenario(args.scenario)

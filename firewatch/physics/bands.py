@@ -45,7 +45,7 @@ from pathlib import Path
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from firewatch.physics._warnings import OutOfRangeWarning, RangeError
+from firewatch.physics._warnings import OutOfRangeWarning, RangeError, exact
 from firewatch.physics.constants import C2
 from firewatch.physics.planck import check_temperature, planck_radiance
 
@@ -291,7 +291,7 @@ def _flag_outside(
         return
     if given.ndim == 0:
         quoted = float(np.asarray(given if show is None else show))
-        raise RangeError(f"{what} {quoted:g} is outside {limits}")
+        raise RangeError(f"{what} {exact(quoted)} is outside {limits}")
     warnings.warn(
         f"{int(bad.sum())} of {bad.size} values of {what} outside {limits} set to NaN",
         OutOfRangeWarning,

@@ -38,31 +38,48 @@ uncertainty of the corrected temperature, by first-order propagation
 instrument's own stated accuracy, with the sensitivities differentiated
 from the scene equation above.
 
+First-order propagation assumes the model is close to linear over the
+inputs' uncertainties (JCGM 100 5.1.2). For a single-band correction that
+fails when u(e)/e is large (T goes as an inverse power of e, more steeply
+at long wavelengths), and when the background is near the target (the
+emissivity's effect vanishes to first order but not its products with the
+background's uncertainty). :func:`correct_single_band` therefore probes
+the model at each input's estimate +/- 2 u (and at the four corners of
+emissivity and background together, whose product term is added whole
+since it is far from Gaussian); where the one-sided 95 % half-widths
+those probes give depart from 2 u_c by more than :data:`LINEARITY_LIMIT`,
+or where the model has no value within the probes, it warns with
+:class:`UncertaintyWarning` naming the cause. The
+remedy is the Monte Carlo propagation of JCGM 101:2008 [JCGM101]_ in
+:func:`firewatch.physics.montecarlo.monte_carlo_single_band`, which
+returns an asymmetric coverage interval.
+
 Input checking: emissivity and transmission settings outside (0, 1] and
 slopes <= 0 raise ``ValueError``; indicated temperatures outside the band
-table (200-4000 K) are a :class:`RangeError` for one value and NaN with an
-:class:`OutOfRangeWarning` for arrays; a reading below what the background
-alone would give is NaN with an :class:`OutOfRangeWarning`.
+table (200-4000 K), and readings below what the background alone would
+give, are a :class:`RangeError` for one value and NaN with an
+:class:`OutOfRangeWarning` for arrays.
 
 References
 ----------
-See ``DeWitt1988``, ``GUM2008`` and ``Planck1901`` in docs/references.md.
+See ``DeWitt1988``, ``GUM2008``, ``JCGM101`` and ``Planck1901`` in docs/references.md.
 """
 
 from __future__ import annotations
 
 import warnings
-from typing import overload
+from typing import Any, overload
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from firewatch.physics._warnings import OutOfRangeWarning
+from firewatch.physics._warnings import OutOfRangeWarning, RangeError, UncertaintyWarning, exact
 from firewatch.physics.bands import Band, _flag_outside
 from firewatch.physics.constants import C2, ZERO_CELSIUS
 from firewatch.physics.windows import Window
 
 __all__ = [
+    "LINEARITY_LIMIT",
     "check_fraction",
     "correct_single_band",
     "indicated_single_band",
@@ -75,6 +92,13 @@ __all__ = [
 
 _DT = 0.25
 """Half step, K, for slopes of ln S taken from the tables."""
+
+LINEARITY_LIMIT = 0.15
+"""Largest relative departure of the probed one-sided 95 % half-widths from 2 u_c before
+:class:`UncertaintyWarning`. On a grid of bands (0.8-14 um), temperatures, emissivities and
+u(e)/e up to 0.2, with and without a background near the target, every case whose Monte Carlo
+interval (JCGM 101) departs from +/- 1.96 u_c by more than 20 % warns, and few that agree within
+5 % do (tests/physics/test_montecarlo.py)."""
 
 
 def check_fraction(value: ArrayLike, name: str) -> NDArray[np.float64]:
@@ -114,7 +138,7 @@ def correct_single_band(
     indicated_c: ArrayLike, band: Band, emissivity: ArrayLike, transmission: ArrayLike | Window = ...,
     set_emissivity: ArrayLike = ..., set_transmission: ArrayLike = ..., background_c: ArrayLike | None = ...,
     *, emissivity_u: ArrayLike = ..., transmission_u: ArrayLike = ..., instrument_u_c: ArrayLike = ...,
-    background_u_c: ArrayLike = ..., return_uncertainty: bool = ...,
+    background_u_c: ArrayLike = ..., return_uncertainty: bool = ..., check_linearity: bool = ...,
 ) -> NDArray[np.float64]: ...
 def correct_single_band(
     indicated_c,
@@ -130,6 +154,7 @@ def correct_single_band(
     instrument_u_c=0.0,
     background_u_c=0.0,
     return_uncertainty=False,
+    check_linearity=True,
 ):
     """True ware temperature from a single-band pyrometer's indicated temperature.
 
@@ -156,6 +181,9 @@ def correct_single_band(
         Standard uncertainties of the indicated and background temperatures, K.
     return_uncertainty : bool
         Also return the standard uncertainty of the result.
+    check_linearity : bool
+        With ``return_uncertainty``, probe the model at +/- 2 u and warn
+        where first-order propagation is unreliable (module notes).
 
     Returns
     -------
@@ -168,12 +196,15 @@ def correct_single_band(
     ValueError
         Emissivity, transmission or settings outside (0, 1]; a negative
         uncertainty; :class:`RangeError` for one indicated value outside the
-        band table.
+        band table or below what the background alone would give.
 
     Warns
     -----
     OutOfRangeWarning
         Array readings outside the table, or below the background alone.
+    UncertaintyWarning
+        With ``return_uncertainty``, where first-order propagation is
+        unreliable (large u(e)/e, long wavelengths, background near target).
 
     Notes
     -----
@@ -203,22 +234,22 @@ def correct_single_band(
     t_ind = _to_kelvin(indicated_c)
     log_ind = band.log_signal(t_ind)
     log_meas = log_ind + np.log(e_set * t_set)
-    s_bg = 0.0
-    if background_c is None:
-        log_scene = log_meas - np.log(gray) - np.log(eps)
-    else:
+    s_bg = None
+    if background_c is not None:
         t_bg = _to_kelvin(background_c)
         s_bg = np.exp(scene_band.log_signal(t_bg))
-        s_scene = (np.exp(log_meas) / gray - (1.0 - eps) * s_bg) / eps
-        below = ~(s_scene > 0) & ~np.isnan(s_scene)
-        if np.any(below):
-            warnings.warn(
-                f"{int(below.sum())} reading(s) lie below what the background alone would give; set to NaN",
-                OutOfRangeWarning,
-                stacklevel=2,
+    log_scene, below = _log_scene(log_meas - np.log(gray), eps, s_bg)
+    if np.any(below):
+        if below.ndim == 0:
+            raise RangeError(
+                f"indicated temperature (degC) {exact(float(np.asarray(indicated_c)))} lies below what the background at "
+                f"{exact(float(np.asarray(background_c)))} degC alone would give with emissivity {exact(float(eps))}"
             )
-        with np.errstate(divide="ignore", invalid="ignore"):
-            log_scene = np.log(np.where(below, np.nan, s_scene))
+        warnings.warn(
+            f"{int(below.sum())} reading(s) lie below what the background alone would give; set to NaN",
+            OutOfRangeWarning,
+            stacklevel=2,
+        )
     t = scene_band.temperature_from_log_signal(log_scene)
     _flag_outside(t, log_scene, "indicated temperature (degC)", "what the band table covers (200..4000 K) once corrected", indicated_c)
     if not return_uncertainty:
@@ -233,7 +264,7 @@ def correct_single_band(
     s_meas_gray = np.exp(log_meas) / gray
     tau_eff = gray * s_t / np.exp(band.log_signal(t))
     terms = [
-        (s_t - s_bg) / (eps * ds_t) * u_eps,
+        (s_t - (0.0 if s_bg is None else s_bg)) / (eps * ds_t) * u_eps,
         s_meas_gray / (eps * ds_t) * (u_tau / tau_eff),
         s_meas_gray * _dlog(band, t_ind) / (eps * ds_t) * u_ind,
     ]
@@ -241,7 +272,152 @@ def correct_single_band(
         ds_bg = s_bg * _dlog(scene_band, t_bg)
         terms.append((1.0 - eps) * ds_bg / (eps * ds_t) * u_bg)
     u = np.sqrt(sum(np.square(x) for x in terms))
+    if check_linearity:
+        _check_linearity(
+            band, scene_band, t, u, eps, gray, tau_eff, log_meas, t_ind, e_set * t_set,
+            None if background_c is None else t_bg, u_eps, u_tau, u_ind, u_bg,
+        )
     return t - ZERO_CELSIUS, u
+
+
+def _log_scene(log_meas_gray: NDArray[np.float64], eps: NDArray[np.float64], s_bg: NDArray[np.float64] | None
+               ) -> tuple[NDArray[np.float64], NDArray[np.bool_]]:
+    """ln S_w(T) of the ware from ln(S_meas / f); NaN, and ``below`` True, where the background alone exceeds the reading."""
+    if s_bg is None:
+        log_scene = log_meas_gray - np.log(eps)
+        return log_scene, np.zeros(np.shape(log_scene), dtype=bool)
+    s_scene = (np.exp(log_meas_gray) - (1.0 - eps) * s_bg) / eps
+    below = ~(s_scene > 0) & ~np.isnan(s_scene)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.log(np.where(below, np.nan, s_scene)), below
+
+
+_INPUTS = ("emissivity", "transmission", "indicated temperature", "background")
+
+
+def _probe(
+    band: Band, scene_band: Band, t: NDArray[np.float64], eps: NDArray[np.float64], u_eps: NDArray[np.float64],
+    gray: NDArray[np.float64], tau_eff: NDArray[np.float64], u_tau: NDArray[np.float64], log_meas: NDArray[np.float64],
+    t_ind: NDArray[np.float64], u_ind: NDArray[np.float64], settings: NDArray[np.float64],
+    t_bg: NDArray[np.float64] | None, u_bg: NDArray[np.float64], shape: tuple[int, ...],
+) -> tuple[dict[int, tuple[NDArray[np.float64], NDArray[np.float64]]], NDArray[np.float64] | None]:
+    """Departures of the corrected temperature from ``t`` (K) at the probes of :func:`_check_linearity`.
+
+    Returns the departures at +2 u and -2 u for each input that has an uncertainty (keyed by its index in
+    ``_INPUTS``), and, where both the emissivity and the background have one, the product term: the mixed
+    difference over their four corners, scaled to f_xy u_x u_y and doubled to compare with a 95 % half-width.
+    All probes are solved in one pass: the scene signals are stacked, then one logarithm and one table lookup.
+    """
+    active = [bool(np.any(u_eps > 0)), bool(np.any(u_tau > 0)), bool(np.any(u_ind > 0)),
+              t_bg is not None and bool(np.any(u_bg > 0))]
+    s_m = np.broadcast_to(np.exp(log_meas) / gray, shape)
+    s_b = np.broadcast_to(np.exp(scene_band.log_signal(t_bg)), shape) if t_bg is not None else None
+    e = np.broadcast_to(eps, shape)
+    e_hi = np.broadcast_to(np.minimum(eps + 2 * u_eps, 1.0), shape)
+    e_lo = np.broadcast_to(np.maximum(eps - 2 * u_eps, 1e-6), shape)
+    rows: list[tuple[Any, Any, Any]] = []  # (measured signal / gray, emissivity, background signal) per probe
+    if active[0]:
+        rows += [(s_m, e_hi, s_b), (s_m, e_lo, s_b)]
+    if active[1]:  # the transmission kept at or below 1
+        rows += [(s_m / np.minimum(1.0 + 2 * u_tau / tau_eff, 1.0 / tau_eff), e, s_b),
+                 (s_m / np.maximum(1.0 - 2 * u_tau / tau_eff, 1e-6), e, s_b)]
+    if active[2]:
+        for sign in (1.0, -1.0):
+            lm = band.log_signal(np.maximum(t_ind + sign * 2 * u_ind, 1.0)) + np.log(settings)
+            rows.append((np.broadcast_to(np.exp(lm) / gray, shape), e, s_b))
+    if active[3]:
+        assert t_bg is not None
+        b_hi = np.broadcast_to(np.exp(scene_band.log_signal(t_bg + 2 * u_bg)), shape)
+        b_lo = np.broadcast_to(np.exp(scene_band.log_signal(np.maximum(t_bg - 2 * u_bg, 1.0))), shape)
+        rows += [(s_m, e, b_hi), (s_m, e, b_lo)]
+        if active[0]:
+            rows += [(s_m, e_hi, b_hi), (s_m, e_hi, b_lo), (s_m, e_lo, b_hi), (s_m, e_lo, b_lo)]
+    scene = np.empty((len(rows), *shape))
+    for k, (m, ek, bk) in enumerate(rows):
+        scene[k] = m / ek if bk is None else (m - (1.0 - ek) * bk) / ek
+    scene[~(scene > 0)] = np.nan  # no solution: the background alone gives more than the reading
+    d = scene_band.temperature_from_log_signal(np.log(scene)) - np.broadcast_to(t, shape)
+    out: dict[int, tuple[NDArray[np.float64], NDArray[np.float64]]] = {}
+    k = 0
+    for i, on in enumerate(active):
+        if on:
+            out[i] = (d[k], d[k + 1])
+            k += 2
+    cross = None
+    if active[0] and active[3]:
+        step = np.broadcast_to(e_hi - e_lo, shape)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            cross = np.where(step > 0, (d[k] - d[k + 1] - d[k + 2] + d[k + 3]) * np.broadcast_to(u_eps, shape) / (2.0 * step), 0.0)
+    return out, cross
+
+
+def _check_linearity(
+    band: Band, scene_band: Band, t: NDArray[np.float64], u: NDArray[np.float64], eps: NDArray[np.float64],
+    gray: NDArray[np.float64], tau_eff: NDArray[np.float64], log_meas: NDArray[np.float64], t_ind: NDArray[np.float64],
+    settings: NDArray[np.float64], t_bg: NDArray[np.float64] | None, u_eps: NDArray[np.float64],
+    u_tau: NDArray[np.float64], u_ind: NDArray[np.float64], u_bg: NDArray[np.float64],
+) -> None:
+    """Warn where first-order propagation misjudges the 95 % interval (see the module notes).
+
+    The model is evaluated at each input's estimate +/- 2 u (emissivity and
+    transmission kept inside (0, 1]) and at the corners of emissivity and
+    background together, in one vectorised pass. The one-sided departures,
+    summed in quadrature, plus the emissivity-background product term (its
+    mixed second difference, JCGM 100 5.1.2 note; added whole, as a product
+    of two uncertain inputs has heavy tails), estimate the upper and lower
+    95 % half-widths; they are compared with 2 u.
+    """
+    if not (np.any(u_eps > 0) or np.any(u_tau > 0) or np.any(u_ind > 0) or (t_bg is not None and np.any(u_bg > 0))):
+        return
+    shape = np.broadcast_shapes(t.shape, u.shape)
+    with warnings.catch_warnings(), np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        warnings.simplefilter("ignore", OutOfRangeWarning)  # a probe off the table is an undefined value, counted below
+        pairs, cross = _probe(band, scene_band, t, eps, u_eps, gray, tau_eff, u_tau, log_meas, t_ind, u_ind, settings,
+                              t_bg, u_bg, shape)
+    if not pairs:
+        return
+    up = np.sqrt(sum(np.square(np.maximum(np.fmax(a, b), 0.0)) for a, b in pairs.values()))
+    down = np.sqrt(sum(np.square(np.minimum(np.fmin(a, b), 0.0)) for a, b in pairs.values()))
+    if cross is not None:
+        up, down = up + np.abs(cross), down + np.abs(cross)  # the product term is not Gaussian (heavy tails): added whole
+    two_u = 2.0 * np.broadcast_to(u, shape)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        off = np.maximum(np.abs(up / two_u - 1.0), np.abs(down / two_u - 1.0))
+    undefined = np.zeros(shape, dtype=bool)
+    for a, b in pairs.values():
+        undefined |= np.isnan(a) | np.isnan(b)
+    if cross is not None:
+        undefined |= np.isnan(cross)
+    undefined &= np.isfinite(np.broadcast_to(t, shape))
+    bad = ((off > LINEARITY_LIMIT) & (two_u > 0)) | undefined
+    if not bad.any():
+        return
+    # the worst value, and the input whose probes stray furthest from a straight line there
+    i = np.unravel_index(int(np.argmax(np.where(bad, np.nan_to_num(off, nan=np.inf), -1.0))), shape)
+    stray = {k: abs(float(a[i]) + float(b[i])) for k, (a, b) in pairs.items()}
+    if cross is not None:
+        stray[3] = max(stray.get(3, 0.0), abs(float(cross[i])))
+    k = max(stray, key=lambda key: np.inf if np.isnan(stray[key]) else stray[key])
+    t_i = float(np.broadcast_to(t, shape)[i]) - ZERO_CELSIUS
+    if k == 0:
+        ratio = float(np.broadcast_to(u_eps, shape)[i] / np.broadcast_to(eps, shape)[i])
+        why = (f"u(e)/e = {ratio:.2f} at {band.centre_m * 1e6:.2g} um and {t_i:.0f} degC "
+               "(T is steeply non-linear in the emissivity)")
+    elif k == 3:
+        assert t_bg is not None
+        why = (f"the background ({float(np.broadcast_to(t_bg, shape)[i]) - ZERO_CELSIUS:.0f} degC) is near the target "
+               f"({t_i:.0f} degC): the emissivity's and background's uncertainties act together")
+    else:
+        why = f"the {_INPUTS[k]}'s uncertainty is large for the model's curvature"
+    if bool(undefined[i]):
+        why = "the model has no value within 2 u of the inputs (a reading near what the background alone gives, or an emissivity near 0); " + why
+    count = f"{int(bad.sum())} of {bad.size} values: " if bad.ndim and bad.size > 1 else ""
+    warnings.warn(
+        f"{count}first-order uncertainty unreliable: {why}; use the Monte Carlo propagation "
+        "(monte_carlo_single_band, calc pyro --monte-carlo)",
+        UncertaintyWarning,
+        stacklevel=3,
+    )
 
 
 def effective_transmission(band: Band, transmission: ArrayLike | Window, temperature_c: ArrayLike) -> NDArray[np.float64]:

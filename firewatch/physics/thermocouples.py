@@ -41,7 +41,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from firewatch.physics._its90_data import FORWARD, INVERSE
-from firewatch.physics._warnings import OutOfRangeWarning, RangeError
+from firewatch.physics._warnings import OutOfRangeWarning, RangeError, exact
 
 __all__ = [
     "TYPES",
@@ -146,7 +146,7 @@ def _report_out_of_range(
     if not bad.any():
         return
     if scalar:
-        raise RangeError(f"{what} {float(value):g} is outside {limits}")
+        raise RangeError(f"{what} {exact(float(value))} is outside {limits}")
     warnings.warn(
         f"{int(bad.sum())} of {bad.size} values of {what} outside {limits} set to NaN",
         OutOfRangeWarning,

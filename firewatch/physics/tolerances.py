@@ -2,11 +2,19 @@
 
 Two standards are tabulated, each as ranges with a rule:
 
-* ASTM E230/E230M, Table 1, "standard" and "special" limits of error
-  [ASTME230]_: the greater of a fixed value and a percentage of |t|.
+* ASTM E230/E230M, Table 1, "standard" and "special" tolerances on initial
+  values [ASTME230]_: the greater of a fixed value and a percentage of |t|,
+  above 0 degC and, in the table's second part, below it (types E, K and T
+  standard, E and T special; there are no special tolerances for type K
+  below 0 degC, and none for B, J, N, R and S there).
 * IEC 60584-1:2013, Table 2, classes 1, 2 and 3 [IEC60584]_: a fixed value
-  on the lower range, a fraction of |t| above it (type R and S class 1:
-  1 + 0.003 (t - 1100) degC above 1100 degC).
+  on one part of the range, a fraction of |t| on the other (type R and S
+  class 1: 1 + 0.003 (t - 1100) degC above 1100 degC). Class 3 covers the
+  low temperatures for E, K, N and T (down to -200 degC) and the high ones
+  for B; J, R and S have no class 3.
+
+Where a standard gives no value for a type, class and temperature the
+result is NaN, so that a caller can tell "not covered" from a number.
 
 The values were entered from memory of the standards' tables; a site with a
 calibration certificate should give the channel's own uncertainty instead.
@@ -48,13 +56,13 @@ TOLERANCE_CLASSES: dict[str, dict[str, tuple[_Rule, ...]]] = {
     },
     "astm-special": {
         "B": ((870.0, 1700.0, 0.0, 0.0025, None),),
-        "E": ((0.0, 870.0, 1.0, 0.004, None),),
+        "E": ((-200.0, 0.0, 1.0, 0.005, None), (0.0, 870.0, 1.0, 0.004, None)),
         "J": ((0.0, 760.0, 1.1, 0.004, None),),
         "K": _K_N_ASTM_SPE,
         "N": _K_N_ASTM_SPE,
         "R": ((0.0, 1480.0, 0.6, 0.001, None),),
         "S": ((0.0, 1480.0, 0.6, 0.001, None),),
-        "T": ((0.0, 370.0, 0.5, 0.004, None),),
+        "T": ((-200.0, 0.0, 0.5, 0.008, None), (0.0, 370.0, 0.5, 0.004, None)),
     },
     "iec-1": {
         "E": ((-40.0, 375.0, 1.5, 0.0, None), (375.0, 800.0, 0.0, 0.004, None)),
@@ -77,6 +85,10 @@ TOLERANCE_CLASSES: dict[str, dict[str, tuple[_Rule, ...]]] = {
     },
     "iec-3": {
         "B": ((600.0, 800.0, 4.0, 0.0, None), (800.0, 1700.0, 0.0, 0.005, None)),
+        "E": ((-167.0, 40.0, 2.5, 0.0, None), (-200.0, -167.0, 0.0, 0.015, None)),
+        "K": ((-167.0, 40.0, 2.5, 0.0, None), (-200.0, -167.0, 0.0, 0.015, None)),
+        "N": ((-167.0, 40.0, 2.5, 0.0, None), (-200.0, -167.0, 0.0, 0.015, None)),
+        "T": ((-67.0, 40.0, 1.0, 0.0, None), (-200.0, -67.0, 0.0, 0.015, None)),
     },
 }
 """Tolerance rules by class name and type letter."""

@@ -174,7 +174,7 @@ def spectral_transmission(mat: WindowMaterial | str, wavelength_m: ArrayLike) ->
     return slab_transmission(refractive_index(m, lam)) * edge
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class Window:
     """A sight window: a material or a measured curve, times a gray fouling factor.
 
@@ -184,7 +184,10 @@ class Window:
         The material model.
     fouling : float or array_like
         Gray factor for deposits, in (0, 1]; 1 for a clean window. An array
-        (one factor per reading) broadcasts against the readings.
+        (one factor per reading, as fouling grows through a firing)
+        broadcasts against the readings in the corrections, and against
+        the wavelengths in :meth:`transmission`. It is kept as a read-only
+        copy, so a window compares and hashes by value.
     measured : tuple of arrays, optional
         ``(wavelength_um, transmission)`` measured on the window itself,
         which replaces the material model.
@@ -202,10 +205,15 @@ class Window:
     _mat: WindowMaterial | None = field(init=False, repr=False, compare=False, default=None)
 
     def __post_init__(self) -> None:
-        fouling = np.asarray(self.fouling, dtype=float)
+        fouling = np.array(self.fouling, dtype=float)
         bad = ~((fouling > 0.0) & (fouling <= 1.0))
         if np.any(bad):
             raise ValueError(f"window fouling factor must be in (0, 1], got {float(fouling[bad].ravel()[0])!r}")
+        if fouling.ndim == 0:
+            object.__setattr__(self, "fouling", float(fouling))
+        else:
+            fouling.setflags(write=False)  # the window is frozen: so is its fouling
+            object.__setattr__(self, "fouling", fouling)
         if self.measured is not None:
             lam, tau = (tuple(float(v) for v in a) for a in self.measured)
             if len(lam) < 2 or len(lam) != len(tau) or any(b <= a for a, b in zip(lam, lam[1:])):
@@ -218,6 +226,20 @@ class Window:
         if self.material is not None:
             mat = material(self.material) if isinstance(self.material, str) else self.material
             object.__setattr__(self, "_mat", mat)
+
+    def __eq__(self, other: object) -> bool:
+        if not isinstance(other, Window):
+            return NotImplemented
+        return (self._key == other._key and np.shape(self.fouling) == np.shape(other.fouling)
+                and bool(np.all(np.asarray(self.fouling) == np.asarray(other.fouling))))
+
+    def __hash__(self) -> int:
+        return hash((self._key, np.asarray(self.fouling).tobytes()))
+
+    @property
+    def _key(self) -> tuple:
+        """What identifies the clean window: its material's name, or its measured curve."""
+        return (self._mat.name if self._mat is not None else None, self.measured)
 
     @property
     def name(self) -> str:
@@ -236,8 +258,8 @@ class Window:
         return spectral_transmission(self._mat, lam)  # type: ignore[arg-type]
 
     def transmission(self, wavelength_m: ArrayLike) -> NDArray[np.float64]:
-        """Spectral transmission including a scalar fouling factor."""
-        return self.clean_transmission(wavelength_m) * float(self.fouling)
+        """Spectral transmission including the fouling factor (an array of factors broadcasts against the wavelengths)."""
+        return self.clean_transmission(wavelength_m) * np.asarray(self.fouling)
 
     def through(self, band: Band) -> Band:
         """The band as seen through the clean window (fouling stays a separate gray factor).
@@ -246,7 +268,7 @@ class Window:
         inversion table is built once however many ``Window`` objects
         (one per fouling state) are made.
         """
-        key = (self._mat.name if self._mat is not None else None, self.measured)
+        key = self._key
         per_band = _THROUGH.setdefault(band, {})
         if key not in per_band:
             per_band[key] = band.weighted(self.clean_transmission, name=f"{band.name} through {key[0] or 'measured window'}")

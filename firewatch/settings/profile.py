@@ -337,7 +337,7 @@ PYROMETER_FIELDS = (
     Field("band_um", None, None, _BAND, convert=_floats, missing="give [START_UM, END_UM]", help="`[start, end]` in µm (band 1 of a ratio instrument)"),
     Field("band2_um", None, None, _BAND, convert=_floats, missing="give [START_UM, END_UM]", help="ratio: the longer band"),
     Field("band_file", str, None, help="instead of `band_um`: a CSV of wavelength (µm) and relative response, beside the profile"),
-    Field("set_emissivity", float, 1.0, _FRACTION, help="the instrument's own emissivity setting (single band)"),
+    Field("set_emissivity", float, 1.0, _FRACTION, help="the instrument's own emissivity setting (single band); `firewatch tune --apply` writes the setting that makes the instrument read the reference, to be dialled into the instrument too"),
     Field("set_transmission", float, 1.0, _FRACTION, help="the instrument's own transmission setting (single band)"),
     Field("set_slope", float, 1.0, _POSITIVE, help="the instrument's emissivity slope setting (ratio)"),
     Field("emissivity", float, 1.0, _FRACTION, help="what is known of the ware's emissivity in the band (tune it with `firewatch tune`)"),

@@ -53,9 +53,8 @@ def test_band_result_departs_from_wien_as_band_widens() -> None:
 
 
 def test_wien_fails_at_thermal_wavelengths() -> None:
-    # Wien fails at 8 um and 1000 degC: it drops Planck's -1, exp(-c2/(lambda T)) = 24 % of the
-    # radiance there (Planck 1901; worked by hand); for emissivity 0.9 this code finds about 28 K,
-    # a regression value.
+    # Wien fails at 8 um and 1000 degC (common practice, no source: "about 23 K out"; for
+    # emissivity 0.9 this code finds about 28 K, a regression value).
     band = Band(7.995, 8.005)
     band_c = float(correct_single_band(1000.0, band, 0.9))
     wien_c = float(wien_single_band(1000.0 + K0, 8e-6, 0.9)) - K0
@@ -64,7 +63,7 @@ def test_wien_fails_at_thermal_wavelengths() -> None:
 
 @pytest.mark.parametrize(("lam", "expected"), [(0.9, 1.0), (1.6, 1.8), (8.0, 7.0)])
 def test_one_percent_emissivity_sensitivity(lam: float, expected: float) -> None:
-    # Wien's approximation dT = lambda T^2 / c2 * d(eps)/eps (DeWitt & Nutter 1988; worked by hand): a 1 % emissivity error costs about
+    # the sensitivity dT/T = (lambda T/c2) de/e (DeWitt & Nutter 1988) with exact Planck: a 1 % emissivity error costs about
     # 1.0 K at 0.9 um, 1.8 K at 1.6 um and 7 K at 8 um, at 1000 degC.
     band = Band(lam - 0.005, lam + 0.005)
     err = float(correct_single_band(1000.0, band, 0.99)) - 1000.0
@@ -72,8 +71,7 @@ def test_one_percent_emissivity_sensitivity(lam: float, expected: float) -> None
 
 
 def test_ratio_slope_error_costs_about_ten_times() -> None:
-    # A 1 % slope error at 0.95/1.05 um and 1000 degC costs about 11 K: Wien's approximation at the ratio's
-    # equivalent wavelength lambda1 lambda2 / (lambda2 - lambda1) = 10 um (DeWitt & Nutter 1988; worked by hand).
+    # the Wien ratio form (DeWitt & Nutter 1988): a 1 % slope error at 0.95/1.05 um and 1000 degC costs about 11 K.
     err = 1000.0 - float(correct_ratio(1000.0, R1, R2, 1.01))
     assert err == pytest.approx(11.0, abs=0.5)
     single = float(correct_single_band(1000.0, Band(0.995, 1.005), 0.99)) - 1000.0
@@ -106,7 +104,7 @@ def test_gray_attenuation_leaves_ratio_unchanged_single_band_drops() -> None:
 
 def test_background_cavity_effect() -> None:
     # With walls at the ware temperature the ware looks black whatever its
-    # emissivity (the cavity effect: Kirchhoff's law in an isothermal enclosure, Siegel & Howell 2002).
+    # emissivity (the cavity effect; DeWitt & Nutter 1988).
     shown = float(indicated_single_band(1100.0, SI_BAND, 0.4, background_c=1100.0))
     assert shown == pytest.approx(1100.0, abs=1e-3)
     assert float(correct_single_band(shown, SI_BAND, 0.4, background_c=1100.0)) == pytest.approx(1100.0, abs=1e-3)
@@ -116,6 +114,15 @@ def test_reading_below_background_is_nan_with_warning() -> None:
     with pytest.warns(OutOfRangeWarning, match="below what the background"):
         out = correct_single_band(np.array([900.0, 1200.0]), SI_BAND, 0.5, background_c=1150.0)
     assert np.isnan(out[0]) and np.isfinite(out[1])
+
+
+def test_single_reading_below_background_raises() -> None:
+    # issue 12: the README promises a ValueError for a single out-of-range value, and a reading below
+    # its background returned NaN; now one value raises RangeError (a ValueError) naming the values
+    with pytest.raises(RangeError, match=r"indicated temperature \(degC\) 900 lies below what the background at 1150 degC"):
+        correct_single_band(900.0, SI_BAND, 0.5, background_c=1150.0)
+    with pytest.raises(ValueError, match="below what the background"):
+        correct_single_band(900.0, SI_BAND, 0.5, background_c=1150.0, emissivity_u=0.02, return_uncertainty=True)
 
 
 def test_uncertainty_matches_numerical_derivatives() -> None:
@@ -145,7 +152,7 @@ def test_transmission_uncertainty_is_relative_to_effective_value() -> None:
 def test_effective_transmission() -> None:
     assert float(effective_transmission(SI_BAND, 0.7, 1000.0)) == 0.7
     w = float(effective_transmission(SI_BAND, Window("sapphire", fouling=0.5), 1000.0))
-    assert w == pytest.approx(0.5 * 0.860, abs=0.002)  # sapphire ~0.860 at 0.9 um: Fresnel slab transmission 2n/(n^2+1), Born & Wolf 1999, Malitson & Dodge 1972's index
+    assert w == pytest.approx(0.5 * 0.860, abs=0.002)  # sapphire ~0.860 at 0.9 um: 2n/(n^2+1), Malitson & Dodge 1972 (from memory)
 
 
 @pytest.mark.parametrize(

@@ -31,7 +31,7 @@ DATA_BLACKBODY_FRACTION = [
 
 
 def test_radiation_constants_are_codata() -> None:
-    # CODATA 2018 (Tiesinga et al. 2021; exact under the 2019 SI), as scipy.constants gives them.
+    # CODATA 2018 (Tiesinga et al., Rev. Mod. Phys. 93, 025010, 2021; exact under the 2019 SI).
     assert C1L == pytest.approx(1.191042972e-16, rel=1e-9)
     assert C2 == pytest.approx(1.438776877e-2, rel=1e-9)
     assert SIGMA == sc.Stefan_Boltzmann
@@ -81,8 +81,7 @@ def test_long_wavelength_limit_is_rayleigh_jeans() -> None:
 
 
 def test_short_wavelength_limit_is_wien() -> None:
-    # Wien is within 1 % of Planck below lambda T = 3000 um K: its relative error is exp(-c2/(lambda T)),
-    # 0.8 % there (Planck 1901; worked by hand).
+    # Wien is within 1 % of Planck below lambda T = 3000 um K (common practice, no source).
     lt = np.linspace(200.0, 3000.0, 50) * 1e-6
     lam = lt / 1500.0
     np.testing.assert_array_less(1.0 - wien_radiance(lam, 1500.0) / planck_radiance(lam, 1500.0), 0.01)
@@ -90,8 +89,8 @@ def test_short_wavelength_limit_is_wien() -> None:
 
 def test_its90_second_constant_effect() -> None:
     # T inverted from a radiance scales with c2: using ITS-90's c2 = 0.014388 m K
-    # (Preston-Thomas 1990) instead of CODATA 2018's 0.01438776877 m K moves T by their ratio, +1.6e-5 T,
-    # 0.02 K at 1000 degC (worked by hand).
+    # instead of CODATA's moves T by +1.6e-5 T, 0.02 K at 1000 degC (the ratio of the two c2 values,
+    # Preston-Thomas, Metrologia 27, 1990, and CODATA 2018).
     lam, t = 0.65e-6, 1273.15
     radiance = float(planck_radiance(lam, t))
 

@@ -23,7 +23,7 @@ from firewatch.physics.thermocouples import (
 
 # (type, degC, mV) -- NIST Monograph 175 reference tables, 0 degC reference junction.
 DATA_NIST_TABLE = [
-    # NIST Monograph 175 (Burns et al. 1993), types K and B tables:
+    # NIST Monograph 175 (Burns et al. 1993), reference tables:
     ("K", 1000.0, 41.276),
     ("K", -100.0, -3.554),
     ("S", 1000.0, 9.587),
@@ -75,15 +75,15 @@ def test_forward_matches_nist_table(tc_type: str, t_c: float, emf_mv: float) -> 
 def test_inverse_of_rounded_table_value(tc_type: str, t_c: float, emf_mv: float) -> None:
     # A table value rounded to 0.001 mV, inverted exactly, is off by at most
     # half a digit over the Seebeck coefficient (0.013 degC for K, 0.06 for B
-    # at 1000 degC, from NIST Monograph 175's Seebeck coefficients, worked by hand).
+    # at 1000 degC; the Seebeck coefficients from NIST Monograph 175's reference functions).
     t = float(emf_to_temperature(emf_mv, tc_type))
     allowed = TABLE_ROUNDING_MV / abs(float(seebeck(t_c, tc_type))) + 1e-6
     assert abs(t - t_c) <= allowed
 
 
 def test_rounding_sizes_quoted_by_design_notes() -> None:
-    # Up to 0.013 degC (K) and 0.06 degC (B) from rounding alone: 0.0005 mV over NIST Monograph 175's
-    # Seebeck coefficients at 1000 degC (K about 39 uV/degC, B about 9 uV/degC), worked by hand.
+    # half a table digit (0.0005 mV) over the Seebeck coefficient of NIST Monograph 175's functions at 1000 degC:
+    # 0.0005/0.039 = 0.013 degC (K) and 0.0005/0.0091 = 0.055 degC (B), from rounding alone (common practice, no source).
     assert abs(float(emf_to_temperature(41.276, "K")) - 1000.0) <= 0.013
     assert abs(float(emf_to_temperature(4.834, "B")) - 1000.0) <= 0.06
 
@@ -162,6 +162,19 @@ def test_out_of_range_scalar_raises_and_array_gives_nan() -> None:
     with pytest.warns(OutOfRangeWarning, match="1 of 3"):
         out = emf_to_temperature([10.0, 60.0, 20.0], "K")
     assert np.isnan(out[1]) and not np.isnan(out[[0, 2]]).any()
+
+
+def test_range_messages_quote_the_exact_value() -> None:
+    # issue 12: the message rounded the value it rejected ("1372 is outside -270..1372");
+    # the range ends are NIST Monograph 175's (type K: -270 to 1372 degC)
+    with pytest.raises(RangeError, match=r"1372\.0001 is outside -270\.\.1372 degC"):
+        temperature_to_emf(1372.0001, "K")
+    with pytest.raises(RangeError, match=r"-270\.00000001 is outside"):
+        temperature_to_emf(-270.00000001, "K")
+    with pytest.raises(RangeError, match=r"54\.8871 is outside"):
+        emf_to_temperature(54.8871, "K")
+    with pytest.raises(RangeError, match=r"\b2000 is outside"):
+        temperature_to_emf(2000.0, "K")  # a whole number reads without a trailing .0
 
 
 def test_nan_input_is_nan_without_warning() -> None:

@@ -32,8 +32,8 @@ def test_refractive_index(name: str, lam_um: float, n: float, tol: float) -> Non
 
 
 def test_slab_transmission_check_values() -> None:
-    # Fresnel slab transmission 2n/(n^2+1), Born & Wolf 1999, of Malitson 1965's and Malitson & Dodge 1972's indices, worked by hand:
-    # fused silica 0.90 um -> 0.9343; sapphire (o) 1.60 um -> 0.8627.
+    # 2n/(n^2+1) (Born & Wolf 1999) at Malitson 1965's n = 1.45175 (fused silica, 0.90 um) -> 0.9343 and
+    # Malitson & Dodge 1972's n_o = 1.74530 (sapphire, 1.60 um) -> 0.8627.
     assert float(slab_transmission(1.45175)) == pytest.approx(0.9343, abs=5e-5)
     assert float(slab_transmission(1.74530)) == pytest.approx(0.8627, abs=5e-5)
     # a slab of index 1 loses nothing (Fresnel, common practice)
@@ -42,8 +42,8 @@ def test_slab_transmission_check_values() -> None:
 
 @pytest.mark.parametrize(
     ("name", "expected"),
-    # band-effective values for a 0.9 um band: Fresnel slab transmission 2n/(n^2+1), Born & Wolf 1999, of the indices of Malitson 1965,
-    # Malitson & Dodge 1972 (ordinary ray) and Malitson 1963 (calcium fluoride), worked by hand
+    # band-effective values for a 0.9 um band: 2n/(n^2+1) (Born & Wolf 1999) at the published indexes near 0.9 um
+    # (Malitson 1965, Malitson & Dodge 1972, Malitson 1963), from memory
     [("fused-silica", 0.934), ("sapphire", 0.860), ("calcium-fluoride", 0.939)],
 )
 def test_band_effective_near_design_values(name: str, expected: float) -> None:
@@ -71,8 +71,8 @@ def test_cutoffs_in_expected_order() -> None:
 
 
 def test_clean_fused_silica_reads_about_7_k_low() -> None:
-    # An uncorrected clean fused-silica window reads about 7 K low at 1000 degC and 0.9 um: Wien's
-    # approximation, dT = lambda T^2 / c2 * ln(1/0.9343) = 6.9 K (DeWitt & Nutter 1988; worked by hand).
+    # an uncorrected clean fused-silica window reads about 7 K low at 1000 degC and 0.9 um: the Wien form
+    # (DeWitt & Nutter 1988) gives lambda T^2/c2 ln(1/0.9343) = 6.9 K.
     low = 1000.0 - float(indicated_single_band(1000.0, Band(0.89, 0.91), 1.0, Window("fused-silica")))
     assert 6.5 < low < 7.5
 
@@ -105,3 +105,29 @@ def test_shapes_and_bad_index() -> None:
     assert spectral_transmission("sapphire", np.full((2, 5), 1e-6)).shape == (2, 5)
     with pytest.raises(ValueError, match="refractive index must be >= 1"):
         slab_transmission(0.9)
+
+
+def test_array_fouling_works_everywhere() -> None:
+    # issue 12: Window(..., fouling=array) raised a TypeError although arrays are documented
+    from firewatch.physics.corrections import correct_single_band
+
+    band = Band(0.8, 1.1)
+    factors = np.array([1.0, 0.9, 0.7])
+    window = Window("fused-silica", fouling=factors)
+    assert window.transmission(0.9e-6).shape == (3,)
+    assert window.transmission(0.9e-6)[2] == pytest.approx(0.7 * float(Window("fused-silica").transmission(0.9e-6)))
+    assert window == Window("fused-silica", fouling=[1.0, 0.9, 0.7]) and window != Window("fused-silica", fouling=0.9)
+    assert hash(window) == hash(Window("fused-silica", fouling=factors.copy()))
+    assert window.name == "fused-silica, fouled"
+    # one correction over the array equals the corrections one factor at a time
+    readings = np.array([1000.0, 1000.0, 1000.0])
+    together = correct_single_band(readings, band, 0.9, window)
+    one_by_one = [float(correct_single_band(1000.0, band, 0.9, Window("fused-silica", fouling=f))) for f in factors]
+    np.testing.assert_allclose(together, one_by_one, rtol=0, atol=1e-9)
+    np.testing.assert_allclose(band_effective_transmission(band, window, 1273.15),
+                               factors * float(band_effective_transmission(band, Window("fused-silica"), 1273.15)))
+    # the window keeps its own copy: changing the caller's array changes nothing
+    factors[0] = 0.1
+    assert float(window.fouling[0]) == 1.0
+    with pytest.raises(ValueError):
+        window.fouling[0] = 0.5  # read-only, like the frozen window
