@@ -19,6 +19,7 @@ from typing import Any
 
 from firewatch.cli import UsageError
 from firewatch.commands import _args
+
 __all__ = ["add_parser", "run"]
 
 MATERIAL_NAMES = ("fused-silica", "sapphire", "borosilicate", "calcium-fluoride")

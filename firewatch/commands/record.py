@@ -81,8 +81,8 @@ def input_port(site: SiteProfile, port: str | None, clock: str | None) -> str:
 def run(args: argparse.Namespace) -> int:
     from pathlib import Path
 
-    from firewatch.store._common import LogError
     from firewatch.services.recorder import Recorder
+    from firewatch.store._common import LogError
 
     site, schedule = load_profiles(args.site, args.schedule)
     port = input_port(site, args.port, args.clock)

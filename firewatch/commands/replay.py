@@ -29,9 +29,9 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from firewatch.services.replay import alarm_summary, profiles_from_log, reevaluate
     from firewatch.settings._tomlcheck import ProfileError
     from firewatch.settings.profile import load_site
-    from firewatch.services.replay import alarm_summary, profiles_from_log, reevaluate
     from firewatch.settings.schedule import load_schedule
 
     reader = open_log(args.log)

@@ -19,17 +19,17 @@ import traceback
 from collections import deque
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import TYPE_CHECKING
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
-from firewatch.store.actions import ActionFileError, ActionQueue, apply_action, mqtt_action
-from firewatch.store.outbox import Outbox
-from firewatch.store.writer import BriefWrite, LogWriter
 from firewatch.firing.pipeline import Batch, Pipeline
 from firewatch.settings.profile import SiteProfile
 from firewatch.settings.schedule import Schedule
+from firewatch.store.actions import ActionFileError, ActionQueue, apply_action, mqtt_action
+from firewatch.store.outbox import Outbox
+from firewatch.store.writer import BriefWrite, LogWriter
 from firewatch.transport.generic import ChannelMap, GenericParser
 from firewatch.transport.modbus import ModbusParser, plan_requests
 from firewatch.transport.modbus_poll import LinkSettings, ModbusPoller
