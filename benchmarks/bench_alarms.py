@@ -16,13 +16,12 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-import numpy as np  # noqa: E402
 
 from firewatch.firing.alarms import AlarmEngine  # noqa: E402
-from firewatch.store.reader import LogReader  # noqa: E402
-from firewatch.settings.profile import profiles_dir  # noqa: E402
 from firewatch.firing.progress import ProgressTracker  # noqa: E402
 from firewatch.services.replay import profiles_from_log  # noqa: E402
+from firewatch.settings.profile import profiles_dir  # noqa: E402
+from firewatch.store.reader import LogReader  # noqa: E402
 from firewatch.transport.native import NativeParser  # noqa: E402
 
 

@@ -8,7 +8,6 @@ a bare subscriber's delivery latency, and the recorder's CPU without --mqtt on t
 from __future__ import annotations
 
 import json
-import os
 import shutil
 import socket
 import subprocess
@@ -24,8 +23,8 @@ sys.path.insert(0, str(ROOT / "benchmarks"))
 
 import numpy as np  # noqa: E402
 import paho.mqtt.client as mqtt  # noqa: E402
-
 from bench_recorder import cpu_seconds  # noqa: E402
+
 from firewatch.services.mqtt import parse_mqtt_url  # noqa: E402
 from firewatch.services.plant import PlantState  # noqa: E402
 

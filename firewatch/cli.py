@@ -11,8 +11,11 @@ import argparse
 import importlib
 import sys
 from collections.abc import Sequence
+from typing import Any
 
 from firewatch import __version__
+from firewatch.commands import _logging
+
 __all__ = ["main", "UsageError", "Parser"]
 
 #: subcommand name -> module under firewatch.commands
@@ -58,11 +61,35 @@ def build_parser() -> Parser:
         epilog=CAUTION,
     )
     parser.add_argument("--version", action="version", version=f"firewatch {__version__}")
-    parser.add_argument("--debug", action="store_true", help="show a traceback on errors")
+    _add_common(parser, top=True)
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=Parser)
     for name, module in COMMANDS.items():
         importlib.import_module(f"firewatch.commands.{module}").add_parser(sub)
+    _add_common_below(parser)
     return parser
+
+
+def _add_common_below(parser: argparse.ArgumentParser) -> None:
+    """The same options after every subcommand, nested ones too (``calc tc``)."""
+    for action in parser._actions:  # argparse lists subcommands only there
+        if isinstance(action, argparse._SubParsersAction):
+            for command in action.choices.values():
+                _add_common(command)
+                _add_common_below(command)
+
+
+def _add_common(parser: argparse.ArgumentParser, top: bool = False) -> None:
+    """-v, -q and --debug, accepted before or after the subcommand.
+
+    After it their default is SUPPRESS, so that a value given before the subcommand stands.
+    """
+    count: Any = 0 if top else argparse.SUPPRESS
+    flag: Any = False if top else argparse.SUPPRESS
+    parser.add_argument("-v", "--verbose", action="count", default=count, help="say more (-v: debug lines too)")
+    parser.add_argument("-q", "--quiet", action="count", default=count,
+                        help="say less (-q: warnings and errors only, -qq: errors only)")
+    parser.add_argument("--debug", action="store_true", default=flag,
+                        help="on an error, show the traceback instead of one line")
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -72,10 +99,13 @@ def main(argv: Sequence[str] | None = None) -> int:
     if args.command is None:
         parser.print_help()
         return 2
+    _logging.configure(args.verbose - args.quiet)
     module = importlib.import_module(f"firewatch.commands.{COMMANDS[args.command]}")
     try:
         return int(module.run(args) or 0)
     except UsageError as exc:
+        if args.debug:
+            raise
         sys.stderr.write(f"firewatch {args.command}: {exc}\n")
         return 2
     except KeyboardInterrupt:
@@ -83,9 +113,13 @@ def main(argv: Sequence[str] | None = None) -> int:
     except BrokenPipeError:
         return 0
     except Exception as exc:
-        message = _file_problem(exc, args)
-        if message is None or args.debug:
+        if args.debug:
             raise
+        message = _file_problem(exc, args)
+        if message is None:  # not the user's input: one line still, the traceback on request
+            sys.stderr.write(f"firewatch {args.command}: internal error: {type(exc).__name__}: {exc} "
+                             "(run again with --debug for the traceback)\n")
+            return 1
         sys.stderr.write(f"firewatch {args.command}: {message}\n")
         return 2
 

@@ -23,7 +23,7 @@ from firewatch.transport.records import Status
 __all__ = ["thermocouple_emf", "pyrometer_reading", "band_of"]
 
 
-def band_of(py: Pyrometer, base: "Path | None" = None) -> Band:  # noqa: F821 - documented type
+def band_of(py: Pyrometer, base: Path | None = None) -> Band:  # noqa: F821 - documented type
     """The band of a pyrometer as the site profile describes it (band 1 for a ratio instrument)."""
     if py.band_file:
         from pathlib import Path

@@ -71,10 +71,9 @@ from dataclasses import dataclass
 from typing import Any
 
 from firewatch.settings.profile import SiteProfile
+from firewatch.simulator.run import Line, Simulation
 from firewatch.transport.native import NativeParser
 from firewatch.transport.records import Malformed, Status
-
-from firewatch.simulator.run import Line, Simulation
 
 __all__ = ["Slot", "register_map", "KilnImage", "serve_tcp", "serve_rtu_pty", "CLOCK_REGISTER"]
 

@@ -10,12 +10,11 @@ import numpy as np
 
 from firewatch.physics.bands import Band
 from firewatch.physics.thermocouples import seebeck
-from firewatch.transport.native import encode
-from firewatch.transport.records import Status, Value
-
 from firewatch.simulator.instruments import band_of, pyrometer_reading, thermocouple_emf
 from firewatch.simulator.kiln import Controller, KilnModel
 from firewatch.simulator.scenario import Fault, Scenario
+from firewatch.transport.native import encode
+from firewatch.transport.records import Status, Value
 
 __all__ = ["Line", "Simulation"]
 

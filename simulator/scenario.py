@@ -58,7 +58,6 @@ from typing import Any
 from firewatch.settings._tomlcheck import ProfileError, TomlReader, in_range
 from firewatch.settings.profile import SiteProfile, load_site, profiles_dir, resolve_profile
 from firewatch.settings.schedule import Schedule, load_schedule
-
 from firewatch.simulator.kiln import KilnParameters
 
 __all__ = ["BUILT_IN", "FAULT_KINDS", "Fault", "Scenario", "load_scenario", "parse_fault", "scenario_path", "DEMO_SCENARIO"]
@@ -195,7 +194,7 @@ def load_scenario(path: str | Path | None = None) -> Scenario:
         else:
             moment = dt.datetime.fromisoformat(str(start_text).replace("Z", "+00:00"))
         if moment.tzinfo is None:
-            moment = moment.replace(tzinfo=dt.timezone.utc)
+            moment = moment.replace(tzinfo=dt.UTC)
         start = moment.timestamp()
     except ValueError:
         reader.problem(("scenario", "start"), f"expected an ISO 8601 time such as 2026-03-14T05:00:00Z, got {start_text!r}")

@@ -115,9 +115,9 @@ def to_tcp(sim: Simulation, speed: float, host: str, port: int, announce: Callab
 
 def to_log(sim: Simulation, log_path: Path, progress: Callable[[float], None] | None = None) -> dict[str, float]:
     """Run the scenario as fast as possible through the recorder's pipeline into a firing log."""
-    from firewatch.store.writer import LogWriter
     from firewatch.firing.pipeline import Pipeline, channel_table
     from firewatch.services.recorder import Ingest, attach_alarms
+    from firewatch.store.writer import LogWriter
     from firewatch.transport.native import NativeParser
 
     site, schedule = sim.site, sim.scenario.schedule

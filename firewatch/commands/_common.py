@@ -16,7 +16,7 @@ def iso(t: float | None) -> str | None:
     """UTC seconds as ISO 8601 with a Z, to the second (or None)."""
     if t is None:
         return None
-    return dt.datetime.fromtimestamp(t, dt.timezone.utc).isoformat(timespec="seconds").replace("+00:00", "Z")
+    return dt.datetime.fromtimestamp(t, dt.UTC).isoformat(timespec="seconds").replace("+00:00", "Z")
 
 
 def duration_text(seconds: float) -> str:

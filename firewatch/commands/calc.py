@@ -19,6 +19,7 @@ from typing import Any
 
 from firewatch.cli import UsageError
 from firewatch.commands import _args
+
 __all__ = ["add_parser", "run"]
 
 MATERIAL_NAMES = ("fused-silica", "sapphire", "borosilicate", "calcium-fluoride")
@@ -121,10 +122,10 @@ def run(args: argparse.Namespace) -> int:
 
 
 # -- helpers -------------------------------------------------------------
-def _c(value: float | None, args: argparse.Namespace) -> float | None:
+def _c(value: float, args: argparse.Namespace) -> float:
     from firewatch.settings.units import to_celsius
 
-    return None if value is None else float(to_celsius(value, args.units))
+    return float(to_celsius(value, args.units))
 
 
 def _show(value_c: float, args: argparse.Namespace, digits: int = 2) -> str:
@@ -220,7 +221,7 @@ def _pyro(args: argparse.Namespace) -> tuple[dict[str, Any], list[tuple[str, str
         raise UsageError("--fouling: needs --window (with --transmission give the whole gray value)")
     else:
         transmission = 1.0 if args.transmission is None else args.transmission
-    background_c = _c(args.background, args)
+    background_c = _c(args.background, args) if args.background is not None else None
     common = dict(
         band=band,
         emissivity=args.emissivity,

@@ -31,7 +31,6 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--for", dest="seconds", type=_args.positive, metavar="SECONDS", help="stop after this long")
     p.add_argument("--clock", choices=("wall", "device"), help="time readings on receipt or by the line's own time (default: the site profile's)")
     p.add_argument("--mqtt", metavar="URL", help="also publish to mqtt://HOST:PORT/PREFIX (or mqtts://); credentials from the site profile and the environment")
-    p.add_argument("-v", "--verbose", action="store_true", help="also say which SQLite the log is written with (always kept in the log; see inspect)")
     # for firewatch demo: stop, closing the session, when the process that started this one ends
     p.add_argument("--parent-pid", type=int, help=argparse.SUPPRESS)
 
@@ -82,8 +81,8 @@ def input_port(site: SiteProfile, port: str | None, clock: str | None) -> str:
 def run(args: argparse.Namespace) -> int:
     from pathlib import Path
 
-    from firewatch.store._common import LogError
     from firewatch.services.recorder import Recorder
+    from firewatch.store._common import LogError
 
     site, schedule = load_profiles(args.site, args.schedule)
     port = input_port(site, args.port, args.clock)
@@ -101,8 +100,7 @@ def run(args: argparse.Namespace) -> int:
             raise UsageError(f"--mqtt: {exc}") from None
         except ImportError:
             raise UsageError("--mqtt: publishing needs paho-mqtt: pip install 'firewatch[mqtt]'") from None
-    recorder = Recorder(port, site, schedule, log, clock=args.clock, duration_s=args.seconds, mqtt_url=args.mqtt,
-                        verbose=args.verbose)
+    recorder = Recorder(port, site, schedule, log, clock=args.clock, duration_s=args.seconds, mqtt_url=args.mqtt)
     if args.parent_pid:
         _stop_with_parent(recorder, args.parent_pid)
     try:

@@ -29,9 +29,9 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from firewatch.services.replay import alarm_summary, profiles_from_log, reevaluate
     from firewatch.settings._tomlcheck import ProfileError
     from firewatch.settings.profile import load_site
-    from firewatch.services.replay import alarm_summary, profiles_from_log, reevaluate
     from firewatch.settings.schedule import load_schedule
 
     reader = open_log(args.log)
@@ -76,7 +76,7 @@ def run(args: argparse.Namespace) -> int:
     from rich.table import Table
 
     console = Console()
-    span = duration_text(result.end_t - result.start_t) if result.start_t is not None else "-"
+    span = duration_text(result.end_t - result.start_t) if result.start_t is not None and result.end_t is not None else "-"
     console.print(f"re-evaluated {args.log}: {result.lines} lines ({result.malformed} malformed), {span}, site '{site.name}', "
                   f"schedule '{info['schedule']}'. The log was not changed; it recorded {original} alarm(s).")
     table = Table(title=f"{len(alarms)} alarm(s) on re-evaluation", title_justify="left")

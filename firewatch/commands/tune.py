@@ -186,7 +186,7 @@ def _apply(args: argparse.Namespace, result: Any, start: float | None, found: An
         parts.append(f"window transmission factor {ware.transmission:.3f} (95 % interval {interval_text(ware.transmission_ci95)})")
     if not values:
         return {}, not_written
-    when = dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds").replace("+00:00", "Z")
+    when = dt.datetime.now(dt.UTC).isoformat(timespec="seconds").replace("+00:00", "Z")
     comment = f"tuned by firewatch tune from {args.log} (firing from {iso(start)}) at {when}: " + "; ".join(parts)
     try:
         apply_tuning(args.apply, py.name, values, comment)

@@ -259,7 +259,7 @@ def build_document(record: FiringRecord, clock: Clock, units: Units, now: float 
         notes.add([clock.stamp(n.t), n.text, n.source])
     blocks.append(notes)
 
-    produced_t = now if now is not None else dt.datetime.now(dt.timezone.utc).timestamp()
+    produced_t = now if now is not None else dt.datetime.now(dt.UTC).timestamp()
     return Document(
         title="Firing record",
         subtitle=" · ".join(x for x in (r.site_name, r.kiln) if x),

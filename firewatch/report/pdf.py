@@ -258,7 +258,7 @@ def write_pdf(doc: Document, path: str | Path, paper: str = "a4") -> int:
         "Subject": f"Firing record; readings SHA-256 {r.digest}",
         "Keywords": f"sha256:{r.digest}",
         "Creator": doc.produced.split(" · ")[0],
-        "CreationDate": dt.datetime.now(dt.timezone.utc),
+        "CreationDate": dt.datetime.now(dt.UTC),
     }
     # Type 3 fonts (matplotlib's default) keep the text searchable and embed several times faster than Type 42
     with matplotlib.rc_context({"pdf.fonttype": 3, "pdf.compression": 6}), PdfPages(str(path), metadata=meta) as pdf:

@@ -96,7 +96,7 @@ def local_zone() -> tuple[dt.tzinfo, str]:
             return zoneinfo.ZoneInfo(name), name
         except (ValueError, zoneinfo.ZoneInfoNotFoundError):
             continue
-    here = dt.datetime.now().astimezone().tzinfo or dt.timezone.utc
+    here = dt.datetime.now().astimezone().tzinfo or dt.UTC
     return here, dt.datetime.now(here).tzname() or "local time"
 
 
@@ -117,12 +117,12 @@ class Clock:
     def for_site(cls, timezone: str, utc: bool = False) -> Clock:
         """The site's zone; UTC when ``utc``; the computer's when the site names none."""
         if utc:
-            return cls(dt.timezone.utc, "UTC", "utc")
+            return cls(dt.UTC, "UTC", "utc")
         if timezone:
             return cls(zoneinfo.ZoneInfo(timezone), timezone)
         zone, name = local_zone()
         if name in _UTC_NAMES:
-            return cls(dt.timezone.utc, "UTC", "computer")
+            return cls(dt.UTC, "UTC", "computer")
         return cls(zone, name, "computer")
 
     def local(self, t: float) -> dt.datetime:

@@ -10,9 +10,9 @@ and records the gap.
 from __future__ import annotations
 
 import json
+import logging
 import signal
 import sqlite3
-import sys
 import threading
 import time
 import traceback
@@ -20,23 +20,29 @@ from collections import deque
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
-from firewatch.store.actions import ActionFileError, ActionQueue, apply_action, mqtt_action
-from firewatch.store.outbox import Outbox
-from firewatch.store.writer import BriefWrite, LogWriter
 from firewatch.firing.pipeline import Batch, Pipeline
 from firewatch.settings.profile import SiteProfile
 from firewatch.settings.schedule import Schedule
+from firewatch.store.actions import ActionFileError, ActionQueue, apply_action, mqtt_action
+from firewatch.store.outbox import Outbox
+from firewatch.store.writer import BriefWrite, LogWriter
 from firewatch.transport.generic import ChannelMap, GenericParser
 from firewatch.transport.modbus import ModbusParser, plan_requests
 from firewatch.transport.modbus_poll import LinkSettings, ModbusPoller
 from firewatch.transport.native import NativeParser
 from firewatch.transport.ports import PortEvent, PortReader, PortSettings
 
+if TYPE_CHECKING:  # paho-mqtt is optional: imported only when publishing
+    from firewatch.services.mqtt import Publisher
+
 __all__ = ["Ingest", "LineQueue", "Overflow", "Recorder", "make_parser", "GAP_S", "SQLITE_WAL_FIX", "QUEUE_BYTES", "BATCH_LINES",
            "sqlite_note", "AlarmLog", "attach_alarms"]
+
+log = logging.getLogger(__name__)
 
 GAP_S = 5.0
 """A silence longer than this between readings is recorded as a gap, seconds (after a restart or a
@@ -301,9 +307,7 @@ class Recorder:
         duration_s: float | None = None,
         commit_interval_s: float = 0.5,
         clock_fn: Callable[[], float] = time.time,
-        out=sys.stderr,
         mqtt_url: str | None = None,
-        verbose: bool = False,
         queue_bytes: int = QUEUE_BYTES,
     ) -> None:
         self.url = url
@@ -314,14 +318,12 @@ class Recorder:
         self.duration_s = duration_s
         self.commit_interval_s = min(commit_interval_s, 1.0)
         self.clock_fn = clock_fn
-        self.out = out
         self.stop_event = threading.Event()
         self.stop_reason = "signal"
         """Why :meth:`stop` was called (a signal, unless a caller says otherwise)."""
         self.mqtt_url = mqtt_url
-        self.verbose = verbose
         self._unmarked: dict[int | None, str] = {}
-        self.publisher = None
+        self.publisher: Publisher | None = None
         self._handed = 0
         self.latencies: list[float] = []
         self._queue = LineQueue(queue_bytes)
@@ -330,13 +332,6 @@ class Recorder:
         self._gap_reason = "serial disconnect"
         self._failed_before = 0
         self._failed_written = -1
-
-    def _say(self, text: str) -> None:
-        try:
-            self.out.write(f"firewatch record: {text}\n")
-            self.out.flush()
-        except (OSError, ValueError):  # the terminal went away; keep recording
-            pass
 
     def stop(self, reason: str = "signal") -> None:
         """Stop recording, from a signal handler or another thread; ``reason`` ends the session."""
@@ -380,19 +375,18 @@ class Recorder:
             self.actions: ActionQueue | None = ActionQueue(self.log_path)
         except (ActionFileError, sqlite3.Error) as exc:
             self.actions = None
-            self._say(f"operator actions unavailable ({exc}); recording goes on")
+            log.warning(f"operator actions unavailable ({exc}); recording goes on")
         # the SQLite note is kept with the session (and shown by inspect), not printed at every start
         note = sqlite_note(sqlite3.sqlite_version)
         sqlite_text = f"SQLite {sqlite3.sqlite_version}" + (f" ({note})" if note else "")
         now = self.clock_fn()
         writer.event(ingest.timeline(now), "start", f"recording {self.url}; {sqlite_text}")
         writer.commit()
-        self._say(
+        log.info(
             f"recording {self.url} to {self.log_path} ({'continuing the firing' if writer.continuing else 'new firing'}). "
             "Stop with Ctrl-C or SIGTERM."
         )
-        if self.verbose:
-            self._say(sqlite_text)
+        log.debug(sqlite_text)
         reader = self._input_reader(writer)
         reader.start()
         started = time.monotonic()
@@ -422,7 +416,7 @@ class Recorder:
             )
             writer.event(ingest.timeline(self.clock_fn()), "stop", detail)
             writer.close(reason)
-            self._say(f"stopped: {detail}")
+            log.info(f"stopped: {detail}")
         return reason
 
     def _input_reader(self, writer: LogWriter) -> PortReader | ModbusPoller:
@@ -444,6 +438,8 @@ class Recorder:
 
     def _count_failed_polls(self, writer: LogWriter) -> None:
         """Keep the log's count of failed Modbus polls (shown by inspect) in the batch's transaction."""
+        if self.poller is None:
+            return
         n = self._failed_before + self.poller.failed_polls
         if n != self._failed_written:
             writer.execute("INSERT INTO meta(key, value) VALUES ('failed_polls', ?) ON CONFLICT(key) DO UPDATE SET value = excluded.value", (str(n),))
@@ -453,6 +449,8 @@ class Recorder:
         """Publish through the outbox: messages are written with the readings, sent by a thread."""
         from firewatch.services import mqtt
 
+        if self.mqtt_url is None:
+            return
         url = mqtt.parse_mqtt_url(self.mqtt_url)
         kiln = mqtt.kiln_id_for(self.site)
         self.outbox = outbox = Outbox(writer)
@@ -474,11 +472,13 @@ class Recorder:
         engine.sink = on_transition
         ingest.hooks.append(on_batch)
         self.publisher = mqtt.Publisher(url, kiln, self.site)
-        self._say(f"publishing to {'mqtts' if url.tls else 'mqtt'}://{url.host}:{url.port}/{url.prefix}/{kiln}/ (store and forward)")
+        log.info(f"publishing to {'mqtts' if url.tls else 'mqtt'}://{url.host}:{url.port}/{url.prefix}/{kiln}/ (store and forward)")
 
     def _mqtt_cycle(self, writer: LogWriter, now: float) -> None:
         """Hand new outbox rows to the publisher, mark what the broker acknowledged, apply plant actions."""
         pub = self.publisher
+        if pub is None:
+            return
         acked = pub.acked()
         if acked:
             self.outbox.mark_sent(acked, self.clock_fn())
@@ -499,7 +499,7 @@ class Recorder:
         try:
             pending = self.actions.pending()
         except sqlite3.Error as exc:
-            self._say(f"cannot read operator actions: {exc}")
+            log.warning(f"cannot read operator actions: {exc}")
             return
         for action in pending:
             if action.id in self._unmarked:
@@ -512,7 +512,7 @@ class Recorder:
                 self._unmarked.pop(action.id, None)
             except sqlite3.Error as exc:  # a busy side file must not end the recorder, nor apply twice
                 self._unmarked[action.id] = result
-                self._say(f"cannot mark operator action {action.id} applied ({exc}); retrying")
+                log.warning(f"cannot mark operator action {action.id} applied ({exc}); retrying")
 
     def _cycle(self, writer: LogWriter, ingest: Ingest) -> None:
         lines: list[tuple[float, bytes]] = []
@@ -531,13 +531,15 @@ class Recorder:
                 writer.event(ingest.timeline(item.t), item.kind, item.detail)
                 if item.kind == "disconnect":
                     ingest.pending_reason = self._gap_reason
-                    self._say(f"lost the port: {item.detail}; reconnecting")
+                    log.warning(f"lost the port: {item.detail}; reconnecting")
                 elif item.kind == "reconnect":
-                    self._say(f"reconnected to {self.url}")
+                    log.info(f"reconnected to {self.url}")
                 elif item.kind == "open-failed":
-                    self._say(item.detail + "; retrying")
-                elif item.kind in ("poll-failed", "poll-ok"):
-                    self._say(item.detail)
+                    log.warning(item.detail + "; retrying")
+                elif item.kind == "poll-failed":
+                    log.warning(item.detail)
+                elif item.kind == "poll-ok":
+                    log.info(item.detail)
             else:
                 lines.append(item)
         if lines:
@@ -569,7 +571,7 @@ class Recorder:
         writer.event(ingest.timeline(overflow.first), "overflow", detail)
         if time.monotonic() - self._overflow_said >= 60.0:
             self._overflow_said = time.monotonic()
-            self._say(f"{detail}; {ingest.dropped} dropped so far")
+            log.warning(f"{detail}; {ingest.dropped} dropped so far")
 
 
 class AlarmLog:

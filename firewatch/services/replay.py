@@ -14,11 +14,11 @@ from typing import Any
 import numpy as np
 
 from firewatch.firing.alarms import AlarmEngine, Transition
-from firewatch.store.reader import LogReader
 from firewatch.firing.pipeline import Pipeline
-from firewatch.settings.profile import SiteProfile, load_site
 from firewatch.services.recorder import GAP_S, make_parser
+from firewatch.settings.profile import SiteProfile, load_site
 from firewatch.settings.schedule import Schedule, load_schedule
+from firewatch.store.reader import LogReader
 
 __all__ = ["Reevaluation", "reevaluate", "profiles_from_log"]
 

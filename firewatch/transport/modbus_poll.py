@@ -106,6 +106,7 @@ class ModbusLink:
         from pymodbus.framer import FramerType
 
         s = self.settings
+        client: ModbusTcpClient | ModbusSerialClient
         if s.protocol == "tcp":
             host, port = parse_host_port(s.target)
             client = ModbusTcpClient(host, port=port, timeout=s.timeout_s, retries=s.retries)

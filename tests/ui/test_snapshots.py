@@ -21,7 +21,7 @@ def _ready(app) -> bool:
     return (
         panel.moment is not None
         and panel.moment.t == screen.cursor
-        and getattr(alarms, "_rows", None) is not None
+        and alarms.is_mounted
         and screen.chart_cursor == screen.cursor
     )
 
