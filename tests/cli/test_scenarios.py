@@ -70,7 +70,7 @@ def test_bad_scenario_one_line_exit_2(capsys, argv: list[str], fragment: str) ->
 def test_demo_records_the_chosen_scenario(tmp_path: Path) -> None:
     # the demo's simulator and recorder (real processes, TCP on 127.0.0.1) both follow the open-port scenario
     log = tmp_path / "demo.db"
-    sim, rec = demo.start_demo(log, 600.0, [], "open-port")
+    sim, rec = demo.start_demo(log, 600.0, [], scenario="open-port")
     try:
         def recorded_site() -> str | None:
             try:
