@@ -142,7 +142,10 @@ class KilnImage:
             size[key] = max(size.get(key, 0), s.register + (2 if s.type in ("int32", "uint32", "float32") else 1))
         self.tables: dict[tuple[int, str], list[int]] = {key: [0] * n for key, n in size.items()}
         self.used: dict[tuple[int, str], list[tuple[int, int]]] = {
-            (1, "input"): [(0, max([s.register + (2 if s.type == "int32" else 1) for s in self.slots if s.unit_id == 1] or [0])), (CLOCK_REGISTER, CLOCK_REGISTER + 2)],
+            (1, "input"): [
+                (0, max([s.register + (2 if s.type == "int32" else 1) for s in self.slots if s.unit_id == 1] or [0])),
+                (CLOCK_REGISTER, CLOCK_REGISTER + 2),
+            ],
             (2, "holding"): [(0, size[(2, "holding")])],
         }
         self.state = "ok"

@@ -106,9 +106,9 @@ def run(args: argparse.Namespace) -> int:
     modbus = args.modbus_rtu or args.modbus_tcp is not None
     if modbus:
         try:
-            import pymodbus  # noqa: F401
+            import pymodbus  # noqa: F401 (availability check: imported only to see that the extra is installed)
         except ImportError:
-            raise UsageError("--modbus-" + ("rtu" if args.modbus_rtu else "tcp") + ": needs pymodbus: pip install \".[modbus]\"") from None
+            raise UsageError("--modbus-" + ("rtu" if args.modbus_rtu else "tcp") + ": needs pymodbus: pip install 'firewatch-kiln[modbus]'") from None
     streaming = args.to_log is None
     try:
         sim = Simulation(scenario, endless=streaming and args.minutes is None)

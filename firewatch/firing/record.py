@@ -464,7 +464,7 @@ def _r(x: float | None, digits: int) -> float | None:
 def _iso(t: float | None) -> str | None:
     if t is None or not math.isfinite(t):
         return None
-    return dt.datetime.fromtimestamp(t, dt.timezone.utc).isoformat(timespec="seconds").replace("+00:00", "Z")
+    return dt.datetime.fromtimestamp(t, dt.UTC).isoformat(timespec="seconds").replace("+00:00", "Z")
 
 
 # -- pieces (each usable on its own) -------------------------------------------------------

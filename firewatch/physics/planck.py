@@ -20,7 +20,7 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from firewatch.physics.constants import C, C1L, C2, K_B, SIGMA
+from firewatch.physics.constants import C1L, C2, K_B, SIGMA, C
 
 __all__ = [
     "check_wavelength",

@@ -275,7 +275,7 @@ class Window:
         return per_band[key]
 
 
-_THROUGH: "weakref.WeakKeyDictionary[Band, dict[tuple, Band]]" = weakref.WeakKeyDictionary()
+_THROUGH: weakref.WeakKeyDictionary[Band, dict[tuple, Band]] = weakref.WeakKeyDictionary()
 
 
 def band_effective_transmission(band: Band, window: Window, temperature_k: ArrayLike) -> NDArray[np.float64]:

@@ -56,7 +56,8 @@ def draw_chart(ax: Axes, chart: ChartData, clock: Clock, units: Units, font_pt: 
                    linewidth=0.4, zorder=1, label="gap in the record" if first_gap else None)
         first_gap = False
     if chart.plan_t.size:
-        ax.plot(_days(chart.plan_t), conv(chart.plan_c), color="#7f7f7f", linestyle=(0, (5, 3)), linewidth=1.0, label="plan (the schedule from the start)", zorder=2)
+        ax.plot(_days(chart.plan_t), conv(chart.plan_c), color="#7f7f7f", linestyle=(0, (5, 3)), linewidth=1.0,
+                label="plan (the schedule from the start)", zorder=2)
     for i, tr in enumerate(chart.traces):
         style = _STYLES[i % len(_STYLES)]
         # the reference (first) is drawn on top: the pyrometers should agree with it and would hide it

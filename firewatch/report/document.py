@@ -194,9 +194,11 @@ def build_document(record: FiringRecord, clock: Clock, units: Units, now: float 
         by = {}
         for a in r.alarms:
             by[a.priority] = by.get(a.priority, 0) + 1
-        words = ", ".join(f"{n} {p}" for p, n in sorted(by.items(), key=lambda x: ("high", "medium", "low").index(x[0]) if x[0] in ("high", "medium", "low") else 3))
+        order = ("high", "medium", "low")
+        words = ", ".join(f"{n} {p}" for p, n in sorted(by.items(), key=lambda x: order.index(x[0]) if x[0] in order else len(order)))
         open_now = [a for a in r.alarms if a.state != "normal"]
-        summary.add(["Alarms", "none" if not r.alarms else f"{len(r.alarms)} ({words})" + (f"; {len(open_now)} not back to normal at the end" if open_now else ""), "", ""])
+        still = f"; {len(open_now)} not back to normal at the end" if open_now else ""
+        summary.add(["Alarms", "none" if not r.alarms else f"{len(r.alarms)} ({words}){still}", "", ""])
         summary.add(["Operator notes", str(len(r.notes)) if r.notes else "none", "", ""])
     blocks.append(summary)
 
@@ -238,7 +240,8 @@ def build_document(record: FiringRecord, clock: Clock, units: Units, now: float 
 
     # -- alarms and their lifecycle ------------------------------------------------------------
     alarms = Table("Alarms and what was done about them", [("#", 0.05, "r"), ("time", 0.16, "l"), ("state", 0.26, "l"), ("detail", 0.53, "l")],
-                   empty="none raised", note="States follow ISA-18.2. Shelving hides an alarm for a time, with a reason; it returns if its condition still holds.")
+                   empty="none raised",
+                   note="States follow ISA-18.2. Shelving hides an alarm for a time, with a reason; it returns if its condition still holds.")
     for a in r.alarms:
         cause = "" if not a.cause else (f", likely cause {a.cause}" if a.kind == "divergence" else f" ({a.cause})")
         what = f"{PRIORITY_WORDS.get(a.priority, a.priority)} {a.kind}" + (f" {a.channel}" if a.channel else "") + cause

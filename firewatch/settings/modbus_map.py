@@ -206,7 +206,8 @@ def read_modbus_input(
             reader.problem(tpath + ("type",), "the device's clock needs int32 or uint32 (UTC seconds); 16 bits overflow and float32 rounds to minutes")
             device_time = None
     if inp.get("clock") == "device" and "device_time" not in inp:
-        reader.problem(path + ("clock",), "clock = \"device\" needs [input.device_time], the register holding the device's clock: a poll carries no time of its own")
+        reader.problem(path + ("clock",), "clock = \"device\" needs [input.device_time], the register holding the device's clock: "
+                       "a poll carries no time of its own")
     _check_layout(reader, maps + ([(device_time, path + ("device_time",))] if device_time is not None else []))
     _check_channels(reader, maps, set(channels), thermocouples, pyrometers, cold_junctions)
     return ModbusInput(
@@ -224,7 +225,8 @@ def _check_channels(reader: TomlReader, maps: list[tuple[RegisterMap, tuple]], g
         if m.channel in tcs:
             want = tcs[m.channel].unit
             if want == "mV" and m.unit != "mV":
-                reader.problem(path + ("unit",), f"unit {m.unit!r} disagrees with [[thermocouple]] {m.channel}'s unit 'mV' (EMF); the map's unit is what the register holds")
+                reader.problem(path + ("unit",), f"unit {m.unit!r} disagrees with [[thermocouple]] {m.channel}'s unit 'mV' (EMF); "
+                               "the map's unit is what the register holds")
             elif want == "C" and m.unit == "mV":
                 reader.problem(path + ("unit",), f"unit 'mV' disagrees with [[thermocouple]] {m.channel}'s unit 'C'; the map's unit is what the register holds")
         elif m.channel in pys or m.channel in cjs:

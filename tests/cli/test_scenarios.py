@@ -14,7 +14,6 @@ from firewatch.services.replay import profiles_from_log
 from firewatch.settings.profile import profiles_dir
 from firewatch.simulator.scenario import BUILT_IN, load_scenario
 from firewatch.store.reader import LogReader
-
 from tests.e2e.helpers import ROOT, env, wait_for
 
 

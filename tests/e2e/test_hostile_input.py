@@ -20,7 +20,6 @@ from firewatch.settings.schedule import load_schedule
 from firewatch.store._common import LogError
 from firewatch.store.reader import LogReader
 from firewatch.transport.native import crc16
-
 from tests.e2e.helpers import firewatch, stop, wait_for
 
 T0 = 1_773_464_400.0

@@ -13,11 +13,10 @@ from pathlib import Path
 
 import pytest
 
-from firewatch.store.reader import LogReader
 from firewatch.settings.profile import profiles_dir
-
-from tests.ui.helpers import settle
+from firewatch.store.reader import LogReader
 from tests.e2e.helpers import firewatch, free_port, start_sim_tcp, stop, wait_for
+from tests.ui.helpers import settle
 
 MOSQUITTO = shutil.which("mosquitto") or ("/usr/sbin/mosquitto" if Path("/usr/sbin/mosquitto").exists() else None)
 pytestmark = pytest.mark.skipif(MOSQUITTO is None, reason="mosquitto is installed by .ci/run")
