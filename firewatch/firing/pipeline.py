@@ -136,7 +136,7 @@ def to_columns(items: list[ReadingSet | Malformed], channels: tuple[str, ...], c
     wanted = set(channels)
     sets: list[ReadingSet] = []
     for item in items:
-        if type(item) is Malformed:
+        if isinstance(item, Malformed):
             raw.append((item.received, item.raw, False, item.reason))
             continue
         received, device_time = item.received, item.device_time
@@ -428,6 +428,8 @@ class Pipeline:
             for py in site.pyrometers:
                 self._pyrometer(py, times, batch)
         if self.progress is not None:
+            # a tracker is made only for a site with a control thermocouple (__init__)
+            assert site.control is not None
             ctl = site.control.name
             plan = self.progress.update(times, out_v[ctl], out_v[f"{ctl}.rate"])
             for name, values in plan.items():

@@ -65,7 +65,7 @@ class LogReader:
     def __exit__(self, *exc: object) -> None:
         self.close()
 
-    def query(self, sql: str, params: Iterable[Any] = ()) -> list[tuple]:
+    def query(self, sql: str, params: Iterable[Any] = ()) -> list[tuple[Any, ...]]:
         """Rows of one statement; a SQLite failure becomes a :class:`LogError` naming the file
         (:class:`LogDamaged` when SQLite finds the file damaged)."""
         try:
