@@ -84,8 +84,8 @@ def run(args: argparse.Namespace) -> int:
 
     if args.list_scenarios:
         return list_scenarios()
-    if not (args.tcp or args.pty or args.stdout or args.to_log):
-        raise UsageError("one of --tcp, --pty, --stdout or --to-log is required (or --list-scenarios)")
+    if not (args.tcp or args.pty or args.stdout or args.to_log or args.modbus_tcp is not None):
+        raise UsageError("one of --tcp, --pty, --stdout, --to-log or --modbus-tcp is required (or --list-scenarios)")
 
     try:
         scenario = load_scenario(args.scenario)
