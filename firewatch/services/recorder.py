@@ -22,7 +22,7 @@ from pathlib import Path
 import numpy as np
 
 from firewatch.store.outbox import Outbox
-from firewatch.store.writer import LogWriter
+from firewatch.store.writer import HOLD_LINES, LogWriter
 from firewatch.firing.pipeline import Batch, Pipeline
 from firewatch.settings.profile import SiteProfile
 from firewatch.settings.schedule import Schedule
@@ -31,7 +31,7 @@ from firewatch.transport.native import NativeParser
 from firewatch.transport.ports import PortEvent, PortReader, PortSettings
 from firewatch.transport.records import Malformed, ReadingSet
 
-__all__ = ["Ingest", "Recorder", "make_parser", "GAP_S", "SQLITE_WAL_FIX"]
+__all__ = ["Ingest", "Recorder", "make_parser", "GAP_S", "SQLITE_WAL_FIX", "COMMIT_LINES"]
 
 GAP_S = 5.0
 """A silence longer than this between readings is recorded as a gap, seconds (after a restart or a
@@ -39,6 +39,10 @@ disconnect the gap is recorded whatever its length)."""
 
 SQLITE_WAL_FIX = (3, 51, 3)
 """First SQLite release without the WAL-reset bug (SQLite's documentation: 3.7.0 to 3.51.2)."""
+
+COMMIT_LINES = 2000
+"""The most lines one transaction holds: a flood is written as many short transactions, none of which
+the WAL must hold whole (at 100 lines a second a cycle has 50)."""
 
 
 def make_parser(site: SiteProfile) -> NativeParser | GenericParser:
@@ -129,6 +133,9 @@ class Recorder:
         Stop after this many seconds of wall-clock time.
     commit_interval_s : float
         How often to commit (at most 1 s: the durability promise).
+    hold_lines : int
+        The bound on readings held in memory while the log cannot be written (see
+        :mod:`firewatch.store.writer`).
     """
 
     def __init__(
@@ -143,8 +150,10 @@ class Recorder:
         clock_fn: Callable[[], float] = time.time,
         out=sys.stderr,
         mqtt_url: str | None = None,
+        hold_lines: int = HOLD_LINES,
     ) -> None:
         self.url = url
+        self.hold_lines = hold_lines
         self.site = site
         self.schedule = schedule
         self.log_path = Path(log_path)
@@ -185,6 +194,7 @@ class Recorder:
             clock=self.clock,
             port=self.url,
             clock_fn=self.clock_fn,
+            hold_lines=self.hold_lines,
         )
         if install_signals:
             signal.signal(signal.SIGTERM, self._handle_signal)
@@ -210,7 +220,7 @@ class Recorder:
         note = "" if version >= SQLITE_WAL_FIX else " (older than 3.51.3, which fixed a WAL-reset bug; firewatch keeps to one writing connection)"
         now = self.clock_fn()
         writer.event(ingest.timeline(now), "start", f"recording {self.url}; SQLite {sqlite3.sqlite_version}{note}")
-        writer.commit()
+        self._commit(writer, ingest.timeline(now))
         self._say(
             f"recording {self.url} to {self.log_path} ({'continuing the firing' if writer.continuing else 'new firing'}); "
             f"SQLite {sqlite3.sqlite_version}{note}. Stop with Ctrl-C or SIGTERM."
@@ -241,14 +251,16 @@ class Recorder:
             if self.publisher is not None:
                 self.publisher.close()
                 self._mqtt_cycle(writer, ingest.timeline(self.clock_fn()))
-                writer.commit()
+                self._commit(writer, ingest.timeline(self.clock_fn()))
             lat = np.array(self.latencies) if self.latencies else np.zeros(1)
             detail = (
                 f"{reason}; {ingest.lines} lines, {ingest.malformed} malformed; commit latency "
                 f"p50 {np.percentile(lat, 50):.3f} s, p99 {np.percentile(lat, 99):.3f} s"
             )
             writer.event(ingest.timeline(self.clock_fn()), "stop", detail)
-            writer.close(reason)
+            # on a log that cannot be written, close still ends the session with its reason (the writer's reserve)
+            for text in writer.close(reason, ingest.timeline(self.clock_fn())):
+                self._say(text)
             self._say(f"stopped: {detail}")
         return reason
 
@@ -265,8 +277,7 @@ class Recorder:
             outbox.enqueue(messages, ingest.timeline(self.clock_fn()))
 
         def on_batch(batch: Batch) -> None:
-            first = writer.execute("SELECT coalesce(max(id), 0) + 1 FROM sample").fetchone()[0]
-            enqueue(mqtt.batch_messages(url, kiln, batch, engine, int(first), self.site))
+            enqueue(mqtt.batch_messages(url, kiln, batch, engine, writer.next_sample_id, self.site))
 
         log_sink = engine.sink
 
@@ -334,6 +345,18 @@ class Recorder:
             writer.event(now, "action", f"{action.kind} from {action.source}: {result}")
             self.actions.mark_applied(action.id, result)
 
+    def _commit(self, writer: LogWriter, now: float) -> None:
+        """Commit; say once on stderr when the log cannot be written, and when it can again."""
+        for text in writer.commit(now):
+            self._say(text)
+
+    def _feed(self, writer: LogWriter, ingest: Ingest, lines: list[tuple[float, bytes]]) -> None:
+        """Feed lines at most COMMIT_LINES to a transaction, so that a flood never makes one the WAL must hold whole."""
+        for i in range(0, len(lines), COMMIT_LINES):
+            if i:
+                self._commit(writer, ingest.timeline(self.clock_fn()))
+            ingest.feed(lines[i : i + COMMIT_LINES])
+
     def _cycle(self, writer: LogWriter, ingest: Ingest) -> None:
         lines: list[tuple[float, bytes]] = []
         while True:
@@ -343,7 +366,7 @@ class Recorder:
                 break
             if isinstance(item, PortEvent):
                 if lines:  # keep order: lines before an event are written first
-                    ingest.feed(lines)
+                    self._feed(writer, ingest, lines)
                     lines = []
                 writer.event(ingest.timeline(item.t), item.kind, item.detail)
                 if item.kind == "disconnect":
@@ -356,13 +379,14 @@ class Recorder:
             else:
                 lines.append(item)
         if lines:
-            ingest.feed(lines)
+            self._feed(writer, ingest, lines)
         now = ingest.timeline(self.clock_fn())
         self.engine.tick(now)
-        self._apply_actions(writer, now)
+        if writer.outage is None:  # while the log cannot be written, actions wait in their file
+            self._apply_actions(writer, now)
         if self.publisher is not None:
             self._mqtt_cycle(writer, now)
-        writer.commit()
+        self._commit(writer, now)
         done = self.clock_fn()
         if lines and len(self.latencies) < 2_000_000:
             self.latencies.extend(done - received for received, _ in lines)

@@ -10,7 +10,9 @@ the file read-only and keep their transactions short.
 
 Durability: the recorder commits at least once a second with
 ``synchronous=FULL``, so a crash or power cut loses at most what was not yet
-committed; SQLite's WAL keeps the file intact through SIGKILL.
+committed; SQLite's WAL keeps the file intact through SIGKILL. When the log
+cannot be written (a full disk), the writer holds what it has not committed
+in memory and retries (see :mod:`firewatch.store.writer`).
 """
 
 from __future__ import annotations
@@ -19,7 +21,7 @@ import sqlite3
 from importlib import resources
 from pathlib import Path
 
-__all__ = ["SCHEMA_VERSION", "LogError", "LogLocked", "schema_sql"]
+__all__ = ["SCHEMA_VERSION", "LogError", "LogLocked", "LogWriteError", "schema_sql"]
 
 SCHEMA_VERSION = 1
 """The schema this firewatch writes and the newest it reads."""
@@ -36,6 +38,10 @@ class LogError(Exception):
 
 class LogLocked(LogError):
     """Another recorder is writing this log."""
+
+
+class LogWriteError(LogError):
+    """The log cannot be written: a full disk, a file-size limit, an I/O error (the message says which)."""
 
 
 def _connect(path: Path, read_only: bool) -> sqlite3.Connection:
