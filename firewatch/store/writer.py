@@ -245,6 +245,9 @@ class LogWriter:
         self._durable = durable
         self._reserve = Path(f"{self.path}.reserve")
         self._reserve_held = False
+        # under a file-size limit (ulimit -f) checkpoint sooner, so that the WAL never meets it before the log does
+        fsize = resource.getrlimit(resource.RLIMIT_FSIZE)[0]
+        self._wal_checkpoint_bytes = WAL_CHECKPOINT_BYTES if fsize == resource.RLIM_INFINITY else min(WAL_CHECKPOINT_BYTES, fsize // 2)
         if self.path.parent and not self.path.parent.exists():
             raise LogError(f"{self.path}: directory {self.path.parent} does not exist")
         self._lock_fd = os.open(f"{self.path}.lock", os.O_RDWR | os.O_CREAT, 0o644)
@@ -516,10 +519,9 @@ class LogWriter:
         while self._held_units > limit:
             index = next((i for i, op in enumerate(held) if op.bulk), None)
             if index is None:
-                if not everything and limit > 0:
-                    index = next((i for i, op in enumerate(held) if isinstance(op, _Statement)), None)
-                else:
-                    index = next((i for i, op in enumerate(held) if not isinstance(op, _Dropped)), None)
+                if not everything and limit == 0:
+                    return  # readings only: the events stay
+                index = next((i for i, op in enumerate(held) if not isinstance(op, _Dropped)), None)
                 if index is None:
                     return
             op = held[index]
@@ -565,7 +567,9 @@ class LogWriter:
     def _catch_up(self, budget_s: float | None) -> None:
         """Re-apply held writes in fresh transactions, oldest first; back to normal when none are left."""
         started = self._mono()
-        self._checkpoint(force=True)  # a WAL at a file-size limit shrinks only this way
+        # a WAL at a file-size limit shrinks only this way; on a full disk a checkpoint would spend the room
+        # the held writes need (it grows the log before it can truncate the WAL), so only past the threshold
+        self._checkpoint()
         held = self._held
         while held:
             n = units = 0
@@ -815,7 +819,7 @@ class LogWriter:
                 size = os.stat(f"{self.path}-wal").st_size
             except OSError:
                 return
-            if size < WAL_CHECKPOINT_BYTES or self._mono() < self._next_checkpoint:
+            if size < self._wal_checkpoint_bytes or self._mono() < self._next_checkpoint:
                 return
         try:
             self.con.execute(f"PRAGMA busy_timeout={CHECKPOINT_BUSY_MS}")
