@@ -67,8 +67,9 @@ HOLD_LINE_BYTES = 256
 """A held line counts once per this many bytes of its text (garbage floods count for their size); any other
 held record (an event, an alarm transition, an MQTT message) counts like a line of its size."""
 
-HOLD_OVERHEAD_BYTES = 350
-"""Python's memory per held line besides its text and values (tuples, floats; measured with tracemalloc)."""
+HOLD_OVERHEAD_BYTES = 500
+"""Python's memory per held line besides its text and values (tuples, floats). Measured with tracemalloc on
+the demo kiln: 943 bytes a held line of 87 bytes with 21 channels, which this estimate (945) covers."""
 
 RETRY_S = 2.0
 """How often a writer that cannot write tries again, seconds."""
@@ -118,13 +119,21 @@ def _bytes_text(n: float) -> str:
 
 
 def _span(seconds: float) -> str:
-    """A duration with its units: "42 s", "12 min 46 s", "2 h 49 min"."""
+    """A duration with its units.
+
+    Examples
+    --------
+    >>> _span(42), _span(766), _span(600), _span(10140)
+    ('42 s', '12 min 46 s', '10 min', '2 h 49 min')
+    """
     s = int(round(max(seconds, 0.0)))
     h, rem = divmod(s, 3600)
     m, sec = divmod(rem, 60)
     if h:
         return f"{h} h {m} min"
-    return f"{m} min {sec} s" if m else f"{sec} s"
+    if m:
+        return f"{m} min {sec} s" if sec else f"{m} min"
+    return f"{sec} s"
 
 
 def _units(params: Iterable[Any]) -> int:
@@ -639,9 +648,11 @@ class LogWriter:
             if "failing" not in outage.told:
                 outage.told.add("failing")
                 limit = self.hold_lines or 0
+                channels = len(self._channel_ids)
                 text = (
                     f"cannot write to {self.path}: {outage.error}; holding readings in memory "
-                    f"(up to {limit:,} lines, {_span(limit / HOLD_RATE_HZ)} at {HOLD_RATE_HZ:g} lines/s) and retrying every {RETRY_S:g} s"
+                    f"(up to {limit:,} lines: {_span(limit / HOLD_RATE_HZ)} at {HOLD_RATE_HZ:g} lines/s, "
+                    f"about {_bytes_text(hold_memory_bytes(channels, limit))} for {channels} channels) and retrying every {RETRY_S:g} s"
                 )
                 told.append(text)
                 self.event(t, "write-error", text)
@@ -794,8 +805,8 @@ class LogWriter:
             os.close(fd)
             os.unlink(self._reserve)
             raise LogWriteError(
-                f"{self.path}: cannot write: {self._describe(exc)} (the recorder keeps {_bytes_text(RESERVE_BYTES)} aside "
-                "to close the firing if the disk fills)"
+                f"{self.path}: cannot write: {self._describe(exc)}; the recorder keeps {_bytes_text(RESERVE_BYTES)} aside "
+                "to close the firing if the disk fills"
             ) from None
         os.close(fd)
         self._reserve_held = True
