@@ -766,6 +766,7 @@ class LogWriter:
         closing = _Statement("UPDATE session SET ended_utc = ?, end_reason = ? WHERE id = ?", (self._clock(), reason, self.session_id), None, 1, False)
         if self._open_tx:
             self._run(closing)
+        if self._open_tx:
             try:
                 self.con.execute("COMMIT")
                 return told
