@@ -584,12 +584,15 @@ class LogWriter:
             n = units = 0
             last_t = None
             written = 0
+            applying = False
             try:
                 if self.con.in_transaction:
                     self.con.execute("ROLLBACK")
                 self.con.execute("BEGIN")
                 for i, op in enumerate(held):
+                    applying = True
                     self._apply(op, i)
+                    applying = False
                     n += 1
                     units += op.units
                     if isinstance(op, _BatchOp):
@@ -598,9 +601,9 @@ class LogWriter:
                     if units >= self._chunk:
                         break
                 self.con.execute("COMMIT")
-            except sqlite3.Error as exc:
-                if not _cannot_write(exc) and n < len(held):
-                    # a held statement that can never be written (not the disk's fault): drop it, go on
+            except Exception as exc:  # noqa: BLE001 - a held write must never end the recorder
+                if not _cannot_write(exc) and applying:
+                    # a held write that can never be written (not the disk's fault): drop it, go on
                     self._rollback_quietly()
                     bad = held[n]
                     del held[n]
@@ -608,6 +611,8 @@ class LogWriter:
                     if self.outage is not None:
                         self.outage.dropped_other += 1
                     continue
+                if not isinstance(exc, sqlite3.Error):
+                    raise
                 self._fail(exc)
                 return
             for _ in range(n):
@@ -670,13 +675,12 @@ class LogWriter:
     @staticmethod
     def _outcome(outage: Outage) -> str:
         text = f"{outage.held_written:,} lines held in memory written"
-        if outage.dropped_lines or outage.dropped_other:
-            text += f"; {outage.dropped_lines:,} lines dropped, oldest first, recorded as a gap"
-            if outage.dropped_other:
-                text += f" (and {outage.dropped_other:,} other records)"
-        else:
-            text += ", none lost"
-        return text
+        lost = []
+        if outage.dropped_lines:
+            lost.append(f"{outage.dropped_lines:,} lines dropped, oldest first, recorded as a gap")
+        if outage.dropped_other:
+            lost.append(f"{outage.dropped_other:,} other records dropped")
+        return text + ("; " + ", ".join(lost) if lost else ", none lost")
 
     def commit(self, t: float | None = None) -> list[str]:
         """Commit what is held; while the log cannot be written, retry every :data:`RETRY_S`.

@@ -194,6 +194,24 @@ def test_stop_while_full_still_closes_the_session(tmp_path: Path, lines) -> None
     assert rows(log, "PRAGMA integrity_check") == [("ok",)]
 
 
+def test_a_held_write_that_can_never_succeed_does_not_block_the_rest(tmp_path: Path, lines) -> None:
+    """Issue 10 (the recorder never dies): a held statement that fails for its own reason is dropped, not retried forever."""
+    clock = Clock()
+    log = tmp_path / "k.db"
+    writer, ingest = open_log(log, clock)
+    feed(writer, ingest, clock, lines[:50])
+    fill(writer)
+    feed(writer, ingest, clock, lines[50:100])
+    writer.execute("INSERT INTO no_such_table VALUES (1)")  # held while the log cannot be written
+    feed(writer, ingest, clock, lines[100:150])
+    free(writer)
+    clock.t += RETRY_S
+    told = feed(writer, ingest, clock, lines[150:200])
+    assert len(told) == 1 and told[0].endswith("lines held in memory written; 1 other records dropped"), told
+    writer.close()
+    assert rows(log, "SELECT count(*) FROM sample") == [(200,)]
+
+
 def test_batch_writer_raises_one_clear_error(tmp_path: Path, lines) -> None:
     """``sim --to-log`` holds nothing: a full log is a LogWriteError naming the file."""
     from firewatch.store._common import LogWriteError
