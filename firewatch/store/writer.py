@@ -318,8 +318,8 @@ class LogWriter:
             row = self.con.execute("SELECT max(t) FROM sample").fetchone()
             self.last_t = row[0]
         # ids are counted here rather than read back, so that held batches keep theirs
-        self._next_raw = self.con.execute("SELECT coalesce(max(id), 0) + 1 FROM raw_line").fetchone()[0]
-        self._next_sample = self.con.execute("SELECT coalesce(max(id), 0) + 1 FROM sample").fetchone()[0]
+        self._next_raw: int = self.con.execute("SELECT coalesce(max(id), 0) + 1 FROM raw_line").fetchone()[0]
+        self._next_sample: int = self.con.execute("SELECT coalesce(max(id), 0) + 1 FROM sample").fetchone()[0]
         self._durable_t = self.last_t
         self._held: deque[_Statement | _BatchOp | _Dropped] = deque()
         self._held_units = 0
@@ -356,7 +356,7 @@ class LogWriter:
     @property
     def next_sample_id(self) -> int:
         """The id the next written sample gets (MQTT messages name their samples before they are written)."""
-        return int(self._next_sample)
+        return self._next_sample
 
     # -- writing --------------------------------------------------------------------
     def write(self, batch: Batch) -> None:
@@ -601,7 +601,7 @@ class LogWriter:
                     if units >= self._chunk:
                         break
                 self.con.execute("COMMIT")
-            except Exception as exc:  # noqa: BLE001 - a held write must never end the recorder
+            except Exception as exc:  # a held write must never end the recorder
                 if not _cannot_write(exc) and applying:
                     # a held write that can never be written (not the disk's fault): drop it, go on
                     self._rollback_quietly()
