@@ -77,9 +77,9 @@ def small_fs(tmp_path: Path):
 
 
 def fill(directory: Path) -> Path:
-    """A filler file that takes every free byte of the filesystem."""
+    """A filler file that takes every free byte of the filesystem (called again, it takes what was freed since)."""
     filler = directory / "filler"
-    fd = os.open(filler, os.O_WRONLY | os.O_CREAT, 0o600)
+    fd = os.open(filler, os.O_WRONLY | os.O_CREAT | os.O_APPEND, 0o600)
     try:
         for size in (1 << 20, 1 << 16, 1 << 12, 1):
             block = b"\0" * size
@@ -134,6 +134,7 @@ def test_full_disk_then_space_comes_back_loses_nothing(small_fs: Path) -> None:
         wait_for(lambda: samples(log) > 100)
         filler = fill(small_fs)
         wait_for(lambda: err.has("cannot write"), timeout=30)
+        fill(small_fs)  # whatever a checkpoint freed meanwhile
         before = samples(log)
         time.sleep(4.0)  # readings keep arriving while the disk is full
         assert rec.poll() is None
