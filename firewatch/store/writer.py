@@ -466,7 +466,7 @@ class LogWriter:
         return self.con.execute(op.sql, op.params)
 
     def _run(self, op: _Statement | _BatchOp) -> sqlite3.Cursor | None:
-        """Apply a write in the open transaction and hold it until committed; only hold it while the log cannot be written."""
+        """Apply a write in the open transaction and hold it until committed; while the log cannot be written, only hold it."""
         if self.hold_lines is None:  # a batch run: the caller hears of write errors
             try:
                 return self._apply(op)
