@@ -220,18 +220,17 @@ class Ingest:
 
     def _guarded(self, lines: list[tuple[float, bytes]], compute: Callable[[], Batch]) -> Batch:
         held = self.pipeline.held_raw()
-        self.writer.execute("SAVEPOINT ingest")
+        self.writer.batch_begin()
         try:
             batch = self._write(compute())
         except sqlite3.OperationalError:
-            self.writer.execute("ROLLBACK TO ingest")
-            self.writer.execute("RELEASE ingest")
+            self.writer.batch_undo()
             raise
         except Exception as exc:  # noqa: BLE001 - whatever went wrong, the lines are kept and recording goes on
-            self.writer.execute("ROLLBACK TO ingest")
+            self.writer.batch_undo()
             self.pipeline.drop_held()
             batch = self._failed(held + [(received, line, True, "") for received, line in lines], exc)
-        self.writer.execute("RELEASE ingest")
+        self.writer.batch_end()
         self.malformed += batch.malformed
         return batch
 

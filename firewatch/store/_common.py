@@ -21,7 +21,7 @@ import sqlite3
 from importlib import resources
 from pathlib import Path
 
-__all__ = ["SCHEMA_VERSION", "LogError", "LogLocked", "LogDamaged", "LogWriteError", "log_error", "damage_error", "schema_sql"]
+__all__ = ["SCHEMA_VERSION", "LogError", "LogLocked", "LogDamaged", "LogWriteError", "LogUnavailable", "STORAGE_CODES", "log_error", "damage_error", "schema_sql"]
 
 SCHEMA_VERSION = 2
 """The schema this firewatch writes and the newest it reads."""
@@ -63,6 +63,15 @@ def damage_error(path: Path | str, problems: list[str]) -> LogDamaged:
     """The one-line error for a log whose integrity check found ``problems`` (the first is named)."""
     listed = f"; {len(problems)} problems listed" if len(problems) > 1 else ""
     return LogDamaged(f"{path}: the firing log is damaged (SQLite's quick_check: {problems[0]}{listed})")
+
+
+class LogUnavailable(LogError):
+    """The storage under the log failed while opening it (a full disk, an I/O error): no verdict on the log itself."""
+
+
+STORAGE_CODES = frozenset({7, 8, 10, 13, 14})
+"""SQLite primary result codes that speak of the storage, not the file (SQLite's documentation, "Result and Error
+Codes"): NOMEM, READONLY, IOERR, FULL, CANTOPEN."""
 
 
 class LogWriteError(LogError):

@@ -393,6 +393,8 @@ class LogWriter:
             try:
                 version = self.con.execute("SELECT value FROM meta WHERE key='schema_version'").fetchone()
             except sqlite3.DatabaseError as exc:
+                if _code(exc) in _STORAGE:
+                    raise
                 raise LogError(f"{self.path}: not a firing log ({exc})") from None
             if version is None or int(version[0]) > SCHEMA_VERSION:
                 raise LogError(f"{self.path}: log schema {version[0] if version else '?'} is newer than this firewatch reads ({SCHEMA_VERSION})")
@@ -407,6 +409,7 @@ class LogWriter:
         self._next_sample: int = self.con.execute("SELECT coalesce(max(id), 0) + 1 FROM sample").fetchone()[0]
         self._durable_t = self.last_t
         self._held: deque[_Statement | _BatchOp | _Dropped] = deque()
+        self._batch_ops: list[_Statement | _BatchOp] | None = None
         self._held_units = 0
         self._open_tx = True
         """True: the held writes are applied in the open transaction. False: the log cannot be written."""
@@ -545,6 +548,43 @@ class LogWriter:
             return self.con.execute(sql, params)
         return self._run(_Statement(sql, params, None, _units(params), bulk))
 
+    # -- one batch, undone as a whole if its processing fails (the recorder's Ingest) ----------
+    def batch_begin(self) -> None:
+        """Mark the start of one batch's writes, which :meth:`batch_undo` can take back as a whole.
+
+        A savepoint in the open transaction, and a note of the writes held from
+        here on. Not itself a held write: a savepoint replayed after a write
+        error could land in another transaction than its release.
+        """
+        self._batch_ops = []
+        if self._open_tx:
+            self.con.execute("SAVEPOINT batch")
+
+    def batch_end(self) -> None:
+        """The batch's writes stand."""
+        if self._open_tx and self.con.in_transaction:
+            try:
+                self.con.execute("RELEASE batch")
+            except sqlite3.OperationalError:
+                pass  # the transaction was rolled back (a write error) and the savepoint with it
+        self._batch_ops = None
+
+    def batch_undo(self) -> None:
+        """Take back every write since :meth:`batch_begin`: from the transaction and from what is held."""
+        ops = self._batch_ops or []
+        if self._open_tx and self.con.in_transaction:
+            try:
+                self.con.execute("ROLLBACK TO batch")
+                self.con.execute("RELEASE batch")
+            except sqlite3.OperationalError:
+                pass
+        gone = {id(op) for op in ops}
+        if gone:
+            kept = deque(op for op in self._held if id(op) not in gone)
+            self._held_units -= sum(op.units for op in self._held if id(op) in gone)
+            self._held = kept
+        self._batch_ops = None
+
     def executemany(self, sql: str, rows: Iterable[Iterable[Any]], *, bulk: bool = False) -> None:
         """Many rows of one statement inside the writer's transaction, held like :meth:`execute`."""
         rows = [tuple(r) for r in rows]
@@ -582,6 +622,8 @@ class LogWriter:
                 self._fail(exc)
         self._held.append(op)
         self._held_units += op.units
+        if self._batch_ops is not None:
+            self._batch_ops.append(op)
         if not self._open_tx:
             self._enforce_bound(self.hold_lines)
         return cursor
@@ -979,6 +1021,7 @@ class LogWriter:
         return what
 
     def _release(self) -> None:
+        self._release_reserve()
         release_lock(self._lock_fd)
 
 
@@ -1005,7 +1048,6 @@ class BriefWrite:
         if not self.path.is_file():
             raise LogError(f"{self.path}: no such firing log")
         self._lock_fd = take_lock(self.path, f"{BRIEF_HOLDER}, pid {os.getpid()} on {socket.gethostname()}")
-        self._release_reserve()
         try:
             self.con = _connect(self.path, read_only=False)
             self.con.execute("PRAGMA synchronous=FULL")

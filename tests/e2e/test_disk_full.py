@@ -149,7 +149,9 @@ def test_full_disk_then_space_comes_back_loses_nothing(small_fs: Path) -> None:
     assert rec.returncode == 0, text
     assert "Traceback" not in text
     (said,) = [line for line in text.splitlines() if "cannot write" in line]  # once, in one line
-    assert said.startswith(f"firewatch record: cannot write to {log}: the disk is full")
+    # one log record (time, level, source: issue 11's journald-ready lines) naming the log and what is wrong
+    assert " WARNING firewatch.services.recorder: " in said
+    assert said.split(" WARNING firewatch.services.recorder: ", 1)[1].startswith(f"cannot write to {log}: the disk is full")
     assert "holding readings in memory (up to 60,000 lines" in said
     (again,) = [line for line in text.splitlines() if "again after" in line]
     assert again.endswith(", none lost")
@@ -222,7 +224,8 @@ def test_file_size_limit_then_raised_loses_nothing(tmp_path: Path) -> None:
     text = err.text(rec)
     assert rec.returncode == 0 and "Traceback" not in text, text
     (said,) = [line for line in text.splitlines() if "cannot write" in line]
-    assert said.startswith(f"firewatch record: cannot write to {log}: the file size limit (ulimit -f) of 2.0 MiB is reached")
+    assert said.split(" WARNING firewatch.services.recorder: ", 1)[1].startswith(
+        f"cannot write to {log}: the file size limit (ulimit -f) of 2.0 MiB is reached")
     check_nothing_lost(log, text)
 
 
