@@ -121,7 +121,7 @@ def main() -> None:
     channels = con.execute("SELECT count(*) FROM channel").fetchone()[0]
     measured = CHANNELS_TC + CHANNELS_PY + 1
     con.close()
-    size = sum(f.stat().st_size for f in tmp.glob("bench.db*") if f.suffix != ".lock")
+    size = sum(f.stat().st_size for f in tmp.glob("bench.db*") if f.suffix not in (".lock", ".reserve"))
     hours = samples / RATE_HZ / 3600.0
     print(f"feed: {measured} channels x {RATE_HZ} readings/s ({measured * RATE_HZ} values/s), {args.seconds:g} s measured")
     print(f"bare reader (read and discard):  {bare * 100:6.2f} % of one core")

@@ -133,6 +133,7 @@ def to_log(sim: Simulation, log_path: Path, progress: Callable[[float], None] | 
         port=f"simulator (seed {sim.scenario.seed})",
         durable=False,
         clock_fn=lambda: sim.scenario.start_utc + sim.t,
+        hold_lines=None,  # a batch run: a write error ends it with a message (run it again)
     )
     ingest = Ingest(Pipeline(site, schedule, "device"), writer, NativeParser())
     engine = attach_alarms(ingest, site, schedule)

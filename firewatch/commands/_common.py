@@ -6,6 +6,8 @@ import datetime as dt
 from pathlib import Path
 from typing import TYPE_CHECKING
 
+from firewatch.store._common import LogUnavailable
+
 if TYPE_CHECKING:
     from firewatch.store.reader import LogReader
 
@@ -59,4 +61,7 @@ def refuse_damaged(path: Path) -> None:
     if path.is_file() and path.stat().st_size == 0:
         return
     if path.exists():
-        open_log(path).close()
+        try:
+            open_log(path).close()
+        except LogUnavailable:
+            return  # the disk, not the log: the writer says what is wrong in its own words

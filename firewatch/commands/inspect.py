@@ -20,6 +20,21 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--json", action="store_true", help="print one JSON object")
 
 
+def _record_summary(reader: Any) -> dict[str, Any] | None:
+    """The firing report's figures, or None where a damaged part of the log keeps them from being computed."""
+    import sqlite3
+
+    from firewatch.store._common import LogError
+    from firewatch.store.record import read_record  # the firing record's numbers, as the report shows them
+
+    try:
+        return read_record(reader).summary()
+    except (LogError, sqlite3.DatabaseError):
+        if reader.con.in_transaction:
+            reader.con.rollback()
+        return None  # the integrity check names the damage
+
+
 def summary(reader) -> dict[str, Any]:
     firing = reader.firing()
     start, end = firing.get("started_t"), firing.get("ended_t")
@@ -57,8 +72,6 @@ def summary(reader) -> dict[str, Any]:
         )
     sessions = reader.query("SELECT count(*) FROM session")[0][0]
     recorder_sessions = _sessions(reader)
-    from firewatch.store.record import read_record  # the firing record's numbers, as the report shows them
-
     return {
         "site": firing.get("site_name"),
         "kiln": firing.get("kiln"),
@@ -74,7 +87,7 @@ def summary(reader) -> dict[str, Any]:
         "failed_polls": int(failed_polls[0][0]) if failed_polls else 0,
         "gaps": gaps,
         "alarms": alarms,
-        "summary": read_record(reader).summary(),
+        "summary": _record_summary(reader),
     }
 
 

@@ -29,7 +29,7 @@ from firewatch.settings.profile import SiteProfile
 from firewatch.settings.schedule import Schedule
 from firewatch.store.actions import ActionFileError, ActionQueue, apply_action, mqtt_action
 from firewatch.store.outbox import Outbox
-from firewatch.store.writer import BriefWrite, LogWriter
+from firewatch.store.writer import HOLD_LINES, BriefWrite, LogWriter
 from firewatch.transport.generic import ChannelMap, GenericParser
 from firewatch.transport.modbus import ModbusParser, plan_requests
 from firewatch.transport.modbus_poll import LinkSettings, ModbusPoller
@@ -40,7 +40,7 @@ if TYPE_CHECKING:  # paho-mqtt is optional: imported only when publishing
     from firewatch.services.mqtt import Publisher
 
 __all__ = ["Ingest", "LineQueue", "Overflow", "Recorder", "make_parser", "GAP_S", "SQLITE_WAL_FIX", "QUEUE_BYTES", "BATCH_LINES",
-           "sqlite_note", "AlarmLog", "attach_alarms"]
+           "sqlite_note", "AlarmLog", "attach_alarms", "COMMIT_LINES"]
 
 log = logging.getLogger(__name__)
 
@@ -61,6 +61,10 @@ BATCH_LINES = 20_000
 """Most lines parsed and computed at once, so that a backlog is worked off in bounded pieces."""
 ERROR_REPEAT_S = 60.0
 """A batch failure with the same reason as the last is logged again only after this long, s."""
+COMMIT_LINES = 2000
+"""The most lines one transaction holds: a flood is written as many short transactions, none of which
+the WAL must hold whole (at 100 lines a second a cycle has 50)."""
+
 
 
 @dataclass(frozen=True)
@@ -216,18 +220,17 @@ class Ingest:
 
     def _guarded(self, lines: list[tuple[float, bytes]], compute: Callable[[], Batch]) -> Batch:
         held = self.pipeline.held_raw()
-        self.writer.execute("SAVEPOINT ingest")
+        self.writer.batch_begin()
         try:
             batch = self._write(compute())
         except sqlite3.OperationalError:
-            self.writer.execute("ROLLBACK TO ingest")
-            self.writer.execute("RELEASE ingest")
+            self.writer.batch_undo()
             raise
         except Exception as exc:  # noqa: BLE001 - whatever went wrong, the lines are kept and recording goes on
-            self.writer.execute("ROLLBACK TO ingest")
+            self.writer.batch_undo()
             self.pipeline.drop_held()
             batch = self._failed(held + [(received, line, True, "") for received, line in lines], exc)
-        self.writer.execute("RELEASE ingest")
+        self.writer.batch_end()
         self.malformed += batch.malformed
         return batch
 
@@ -295,6 +298,9 @@ class Recorder:
         Stop after this many seconds of wall-clock time.
     commit_interval_s : float
         How often to commit (at most 1 s: the durability promise).
+    hold_lines : int
+        The bound on readings held in memory while the log cannot be written (see
+        :mod:`firewatch.store.writer`).
     """
 
     def __init__(
@@ -309,8 +315,10 @@ class Recorder:
         clock_fn: Callable[[], float] = time.time,
         mqtt_url: str | None = None,
         queue_bytes: int = QUEUE_BYTES,
+        hold_lines: int = HOLD_LINES,
     ) -> None:
         self.url = url
+        self.hold_lines = hold_lines
         self.site = site
         self.schedule = schedule
         self.log_path = Path(log_path)
@@ -357,6 +365,7 @@ class Recorder:
             clock=self.clock,
             port=self.url,
             clock_fn=self.clock_fn,
+            hold_lines=self.hold_lines,
         )
         if install_signals:
             signal.signal(signal.SIGTERM, self._handle_signal)
@@ -381,7 +390,7 @@ class Recorder:
         sqlite_text = f"SQLite {sqlite3.sqlite_version}" + (f" ({note})" if note else "")
         now = self.clock_fn()
         writer.event(ingest.timeline(now), "start", f"recording {self.url}; {sqlite_text}")
-        writer.commit()
+        self._commit(writer, ingest.timeline(now))
         log.info(
             f"recording {self.url} to {self.log_path} ({'continuing the firing' if writer.continuing else 'new firing'}). "
             "Stop with Ctrl-C or SIGTERM."
@@ -407,7 +416,7 @@ class Recorder:
             if self.publisher is not None:
                 self.publisher.close()
                 self._mqtt_cycle(writer, ingest.timeline(self.clock_fn()))
-                writer.commit()
+                self._commit(writer, ingest.timeline(self.clock_fn()))
             lat = np.array(self.latencies) if self.latencies else np.zeros(1)
             polled = f", {self.poller.failed_polls} of {self.poller.polls} polls failed" if self.poller is not None else ""
             detail = (
@@ -415,7 +424,9 @@ class Recorder:
                 f"p50 {np.percentile(lat, 50):.3f} s, p99 {np.percentile(lat, 99):.3f} s"
             )
             writer.event(ingest.timeline(self.clock_fn()), "stop", detail)
-            writer.close(reason)
+            # on a log that cannot be written, close still ends the session with its reason (the writer's reserve)
+            for text in writer.close(reason, ingest.timeline(self.clock_fn())):
+                log.warning(text)
             log.info(f"stopped: {detail}")
         return reason
 
@@ -460,8 +471,7 @@ class Recorder:
             outbox.enqueue(messages, ingest.timeline(self.clock_fn()))
 
         def on_batch(batch: Batch) -> None:
-            first = writer.execute("SELECT coalesce(max(id), 0) + 1 FROM sample").fetchone()[0]
-            enqueue(mqtt.batch_messages(url, kiln, batch, engine, int(first), self.site))
+            enqueue(mqtt.batch_messages(url, kiln, batch, engine, writer.next_sample_id, self.site))
 
         log_sink = engine.sink
 
@@ -514,18 +524,30 @@ class Recorder:
                 self._unmarked[action.id] = result
                 log.warning(f"cannot mark operator action {action.id} applied ({exc}); retrying")
 
+    def _commit(self, writer: LogWriter, now: float) -> None:
+        """Commit; say once on stderr when the log cannot be written, and when it can again."""
+        for text in writer.commit(now):
+            log.warning(text)
+
+    def _feed(self, writer: LogWriter, ingest: Ingest, lines: list[tuple[float, bytes]]) -> None:
+        """Feed lines at most COMMIT_LINES to a transaction, so that a flood never makes one the WAL must hold whole."""
+        for i in range(0, len(lines), COMMIT_LINES):
+            if i:
+                self._commit(writer, ingest.timeline(self.clock_fn()))
+            ingest.feed(lines[i : i + COMMIT_LINES])
+
     def _cycle(self, writer: LogWriter, ingest: Ingest) -> None:
         lines: list[tuple[float, bytes]] = []
         drained: list[tuple[float, bytes]] = []
         items, overflow = self._queue.drain()
         for item in items:
             if len(lines) >= BATCH_LINES:  # a backlog is worked off in bounded pieces
-                ingest.feed(lines)
+                self._feed(writer, ingest, lines)
                 drained += lines
                 lines = []
             if isinstance(item, PortEvent):
                 if lines:  # keep order: lines before an event are written first
-                    ingest.feed(lines)
+                    self._feed(writer, ingest, lines)
                     drained += lines
                     lines = []
                 writer.event(ingest.timeline(item.t), item.kind, item.detail)
@@ -543,20 +565,21 @@ class Recorder:
             else:
                 lines.append(item)
         if lines:
-            ingest.feed(lines)
+            self._feed(writer, ingest, lines)
             drained += lines
         if overflow is not None:
             self._overflowed(writer, ingest, overflow)
         lines = drained
         now = ingest.timeline(self.clock_fn())
         self.engine.tick(now)
-        self._apply_actions(writer, now)
+        if writer.outage is None:  # while the log cannot be written, actions wait in their file
+            self._apply_actions(writer, now)
         if self.publisher is not None:
             self._mqtt_cycle(writer, now)
         writer.heartbeat()  # lines or not: viewers tell a silent line from a stopped recorder by it
         if self.poller is not None:
             self._count_failed_polls(writer)
-        writer.commit()
+        self._commit(writer, now)
         done = self.clock_fn()
         if lines and len(self.latencies) < 2_000_000:
             self.latencies.extend(done - received for received, _ in lines)

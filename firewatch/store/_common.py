@@ -10,7 +10,9 @@ the file read-only and keep their transactions short.
 
 Durability: the recorder commits at least once a second with
 ``synchronous=FULL``, so a crash or power cut loses at most what was not yet
-committed; SQLite's WAL keeps the file intact through SIGKILL.
+committed; SQLite's WAL keeps the file intact through SIGKILL. When the log
+cannot be written (a full disk), the writer holds what it has not committed
+in memory and retries (see :mod:`firewatch.store.writer`).
 """
 
 from __future__ import annotations
@@ -19,7 +21,7 @@ import sqlite3
 from importlib import resources
 from pathlib import Path
 
-__all__ = ["SCHEMA_VERSION", "LogError", "LogLocked", "LogDamaged", "log_error", "damage_error", "schema_sql"]
+__all__ = ["SCHEMA_VERSION", "LogError", "LogLocked", "LogDamaged", "LogWriteError", "LogUnavailable", "STORAGE_CODES", "log_error", "damage_error", "schema_sql"]
 
 SCHEMA_VERSION = 2
 """The schema this firewatch writes and the newest it reads."""
@@ -61,6 +63,19 @@ def damage_error(path: Path | str, problems: list[str]) -> LogDamaged:
     """The one-line error for a log whose integrity check found ``problems`` (the first is named)."""
     listed = f"; {len(problems)} problems listed" if len(problems) > 1 else ""
     return LogDamaged(f"{path}: the firing log is damaged (SQLite's quick_check: {problems[0]}{listed})")
+
+
+class LogUnavailable(LogError):
+    """The storage under the log failed while opening it (a full disk, an I/O error): no verdict on the log itself."""
+
+
+STORAGE_CODES = frozenset({7, 8, 10, 13, 14})
+"""SQLite primary result codes that speak of the storage, not the file (SQLite's documentation, "Result and Error
+Codes"): NOMEM, READONLY, IOERR, FULL, CANTOPEN."""
+
+
+class LogWriteError(LogError):
+    """The log cannot be written: a full disk, a file-size limit, an I/O error (the message says which)."""
 
 
 def _connect(path: Path, read_only: bool) -> sqlite3.Connection:

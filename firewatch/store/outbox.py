@@ -10,6 +10,7 @@ here, beside the rest of the log's SQL; the publishing lives in
 
 from __future__ import annotations
 
+import sqlite3
 from collections.abc import Iterable
 
 from firewatch.store.writer import LogWriter
@@ -39,16 +40,25 @@ class Outbox:
         for statement in OUTBOX_SCHEMA.split(";"):
             if statement.strip():
                 writer.execute(statement)
+        try:
+            self._next = int(writer.execute("SELECT coalesce(max(id), 0) + 1 FROM mqtt_outbox").fetchone()[0])
+        except sqlite3.OperationalError:  # the table is still held in memory: the log could not be written
+            self._next = 1
 
     def enqueue(self, messages: Iterable[tuple[str, bytes, int, bool]], t: float) -> None:
         """Add ``(topic, payload, qos, retain)`` messages inside the open transaction."""
-        self.writer.con.executemany(
-            "INSERT INTO mqtt_outbox(topic, payload, qos, retain, created_t) VALUES (?, ?, ?, ?, ?)",
-            [(topic, payload, qos, int(retain), t) for topic, payload, qos, retain in messages],
+        rows = [(topic, payload, qos, int(retain), t) for topic, payload, qos, retain in messages]
+        first, self._next = self._next, self._next + len(rows)
+        # numbered here, so that the ids handed to the publisher stay theirs if the log cannot be written for a
+        # while; bulk: past the bound on held writes these are dropped with the readings they describe
+        self.writer.executemany(
+            "INSERT INTO mqtt_outbox(id, topic, payload, qos, retain, created_t) VALUES (?, ?, ?, ?, ?, ?)",
+            [(first + i, *row) for i, row in enumerate(rows)],
+            bulk=True,
         )
 
     def mark_sent(self, ids: Iterable[int], stamp: float) -> None:
-        self.writer.con.executemany("UPDATE mqtt_outbox SET sent_utc = ? WHERE id = ?", [(stamp, i) for i in ids])
+        self.writer.executemany("UPDATE mqtt_outbox SET sent_utc = ? WHERE id = ?", [(stamp, i) for i in ids])
 
     def unsent_after(self, last_id: int, limit: int = 20000) -> list[tuple[int, str, bytes, int, int]]:
         """Unsent messages after ``last_id`` in order: ``(id, topic, payload, qos, retain)``."""

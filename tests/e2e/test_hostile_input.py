@@ -8,6 +8,9 @@ this process so that its line queue can be made small.
 from __future__ import annotations
 
 import io
+import logging
+
+import pytest
 import signal
 import socket
 import sqlite3
@@ -91,16 +94,16 @@ def test_hostile_lines_over_a_socket_are_counted_and_recording_goes_on(tmp_path:
     assert segs and {s[0] for s in segs} == {1.0}
 
 
-def test_a_flood_overflows_a_bounded_queue_and_every_line_is_accounted_for(tmp_path: Path) -> None:
+def test_a_flood_overflows_a_bounded_queue_and_every_line_is_accounted_for(tmp_path: Path, caplog: pytest.LogCaptureFixture) -> None:
     """Issue 10: under a flood the queue grew without bound; now what overflows is counted and logged."""
     sent = 40_000
     payload = b"".join(native(i, T0 + i * 0.01) for i in range(sent))  # about 4 MB at once
     log = tmp_path / "flood.db"
-    out = io.StringIO()
+    caplog.set_level(logging.INFO, logger="firewatch")
     with socket.create_server(("127.0.0.1", 0)) as server:
         port = server.getsockname()[1]
         recorder = Recorder(f"socket://127.0.0.1:{port}", load_site(), load_schedule(profiles_dir() / "demo-glaze.toml"), log,
-                            clock="device", out=out, queue_bytes=200 * (100 + ITEM_BYTES))
+                            clock="device", queue_bytes=200 * (100 + ITEM_BYTES))
         thread = threading.Thread(target=recorder.run, kwargs={"install_signals": False}, daemon=True)
         thread.start()
         client = None
@@ -128,5 +131,5 @@ def test_a_flood_overflows_a_bounded_queue_and_every_line_is_accounted_for(tmp_p
     dropped = sum(int(d.split(" ", 1)[0]) for d in overflow)
     assert overflow and dropped > 0 and kept + dropped == sent  # never dropped silently
     assert recorder.ingest.dropped == dropped and f"{dropped} dropped (line queue full)" in stop_detail
-    assert "line queue was full" in overflow[0] and "dropped" in out.getvalue()
+    assert "line queue was full" in overflow[0] and "dropped" in caplog.text
     assert end_reason == "signal"  # the stop event, as SIGTERM sets it
