@@ -7,15 +7,14 @@ this process so that its line queue can be made small.
 
 from __future__ import annotations
 
-import io
 import logging
-
-import pytest
 import signal
 import socket
 import sqlite3
 import threading
 from pathlib import Path
+
+import pytest
 
 from firewatch.services.recorder import ITEM_BYTES, Recorder
 from firewatch.settings.profile import load_site, profiles_dir
