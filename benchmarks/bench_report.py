@@ -22,7 +22,7 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from firewatch.settings.profile import profiles_dir
+from firewatch.settings.profile import profiles_dir  # noqa: E402 (after sys.path: this checkout's firewatch)
 
 
 def make_log(tmp: Path) -> Path:

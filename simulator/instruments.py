@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import math
 import warnings
+from pathlib import Path
 
 import numpy as np
 
@@ -23,11 +24,9 @@ from firewatch.transport.records import Status
 __all__ = ["thermocouple_emf", "pyrometer_reading", "band_of"]
 
 
-def band_of(py: Pyrometer, base: Path | None = None) -> Band:  # noqa: F821 - documented type
+def band_of(py: Pyrometer, base: Path | None = None) -> Band:
     """The band of a pyrometer as the site profile describes it (band 1 for a ratio instrument)."""
     if py.band_file:
-        from pathlib import Path
-
         path = Path(py.band_file)
         if not path.is_absolute() and base is not None:
             path = base / path
@@ -60,7 +59,7 @@ def pyrometer_reading(
 ) -> tuple[np.ndarray, np.ndarray]:
     """What the instrument shows (degC) and its status (UNDER/OVER outside its measuring range)."""
     if py.window is not None:
-        path: float | Window = Window(py.window, fouling=fouling)
+        path: float | np.ndarray | Window = Window(py.window, fouling=fouling)
     else:
         path = np.clip(py.transmission * fouling, 1e-6, 1.0)
     with warnings.catch_warnings():

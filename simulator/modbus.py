@@ -66,14 +66,20 @@ import asyncio
 import math
 import os
 import tty
-from collections.abc import Awaitable, Callable, Iterator
+from collections.abc import Callable, Coroutine, Iterator
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any, Literal
 
 from firewatch.settings.profile import SiteProfile
 from firewatch.simulator.run import Line, Simulation
 from firewatch.transport.native import NativeParser
 from firewatch.transport.records import Malformed, Status
+
+if TYPE_CHECKING:
+    from pymodbus.constants import ExcCodes
+
+    # pymodbus's SimDevice action: (function code, start address, address, count, registers, values to set)
+    _Action = Callable[[int, int, int, int, list[int], list[int] | list[bool] | None], Coroutine[None, None, ExcCodes | None]]
 
 __all__ = ["Slot", "register_map", "KilnImage", "serve_tcp", "serve_rtu_pty", "CLOCK_REGISTER"]
 
@@ -97,7 +103,7 @@ class Slot:
     table: str
     register: int
     type: str
-    word_order: str = "big"
+    word_order: Literal["big", "little"] = "big"
     range_c: tuple[float, float] | None = None
 
 
@@ -117,7 +123,7 @@ def register_map(site: SiteProfile) -> list[Slot]:
     return slots
 
 
-def _to_registers(value: int | float, type: str, word_order: str) -> list[int]:
+def _to_registers(value: int | float, type: str, word_order: Literal["big", "little"]) -> list[int]:
     """Registers for a value, encoded by pymodbus (an implementation independent of firewatch's decoding)."""
     from pymodbus.client import ModbusTcpClient
 
@@ -142,7 +148,10 @@ class KilnImage:
             size[key] = max(size.get(key, 0), s.register + (2 if s.type in ("int32", "uint32", "float32") else 1))
         self.tables: dict[tuple[int, str], list[int]] = {key: [0] * n for key, n in size.items()}
         self.used: dict[tuple[int, str], list[tuple[int, int]]] = {
-            (1, "input"): [(0, max([s.register + (2 if s.type == "int32" else 1) for s in self.slots if s.unit_id == 1] or [0])), (CLOCK_REGISTER, CLOCK_REGISTER + 2)],
+            (1, "input"): [
+                (0, max([s.register + (2 if s.type == "int32" else 1) for s in self.slots if s.unit_id == 1] or [0])),
+                (CLOCK_REGISTER, CLOCK_REGISTER + 2),
+            ],
             (2, "holding"): [(0, size[(2, "holding")])],
         }
         self.state = "ok"
@@ -231,10 +240,11 @@ class _Devices:
                 regs[table] = [SimData(0, count=n, values=0, datatype=DataType.REGISTERS, readonly=True)]
             return bits, list(bits), regs["holding"], regs["input"]
 
-        def action_for(unit: int) -> Callable[..., Awaitable[Any]]:
+        def action_for(unit: int) -> _Action:
             async def action(
-                function_code: int, start_address: int, address: int, count: int, registers: list[int], set_values: list[int] | None
-            ) -> Any:
+                function_code: int, start_address: int, address: int, count: int, registers: list[int],
+                set_values: list[int] | list[bool] | None,
+            ) -> ExcCodes | None:
                 if self._ended:  # the last reading has been read (its poll is over): the kiln goes quiet
                     self.finished.set()
                     raise NoSuchIdException("the simulation has ended")

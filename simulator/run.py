@@ -226,10 +226,9 @@ class Simulation:
             garbage = self._window("garbage", t)
             if garbage is not None and garbage_draw[i] < float(garbage.param("fraction")):
                 data = _spoil(data, int(garbage_kind[i]), float(garbage_pos[i]), rng)
-            starts_dropout = dropout is not None and t - dropout.at_s < self.dt
-            lines.append(
-                Line(t, data, dropped=dropout is not None, disconnect=starts_dropout and bool(dropout.param("disconnect")))
-            )
+            # a dropout that starts within this reading may also drop the connection
+            disconnect = dropout is not None and t - dropout.at_s < self.dt and bool(dropout.param("disconnect"))
+            lines.append(Line(t, data, dropped=dropout is not None, disconnect=disconnect))
         return lines
 
     # -- truth for tests ------------------------------------------------------------

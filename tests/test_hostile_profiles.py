@@ -15,11 +15,11 @@ import sys
 from pathlib import Path
 
 import pytest
+
+from firewatch.cli import main
 from firewatch.simulator import serve
 from firewatch.simulator.run import Simulation
 from firewatch.simulator.scenario import load_scenario
-
-from firewatch.cli import main
 from tests.e2e.helpers import ROOT, env
 
 # hostile file -> (what the one line says, is it a file check cannot read at all)

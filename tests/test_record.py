@@ -157,8 +157,8 @@ def test_clock_times_in_the_sites_zone_across_a_summer_time_change() -> None:
     # Europe/Berlin: CET (UTC+01:00) until 01:00 UTC on the last Sunday of March (29 Mar 2026), then CEST
     # (UTC+02:00): the EU summer-time rule (Directive 2000/84/EC) as the IANA tz database encodes it.
     clock = Clock.for_site("Europe/Berlin")
-    before = dt.datetime(2026, 3, 29, 0, 30, tzinfo=dt.timezone.utc).timestamp()
-    after = dt.datetime(2026, 3, 29, 1, 30, tzinfo=dt.timezone.utc).timestamp()
+    before = dt.datetime(2026, 3, 29, 0, 30, tzinfo=dt.UTC).timestamp()
+    after = dt.datetime(2026, 3, 29, 1, 30, tzinfo=dt.UTC).timestamp()
     assert clock.full(before) == "Sun 29 Mar 2026, 01:30:00 CET"
     assert clock.full(after) == "Sun 29 Mar 2026, 03:30:00 CEST"
     assert clock.describe(before, after) == "Europe/Berlin (CET, UTC+01:00; from the change: CEST, UTC+02:00)"

@@ -134,7 +134,7 @@ def _document(draw) -> tuple[str, dict[tuple, int]]:
             lines.append(f"[[{name}]]")
             prefix = (name, counters[name])
         expected[prefix] = len(lines)
-        for k, key in enumerate(draw(st.lists(_BARE, min_size=1, max_size=4, unique=True))):
+        for key in draw(st.lists(_BARE, min_size=1, max_size=4, unique=True)):
             value = draw(_value())
             lines.append(f"{key} = {value[0]}")
             expected[prefix + (key,)] = len(lines)

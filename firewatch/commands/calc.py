@@ -246,8 +246,8 @@ def _pyro(args: argparse.Namespace) -> tuple[dict[str, Any], list[tuple[str, str
         )
         if args.background_uncertainty and background_c is None:
             raise UsageError("--background-uncertainty: needs --background")
-        corrected, u = correct_single_band(indicated_c, **common, **uncertainties, return_uncertainty=True)
-        tau = float(effective_transmission(band, transmission, float(corrected)))
+        corrected_a, u_a = correct_single_band(indicated_c, **common, **uncertainties, return_uncertainty=True)
+        tau = float(effective_transmission(band, transmission, float(corrected_a)))
         mc = None
         if args.monte_carlo:
             from firewatch.physics.montecarlo import monte_carlo_single_band
@@ -257,7 +257,7 @@ def _pyro(args: argparse.Namespace) -> tuple[dict[str, Any], list[tuple[str, str
         if isinstance(exc, UncertaintyWarning):
             raise
         raise _fail(option, exc) from None
-    corrected, u = float(corrected), float(u)
+    corrected, u = float(corrected_a), float(u_a)
     result: dict[str, Any] = {
         "indicated_c": round(indicated_c, 4),
         "corrected_c": round(corrected, 4),
@@ -314,7 +314,7 @@ def _ratio(args: argparse.Namespace) -> tuple[dict[str, Any], list[tuple[str, st
     band1, band2 = Band(*args.band1), Band(*args.band2)
     indicated_c = _c(args.indicated, args)
     try:
-        corrected, u = correct_ratio(
+        corrected_a, u_a = correct_ratio(
             indicated_c, band1, band2, args.slope, args.set_slope,
             slope_u=args.slope_uncertainty,
             instrument_u_c=_uncertainty_c(args.instrument_uncertainty, args),
@@ -323,7 +323,7 @@ def _ratio(args: argparse.Namespace) -> tuple[dict[str, Any], list[tuple[str, st
     except (ValueError, Warning) as exc:
         option = "--band1" if "band 1" in str(exc) else "--indicated"
         raise _fail(option, exc) from None
-    corrected, u = float(corrected), float(u)
+    corrected, u = float(corrected_a), float(u_a)
     result = {
         "indicated_c": round(indicated_c, 4),
         "corrected_c": round(corrected, 4),

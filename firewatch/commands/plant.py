@@ -21,11 +21,11 @@ def run(args: argparse.Namespace) -> int:
 
     try:
         url = parse_mqtt_url(args.mqtt)
-        import paho.mqtt.client  # noqa: F401
+        import paho.mqtt.client  # noqa: F401 (availability check: imported only to see that the extra is installed)
     except ValueError as exc:
         raise UsageError(f"--mqtt: {exc}") from None
     except ImportError:
-        raise UsageError("--mqtt: the plant view needs paho-mqtt: pip install 'firewatch[mqtt]'") from None
+        raise UsageError("--mqtt: the plant view needs paho-mqtt: pip install 'firewatch-kiln[mqtt]'") from None
     from firewatch.ui.plant import PlantApp
 
     PlantApp(url).run()

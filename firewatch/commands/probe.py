@@ -111,9 +111,9 @@ def run(args: argparse.Namespace) -> int:
     elif not 1 <= args.unit <= 247:
         raise UsageError(f"--unit: a serial line's devices are 1 to 247, got {args.unit}")
     try:
-        import pymodbus  # noqa: F401
+        import pymodbus  # noqa: F401 (availability check: imported only to see that the extra is installed)
     except ImportError:
-        raise UsageError('--port: probing needs pymodbus: pip install ".[modbus]"') from None
+        raise UsageError("--port: probing needs pymodbus: pip install 'firewatch-kiln[modbus]'") from None
     link = ModbusLink(LinkSettings(protocol, args.port, args.baudrate, args.bytesize, args.parity, args.stopbits, args.timeout, args.retries))
     request = Request(args.unit, args.table, args.register, args.count)
     function = 4 if args.table == "input" else 3

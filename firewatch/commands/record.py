@@ -13,7 +13,9 @@ __all__ = ["add_parser", "run", "load_profiles", "input_port"]
 
 if TYPE_CHECKING:
     from firewatch.services.recorder import Recorder
+    from firewatch.settings._tomlcheck import ProfileError
     from firewatch.settings.profile import SiteProfile
+    from firewatch.settings.schedule import Schedule
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -35,7 +37,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--parent-pid", type=int, help=argparse.SUPPRESS)
 
 
-def load_profiles(site_path: str | None, schedule_path: str | None):
+def load_profiles(site_path: str | None, schedule_path: str | None) -> tuple[SiteProfile, Schedule]:
     """The site and schedule, defaulting to the demo ones; UsageError names the bad option."""
     from firewatch.settings._tomlcheck import ProfileError
     from firewatch.settings.profile import load_site, profiles_dir
@@ -44,12 +46,18 @@ def load_profiles(site_path: str | None, schedule_path: str | None):
     try:
         site = load_site(site_path)
     except ProfileError as exc:
-        raise UsageError(f"--site: {exc.problems[0]}" + (f" (and {len(exc.problems) - 1} more; see firewatch check)" if len(exc.problems) > 1 else "")) from None
+        raise UsageError(f"--site: {_first_problem(exc)}") from None
     try:
         schedule = load_schedule(schedule_path or profiles_dir() / "demo-glaze.toml")
     except ProfileError as exc:
-        raise UsageError(f"--schedule: {exc.problems[0]}" + (f" (and {len(exc.problems) - 1} more; see firewatch check)" if len(exc.problems) > 1 else "")) from None
+        raise UsageError(f"--schedule: {_first_problem(exc)}") from None
     return site, schedule
+
+
+def _first_problem(exc: ProfileError) -> str:
+    """The first problem of a profile, with how many more there are (``firewatch check`` lists them all)."""
+    more = len(exc.problems) - 1
+    return exc.problems[0] + (f" (and {more} more; see firewatch check)" if more else "")
 
 
 def input_port(site: SiteProfile, port: str | None, clock: str | None) -> str:
@@ -60,12 +68,13 @@ def input_port(site: SiteProfile, port: str | None, clock: str | None) -> str:
             raise UsageError("--port: give the serial URL to record from (a device path or socket://HOST:PORT)")
         return port
     try:
-        import pymodbus  # noqa: F401
+        import pymodbus  # noqa: F401 (availability check: imported only to see that the extra is installed)
     except ImportError:
-        raise UsageError(f"--site: format {site.input.format!r} needs pymodbus: pip install \".[modbus]\"") from None
+        raise UsageError(f"--site: format {site.input.format!r} needs pymodbus: pip install 'firewatch-kiln[modbus]'") from None
     port = port or mb.port
     if not port:
-        raise UsageError(f"--port: give the {'HOST:PORT' if mb.protocol == 'tcp' else 'serial device'} of the Modbus devices (or [input] port in the site profile)")
+        where = "HOST:PORT" if mb.protocol == "tcp" else "serial device"
+        raise UsageError(f"--port: give the {where} of the Modbus devices (or [input] port in the site profile)")
     if mb.protocol == "tcp":
         from firewatch.transport.modbus_poll import parse_host_port
 
@@ -95,11 +104,11 @@ def run(args: argparse.Namespace) -> int:
 
         try:
             parse_mqtt_url(args.mqtt)
-            import paho.mqtt.client  # noqa: F401
+            import paho.mqtt.client  # noqa: F401 (availability check: imported only to see that the extra is installed)
         except ValueError as exc:
             raise UsageError(f"--mqtt: {exc}") from None
         except ImportError:
-            raise UsageError("--mqtt: publishing needs paho-mqtt: pip install 'firewatch[mqtt]'") from None
+            raise UsageError("--mqtt: publishing needs paho-mqtt: pip install 'firewatch-kiln[mqtt]'") from None
     recorder = Recorder(port, site, schedule, log, clock=args.clock, duration_s=args.seconds, mqtt_url=args.mqtt)
     if args.parent_pid:
         _stop_with_parent(recorder, args.parent_pid)

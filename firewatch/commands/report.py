@@ -59,7 +59,7 @@ def run(args: argparse.Namespace) -> int:
         except ProfileError as exc:
             raise UsageError(f"--site: {exc.problems[0]}") from None
     try:
-        import matplotlib
+        import matplotlib  # noqa: F401 (availability check: imported only to see that the extra is installed)
     except ImportError:
         sys.stderr.write("firewatch report: needs matplotlib: pip install 'firewatch-kiln[report]'\n")
         return 1

@@ -84,8 +84,8 @@ def run(args: argparse.Namespace) -> int:
 
     if args.list_scenarios:
         return list_scenarios()
-    if not (args.tcp or args.pty or args.stdout or args.to_log):
-        raise UsageError("one of --tcp, --pty, --stdout or --to-log is required (or --list-scenarios)")
+    if not (args.tcp or args.pty or args.stdout or args.to_log or args.modbus_tcp is not None):
+        raise UsageError("one of --tcp, --pty, --stdout, --to-log or --modbus-tcp is required (or --list-scenarios)")
 
     try:
         scenario = load_scenario(args.scenario)
@@ -106,9 +106,9 @@ def run(args: argparse.Namespace) -> int:
     modbus = args.modbus_rtu or args.modbus_tcp is not None
     if modbus:
         try:
-            import pymodbus  # noqa: F401
+            import pymodbus  # noqa: F401 (availability check: imported only to see that the extra is installed)
         except ImportError:
-            raise UsageError("--modbus-" + ("rtu" if args.modbus_rtu else "tcp") + ": needs pymodbus: pip install \".[modbus]\"") from None
+            raise UsageError("--modbus-" + ("rtu" if args.modbus_rtu else "tcp") + ": needs pymodbus: pip install 'firewatch-kiln[modbus]'") from None
     streaming = args.to_log is None
     try:
         sim = Simulation(scenario, endless=streaming and args.minutes is None)

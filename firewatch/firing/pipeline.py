@@ -43,6 +43,8 @@ from pathlib import Path
 
 import numpy as np
 
+from firewatch.firing.progress import PLAN_CHANNELS, ProgressTracker
+from firewatch.firing.rates import TrailingSlope
 from firewatch.physics._warnings import FirewatchWarning
 from firewatch.physics.bands import Band
 from firewatch.physics.corrections import correct_ratio, correct_single_band
@@ -50,10 +52,8 @@ from firewatch.physics.thermocouples import emf_to_temperature
 from firewatch.physics.tolerances import tolerance_uncertainty
 from firewatch.physics.windows import Window
 from firewatch.settings.profile import Pyrometer, SiteProfile
-from firewatch.firing.progress import PLAN_CHANNELS, ProgressTracker
 from firewatch.settings.schedule import Schedule
 from firewatch.transport.records import Malformed, ReadingSet, Status
-from firewatch.firing.rates import TrailingSlope
 
 __all__ = ["Batch", "Pipeline", "ChannelInfo", "channel_table", "JUMP_S", "CONFIRM"]
 
@@ -136,7 +136,7 @@ def to_columns(items: list[ReadingSet | Malformed], channels: tuple[str, ...], c
     wanted = set(channels)
     sets: list[ReadingSet] = []
     for item in items:
-        if type(item) is Malformed:
+        if isinstance(item, Malformed):
             raw.append((item.received, item.raw, False, item.reason))
             continue
         received, device_time = item.received, item.device_time
@@ -353,7 +353,8 @@ class Pipeline:
                     gaps.append((a_t, float(own[k0] + self._offset), f"{what} went back {-step:.3f} s: a new stretch"))
                 else:
                     # ahead: the time line shows the gap, recorded like any silence
-                    jumps.append((float(own[k0] + self._offset), f"{what} jumped {step:.3f} s ahead in {max(received[k0] - a_recv, 0.0):.3f} s of receipt: a new stretch"))
+                    took = max(received[k0] - a_recv, 0.0)
+                    jumps.append((float(own[k0] + self._offset), f"{what} jumped {step:.3f} s ahead in {took:.3f} s of receipt: a new stretch"))
             for k in ks:
                 accept(k)
 
@@ -427,6 +428,8 @@ class Pipeline:
             for py in site.pyrometers:
                 self._pyrometer(py, times, batch)
         if self.progress is not None:
+            # a tracker is made only for a site with a control thermocouple (__init__)
+            assert site.control is not None
             ctl = site.control.name
             plan = self.progress.update(times, out_v[ctl], out_v[f"{ctl}.rate"])
             for name, values in plan.items():
@@ -501,7 +504,8 @@ class Pipeline:
                 if missing.any() and py.name not in self._fallback_noted:
                     self._fallback_noted.add(py.name)
                     i = int(np.argmax(missing))
-                    batch.events.append((float(times[i]), "fallback", py.name, f"background {py.background} has no value; assuming the walls are at the ware's temperature"))
+                    batch.events.append((float(times[i]), "fallback", py.name,
+                                         f"background {py.background} has no value; assuming the walls are at the ware's temperature"))
                 if not missing.any():
                     self._fallback_noted.discard(py.name)
         rec_status = np.where(ok & np.isfinite(reconciled), int(Status.OK), np.where(ok, int(Status.OUT_OF_RANGE), status))

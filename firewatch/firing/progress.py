@@ -347,11 +347,13 @@ class ProgressTracker:
             out["plan.hold"][i] = (t - self.hold_start_t) if self.hold_start_t is not None else math.nan
             if not estimated or i == n - 1 or i % 10 == 0:  # the prediction changes slowly; every 10th reading is plenty
                 estimated = True
+                start_t = self.start_t
+                assert start_t is not None  # placed: a start sets it before any setpoint is given
                 remaining = self._remaining(t, temp if math.isfinite(temp) else self.segment_start_c)
                 if self.done:  # frozen at the moment the schedule ended
-                    behind = (self.segment_start_t - self.start_t) - self._plan_seg_end[-1]
+                    behind = (self.segment_start_t - start_t) - self._plan_seg_end[-1]
                 else:
-                    behind = (t - self.start_t) - self._planned_elapsed(t, temp if math.isfinite(temp) else self.segment_start_c)
+                    behind = (t - start_t) - self._planned_elapsed(t, temp if math.isfinite(temp) else self.segment_start_c)
             out["plan.remaining"][i] = remaining
             out["plan.behind"][i] = behind
         if n and self.start_t is not None and self._resume is None:

@@ -464,7 +464,7 @@ def _r(x: float | None, digits: int) -> float | None:
 def _iso(t: float | None) -> str | None:
     if t is None or not math.isfinite(t):
         return None
-    return dt.datetime.fromtimestamp(t, dt.timezone.utc).isoformat(timespec="seconds").replace("+00:00", "Z")
+    return dt.datetime.fromtimestamp(t, dt.UTC).isoformat(timespec="seconds").replace("+00:00", "Z")
 
 
 # -- pieces (each usable on its own) -------------------------------------------------------
@@ -529,16 +529,17 @@ def _holds(times: np.ndarray, ref: np.ndarray, seg: np.ndarray | None, schedule:
     for i, s in enumerate(schedule.segments):
         if s.hold_s <= 0:
             continue
-        if entered[i] is None:
+        lo_t, left_t = entered[i], left[i]
+        if lo_t is None:
             out.append(Hold(i, s.name, s.target_c, s.hold_s, 0.0, band_k, None, None, False))
             continue
-        lo_t, hi_t = entered[i], left[i] if left[i] is not None else math.inf
+        hi_t = left_t if left_t is not None else math.inf
         with np.errstate(invalid="ignore"):
             inside = np.abs(ref - s.target_c) <= band_k
         # a gap breaks a stretch: the record cannot show what happened in it
         breaks = np.concatenate([[False], np.diff(times) > max_step_s])
         starts, ends = _runs(inside)
-        best = (0.0, None, None)
+        best: tuple[float, float | None, float | None] = (0.0, None, None)
         for a, b in zip(starts.tolist(), ends.tolist()):
             cut = np.flatnonzero(breaks[a + 1:b]) + a + 1
             edges = [a, *cut.tolist(), b]
@@ -699,8 +700,8 @@ def build_record(inputs: FiringInputs, hold_band_k: float = HOLD_BAND_K, max_ste
         reference = next((n for n in values if not n.startswith("plan.") and "." not in n), None)
     ref = values.get(reference, nan) if reference else nan
     label = ""
-    if site is not None and reference and site.thermocouple(reference):
-        tc = site.thermocouple(reference)
+    tc = site.thermocouple(reference) if site is not None and reference else None
+    if tc is not None:
         label = f"type {tc.type}" + (f", {tc.label}" if tc.label else "")
     control = site.control.name if site is not None and site.control is not None else None
 
@@ -783,7 +784,8 @@ def build_record(inputs: FiringInputs, hold_band_k: float = HOLD_BAND_K, max_ste
     traces: list[Trace] = []
     span = (inputs.start_t, inputs.end_t) if inputs.start_t is not None and inputs.end_t is not None and inputs.end_t > inputs.start_t else None
     if reference and reference in inputs.envelopes:
-        tc_type = site.thermocouple(reference).type if site is not None and site.thermocouple(reference) else ""
+        ref_tc = site.thermocouple(reference) if site is not None else None
+        tc_type = ref_tc.type if ref_tc is not None else ""
         traces.append(Trace(reference, f"{reference} reference thermocouple" + (f", type {tc_type}" if tc_type else ""),
                             *envelope(*inputs.envelopes[reference], chart_buckets, span=span)))
     for py in site.pyrometers if site is not None else ():

@@ -20,7 +20,10 @@ from __future__ import annotations
 # Each inverse range: (e_min_mv, e_max_mv, t_min_c, t_max_c, coefficients d0..dn,
 #                      (error_low_c, error_high_c) published by NIST)
 
-FORWARD: dict[str, tuple[tuple[float, float, tuple[float, ...], tuple[float, float, float] | None], ...]] = {
+ForwardRanges = tuple[tuple[float, float, tuple[float, ...], tuple[float, float, float] | None], ...]
+InverseRanges = tuple[tuple[float, float, float, float, tuple[float, ...], tuple[float, float]], ...]
+
+FORWARD: dict[str, ForwardRanges] = {
     'B': (
         (
             0.0,
@@ -326,7 +329,7 @@ FORWARD: dict[str, tuple[tuple[float, float, tuple[float, ...], tuple[float, flo
     ),
 }
 
-INVERSE: dict[str, tuple[tuple[float, float, float, float, tuple[float, ...], tuple[float, float]], ...]] = {
+INVERSE: dict[str, InverseRanges] = {
     'B': (
         (
             0.291,

@@ -39,6 +39,7 @@ from __future__ import annotations
 
 import csv
 import warnings
+from collections.abc import Callable
 from functools import cached_property
 from pathlib import Path
 
@@ -196,7 +197,7 @@ class Band:
         except ValueError as exc:
             raise ValueError(f"{path}: {exc}") from None
 
-    def weighted(self, factor_fn, name: str | None = None) -> Band:
+    def weighted(self, factor_fn: Callable[[NDArray[np.float64]], ArrayLike], name: str | None = None) -> Band:
         """A new band whose response is multiplied by ``factor_fn(wavelength_m)``.
 
         Used to fold a window's spectral transmission into the band.
@@ -254,7 +255,7 @@ class Band:
         log_t, log_s = self._table
         with np.errstate(divide="ignore", invalid="ignore"):
             lt = np.log(t)
-        out = np.interp(lt, log_t, log_s, left=np.nan, right=np.nan)
+        out: NDArray[np.float64] = np.interp(lt, log_t, log_s, left=np.nan, right=np.nan)  # numpy's stubs type float ufunc results as Any
         _flag_outside(out, t, "temperature (K)", f"{TABLE_T_MIN_K:g}..{TABLE_T_MAX_K:g} K")
         return out
 
@@ -262,7 +263,8 @@ class Band:
         """Invert ln S to T (K) from the table; NaN outside the table's range."""
         ls = np.asarray(log_signal, dtype=float)
         log_t, log_s = self._table
-        return np.exp(np.interp(ls, log_s, log_t, left=np.nan, right=np.nan))
+        t: NDArray[np.float64] = np.exp(np.interp(ls, log_s, log_t, left=np.nan, right=np.nan))  # numpy's stubs type float ufunc results as Any
+        return t
 
     def temperature_k(self, signal: ArrayLike) -> NDArray[np.float64]:
         """Temperature (K) whose band signal is ``signal``; NaN for signal <= 0 or outside the table."""

@@ -68,7 +68,7 @@ See ``DeWitt1988``, ``GUM2008``, ``JCGM101`` and ``Planck1901`` in docs/referenc
 from __future__ import annotations
 
 import warnings
-from typing import Any, overload
+from typing import Any, Literal, overload
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -138,24 +138,31 @@ def correct_single_band(
     indicated_c: ArrayLike, band: Band, emissivity: ArrayLike, transmission: ArrayLike | Window = ...,
     set_emissivity: ArrayLike = ..., set_transmission: ArrayLike = ..., background_c: ArrayLike | None = ...,
     *, emissivity_u: ArrayLike = ..., transmission_u: ArrayLike = ..., instrument_u_c: ArrayLike = ...,
-    background_u_c: ArrayLike = ..., return_uncertainty: bool = ..., check_linearity: bool = ...,
+    background_u_c: ArrayLike = ..., return_uncertainty: Literal[False] = ..., check_linearity: bool = ...,
 ) -> NDArray[np.float64]: ...
+@overload
 def correct_single_band(
-    indicated_c,
-    band,
-    emissivity,
-    transmission=1.0,
-    set_emissivity=1.0,
-    set_transmission=1.0,
-    background_c=None,
+    indicated_c: ArrayLike, band: Band, emissivity: ArrayLike, transmission: ArrayLike | Window = ...,
+    set_emissivity: ArrayLike = ..., set_transmission: ArrayLike = ..., background_c: ArrayLike | None = ...,
+    *, emissivity_u: ArrayLike = ..., transmission_u: ArrayLike = ..., instrument_u_c: ArrayLike = ...,
+    background_u_c: ArrayLike = ..., return_uncertainty: Literal[True], check_linearity: bool = ...,
+) -> tuple[NDArray[np.float64], NDArray[np.float64]]: ...
+def correct_single_band(
+    indicated_c: ArrayLike,
+    band: Band,
+    emissivity: ArrayLike,
+    transmission: ArrayLike | Window = 1.0,
+    set_emissivity: ArrayLike = 1.0,
+    set_transmission: ArrayLike = 1.0,
+    background_c: ArrayLike | None = None,
     *,
-    emissivity_u=0.0,
-    transmission_u=0.0,
-    instrument_u_c=0.0,
-    background_u_c=0.0,
-    return_uncertainty=False,
-    check_linearity=True,
-):
+    emissivity_u: ArrayLike = 0.0,
+    transmission_u: ArrayLike = 0.0,
+    instrument_u_c: ArrayLike = 0.0,
+    background_u_c: ArrayLike = 0.0,
+    return_uncertainty: bool = False,
+    check_linearity: bool = True,
+) -> NDArray[np.float64] | tuple[NDArray[np.float64], NDArray[np.float64]]:
     """True ware temperature from a single-band pyrometer's indicated temperature.
 
     Parameters
@@ -268,7 +275,7 @@ def correct_single_band(
         s_meas_gray / (eps * ds_t) * (u_tau / tau_eff),
         s_meas_gray * _dlog(band, t_ind) / (eps * ds_t) * u_ind,
     ]
-    if background_c is not None:
+    if s_bg is not None:  # a background was given
         ds_bg = s_bg * _dlog(scene_band, t_bg)
         terms.append((1.0 - eps) * ds_bg / (eps * ds_t) * u_bg)
     u = np.sqrt(sum(np.square(x) for x in terms))
@@ -487,17 +494,27 @@ def _log_ratio(band1: Band, band2: Band, t_k: NDArray[np.float64]) -> NDArray[np
     return band1.log_signal(t_k) - band2.log_signal(t_k)
 
 
+@overload
 def correct_ratio(
-    indicated_c,
-    band1,
-    band2,
-    slope,
-    set_slope=1.0,
+    indicated_c: ArrayLike, band1: Band, band2: Band, slope: ArrayLike, set_slope: ArrayLike = ...,
+    *, slope_u: ArrayLike = ..., instrument_u_c: ArrayLike = ..., return_uncertainty: Literal[False] = ...,
+) -> NDArray[np.float64]: ...
+@overload
+def correct_ratio(
+    indicated_c: ArrayLike, band1: Band, band2: Band, slope: ArrayLike, set_slope: ArrayLike = ...,
+    *, slope_u: ArrayLike = ..., instrument_u_c: ArrayLike = ..., return_uncertainty: Literal[True],
+) -> tuple[NDArray[np.float64], NDArray[np.float64]]: ...
+def correct_ratio(
+    indicated_c: ArrayLike,
+    band1: Band,
+    band2: Band,
+    slope: ArrayLike,
+    set_slope: ArrayLike = 1.0,
     *,
-    slope_u=0.0,
-    instrument_u_c=0.0,
-    return_uncertainty=False,
-):
+    slope_u: ArrayLike = 0.0,
+    instrument_u_c: ArrayLike = 0.0,
+    return_uncertainty: bool = False,
+) -> NDArray[np.float64] | tuple[NDArray[np.float64], NDArray[np.float64]]:
     """True ware temperature from a ratio pyrometer's indicated temperature.
 
     Parameters

@@ -20,7 +20,7 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from firewatch.physics.constants import C, C1L, C2, K_B, SIGMA
+from firewatch.physics.constants import C1L, C2, K_B, SIGMA, C
 
 __all__ = [
     "check_wavelength",
@@ -159,4 +159,5 @@ def blackbody_fraction(lambda_t_m_k: ArrayLike, terms: int = 60) -> NDArray[np.f
     x = C2 / lt
     n = np.arange(1, terms + 1, dtype=float).reshape((terms,) + (1,) * x.ndim)
     series = np.exp(-n * x) / n * (x**3 + 3 * x**2 / n + 6 * x / n**2 + 6 / n**3)
-    return 15.0 / np.pi**4 * series.sum(axis=0)
+    fraction: NDArray[np.float64] = 15.0 / np.pi**4 * series.sum(axis=0)  # numpy's stubs type float ufunc results as Any
+    return fraction

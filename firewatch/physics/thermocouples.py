@@ -40,7 +40,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from firewatch.physics._its90_data import FORWARD, INVERSE
+from firewatch.physics._its90_data import FORWARD, INVERSE, ForwardRanges, InverseRanges
 from firewatch.physics._warnings import OutOfRangeWarning, RangeError, exact
 
 __all__ = [
@@ -67,8 +67,8 @@ _NEWTON_STEPS = 4
 
 @dataclass(frozen=True)
 class _TypeInfo:
-    forward: tuple
-    inverse: tuple
+    forward: ForwardRanges
+    inverse: InverseRanges
     t_min: float
     t_max: float
     e_min: float

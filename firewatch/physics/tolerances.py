@@ -152,4 +152,5 @@ def tolerance_uncertainty(tc_type: str, temperature_c: ArrayLike, tolerance_clas
     ----------
     [GUM2008]_ section 4.3.7 (rectangular distribution).
     """
-    return tolerance(tc_type, temperature_c, tolerance_class) / np.sqrt(3.0)
+    u: NDArray[np.float64] = tolerance(tc_type, temperature_c, tolerance_class) / np.sqrt(3.0)  # numpy's stubs type float ufunc results as Any
+    return u

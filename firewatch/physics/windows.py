@@ -174,6 +174,10 @@ def spectral_transmission(mat: WindowMaterial | str, wavelength_m: ArrayLike) ->
     return slab_transmission(refractive_index(m, lam)) * edge
 
 
+_WindowKey = tuple[str | None, tuple[tuple[float, ...], tuple[float, ...]] | None]
+"""What identifies a clean window: its material's name, or its measured curve."""
+
+
 @dataclass(frozen=True, eq=False)
 class Window:
     """A sight window: a material or a measured curve, times a gray fouling factor.
@@ -237,7 +241,7 @@ class Window:
         return hash((self._key, np.asarray(self.fouling).tobytes()))
 
     @property
-    def _key(self) -> tuple:
+    def _key(self) -> _WindowKey:
         """What identifies the clean window: its material's name, or its measured curve."""
         return (self._mat.name if self._mat is not None else None, self.measured)
 
@@ -254,12 +258,14 @@ class Window:
         lam = check_wavelength(wavelength_m)
         if self.measured is not None:
             wl, tau = self.measured
-            return np.interp(lam * 1e6, wl, tau)
+            tau_lam: NDArray[np.float64] = np.interp(lam * 1e6, wl, tau)  # numpy's stubs type float ufunc results as Any
+            return tau_lam
         return spectral_transmission(self._mat, lam)  # type: ignore[arg-type]
 
     def transmission(self, wavelength_m: ArrayLike) -> NDArray[np.float64]:
         """Spectral transmission including the fouling factor (an array of factors broadcasts against the wavelengths)."""
-        return self.clean_transmission(wavelength_m) * np.asarray(self.fouling)
+        tau: NDArray[np.float64] = self.clean_transmission(wavelength_m) * np.asarray(self.fouling)  # numpy's stubs type this as Any
+        return tau
 
     def through(self, band: Band) -> Band:
         """The band as seen through the clean window (fouling stays a separate gray factor).
@@ -275,7 +281,7 @@ class Window:
         return per_band[key]
 
 
-_THROUGH: "weakref.WeakKeyDictionary[Band, dict[tuple, Band]]" = weakref.WeakKeyDictionary()
+_THROUGH: weakref.WeakKeyDictionary[Band, dict[_WindowKey, Band]] = weakref.WeakKeyDictionary()
 
 
 def band_effective_transmission(band: Band, window: Window, temperature_k: ArrayLike) -> NDArray[np.float64]:
@@ -290,4 +296,6 @@ def band_effective_transmission(band: Band, window: Window, temperature_k: Array
     0.9343
     """
     t = check_temperature(temperature_k)
-    return window.through(band).signal(t) / band.signal(t) * np.asarray(window.fouling, dtype=float)
+    # numpy's stubs type float ufunc results as Any
+    tau_eff: NDArray[np.float64] = window.through(band).signal(t) / band.signal(t) * np.asarray(window.fouling, dtype=float)
+    return tau_eff

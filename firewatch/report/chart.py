@@ -6,10 +6,13 @@ its colour, gaps are hatched, and alarms are numbered as in the alarm list.
 
 from __future__ import annotations
 
+from typing import TypedDict
+
 import numpy as np
 from matplotlib import dates as mdates
 from matplotlib.axes import Axes
 from matplotlib.figure import Figure
+from numpy.typing import ArrayLike
 
 from firewatch.firing.record import ChartData
 from firewatch.report.text import Clock, Units
@@ -17,7 +20,13 @@ from firewatch.settings.units import from_celsius
 
 __all__ = ["axes_rect", "chart_figure", "draw_chart"]
 
-_STYLES = (
+class _Style(TypedDict):
+    color: str
+    linestyle: str | tuple[float, tuple[float, ...]]
+    linewidth: float
+
+
+_STYLES: tuple[_Style, ...] = (
     {"color": "#1a1a1a", "linestyle": "-", "linewidth": 1.3},
     {"color": "#c0392b", "linestyle": (0, (6, 1.5, 1.5, 1.5)), "linewidth": 1.0},
     {"color": "#1f5fa8", "linestyle": (0, (1.5, 1.2)), "linewidth": 1.2},
@@ -27,9 +36,14 @@ _STYLES = (
 _PRIORITY_COLOUR = {"high": "#c0392b", "medium": "#d35400", "low": "#b7950b"}
 
 
-def _days(t: np.ndarray | float) -> np.ndarray:
+def _days(t: np.ndarray) -> np.ndarray:
     """UTC seconds to matplotlib's date numbers (days since 1970-01-01, its default epoch)."""
     return np.asarray(t, dtype=float) / 86400.0
+
+
+def _day(t: float) -> float:
+    """One UTC time to matplotlib's date number (as :func:`_days`)."""
+    return float(t) / 86400.0
 
 
 def draw_chart(ax: Axes, chart: ChartData, clock: Clock, units: Units, font_pt: float = 7.0) -> None:
@@ -48,15 +62,16 @@ def draw_chart(ax: Axes, chart: ChartData, clock: Clock, units: Units, font_pt: 
         t1 = max(t1, min(float(chart.plan_t[-1]), t0 + 1.5 * (t1 - t0)))
     for cr in chart.critical:
         ax.axhspan(float(conv(cr.low_c)), float(conv(cr.high_c)), color="#f5cba7", alpha=0.55, linewidth=0, zorder=0)
-        ax.text(_days(t0 + 0.005 * (t1 - t0)), float(conv(cr.high_c)), f"{cr.name}, ≤ {units.rate(cr.max_rate_c_per_h)}",
+        ax.text(_day(t0 + 0.005 * (t1 - t0)), float(conv(cr.high_c)), f"{cr.name}, ≤ {units.rate(cr.max_rate_c_per_h)}",
                 fontsize=font_pt - 1, va="bottom", ha="left", color="#935116", zorder=1)
     first_gap = True
     for a, b in chart.gaps:
-        ax.axvspan(_days(a), _days(max(b, a + 0.002 * (t1 - t0))), facecolor="none", edgecolor="#7f7f7f", hatch="////",
+        ax.axvspan(_day(a), _day(max(b, a + 0.002 * (t1 - t0))), facecolor="none", edgecolor="#7f7f7f", hatch="////",
                    linewidth=0.4, zorder=1, label="gap in the record" if first_gap else None)
         first_gap = False
     if chart.plan_t.size:
-        ax.plot(_days(chart.plan_t), conv(chart.plan_c), color="#7f7f7f", linestyle=(0, (5, 3)), linewidth=1.0, label="plan (the schedule from the start)", zorder=2)
+        ax.plot(_days(chart.plan_t), conv(chart.plan_c), color="#7f7f7f", linestyle=(0, (5, 3)), linewidth=1.0,
+                label="plan (the schedule from the start)", zorder=2)
     for i, tr in enumerate(chart.traces):
         style = _STYLES[i % len(_STYLES)]
         # the reference (first) is drawn on top: the pyrometers should agree with it and would hide it
@@ -64,11 +79,11 @@ def draw_chart(ax: Axes, chart: ChartData, clock: Clock, units: Units, font_pt: 
     lo, hi = ax.get_ylim()
     for t, alarm_id, priority in chart.alarms:
         colour = _PRIORITY_COLOUR.get(priority, "#555555")
-        ax.axvline(_days(t), color=colour, linewidth=0.5, linestyle=":", zorder=2)
-        ax.annotate(str(alarm_id), (_days(t), 1.0), xycoords=("data", "axes fraction"), xytext=(0, 1), textcoords="offset points",
+        ax.axvline(_day(t), color=colour, linewidth=0.5, linestyle=":", zorder=2)
+        ax.annotate(str(alarm_id), (_day(t), 1.0), xycoords=("data", "axes fraction"), xytext=(0, 1), textcoords="offset points",
                     ha="center", va="bottom", fontsize=font_pt - 1, color=colour, fontweight="bold", annotation_clip=False)
     ax.set_ylim(min(lo, float(conv(0.0))), hi + 0.04 * (hi - lo))
-    ax.set_xlim(_days(t0), _days(t1))
+    ax.set_xlim(_day(t0), _day(t1))
     locator = mdates.AutoDateLocator(tz=clock.zone, minticks=5, maxticks=12)
     formatter = mdates.ConciseDateFormatter(locator, tz=clock.zone, show_offset=False,
                                             formats=["%Y", "%b", "%a %d %b", "%H:%M", "%H:%M", "%S.%f"],
@@ -79,7 +94,13 @@ def draw_chart(ax: Axes, chart: ChartData, clock: Clock, units: Units, font_pt: 
     ax.set_xlabel(f"clock time, {clock.name}" + (f" ({zone})" if zone != clock.name else ""), fontsize=font_pt)
     ax.set_ylabel(f"temperature ({units.symbol})", fontsize=font_pt)
     ax.grid(True, color="#dddddd", linewidth=0.4, zorder=0)
-    hours = ax.secondary_xaxis("top", functions=(lambda d: (d * 86400.0 - t0) / 3600.0, lambda h: (h * 3600.0 + t0) / 86400.0))
+    def to_hours(d: ArrayLike) -> np.ndarray:
+        return (np.asarray(d, dtype=float) * 86400.0 - t0) / 3600.0
+
+    def to_days(h: ArrayLike) -> np.ndarray:
+        return (np.asarray(h, dtype=float) * 3600.0 + t0) / 86400.0
+
+    hours = ax.secondary_xaxis("top", functions=(to_hours, to_days))
     hours.tick_params(labelsize=font_pt - 1)
     hours.set_xlabel("hours from the start", fontsize=font_pt - 1)
     for side in ("top", "right"):

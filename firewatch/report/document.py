@@ -191,12 +191,14 @@ def build_document(record: FiringRecord, clock: Clock, units: Units, now: float 
     if r.start_t is not None:
         summary.add(["Gaps in the record", "none" if not r.gaps else f"{len(r.gaps)}, {duration(r.gap_total_s)} in all", "", ""])
         summary.add(["Malformed lines", f"{r.malformed:,} of {r.lines:,}".replace(",", " "), "", ""])
-        by = {}
+        by: dict[str, int] = {}
         for a in r.alarms:
             by[a.priority] = by.get(a.priority, 0) + 1
-        words = ", ".join(f"{n} {p}" for p, n in sorted(by.items(), key=lambda x: ("high", "medium", "low").index(x[0]) if x[0] in ("high", "medium", "low") else 3))
+        order = ("high", "medium", "low")
+        words = ", ".join(f"{n} {p}" for p, n in sorted(by.items(), key=lambda x: order.index(x[0]) if x[0] in order else len(order)))
         open_now = [a for a in r.alarms if a.state != "normal"]
-        summary.add(["Alarms", "none" if not r.alarms else f"{len(r.alarms)} ({words})" + (f"; {len(open_now)} not back to normal at the end" if open_now else ""), "", ""])
+        still = f"; {len(open_now)} not back to normal at the end" if open_now else ""
+        summary.add(["Alarms", "none" if not r.alarms else f"{len(r.alarms)} ({words}){still}", "", ""])
         summary.add(["Operator notes", str(len(r.notes)) if r.notes else "none", "", ""])
     blocks.append(summary)
 
@@ -220,10 +222,11 @@ def build_document(record: FiringRecord, clock: Clock, units: Units, now: float 
     # -- sessions and gaps -------------------------------------------------------------------
     sess = Table("Recorder sessions", [("#", 0.04, "r"), ("started", 0.17, "l"), ("ended", 0.17, "l"), ("how it ended", 0.22, "l"),
                                        ("input", 0.22, "l"), ("host, firewatch", 0.18, "l")], empty="no sessions recorded")
-    for s in r.sessions:
-        sess.add([str(s.index), clock.stamp(s.started_t), clock.stamp(s.ended_t) if s.ended_t is not None else "—",
-                  s.end_reason or "no end recorded (still recording, or stopped without closing)", s.port, f"{s.host}, {s.version}"],
-                 mark=s.ended_t is None)
+    for session in r.sessions:
+        sess.add([str(session.index), clock.stamp(session.started_t), clock.stamp(session.ended_t) if session.ended_t is not None else "—",
+                  session.end_reason or "no end recorded (still recording, or stopped without closing)", session.port,
+                  f"{session.host}, {session.version}"],
+                 mark=session.ended_t is None)
     blocks.append(sess)
     gaps = Table("Gaps in the record", [("from", 0.22, "l"), ("to", 0.22, "l"), ("length", 0.16, "r"), ("reason", 0.40, "l")],
                  empty="none: readings throughout")
@@ -238,25 +241,26 @@ def build_document(record: FiringRecord, clock: Clock, units: Units, now: float 
 
     # -- alarms and their lifecycle ------------------------------------------------------------
     alarms = Table("Alarms and what was done about them", [("#", 0.05, "r"), ("time", 0.16, "l"), ("state", 0.26, "l"), ("detail", 0.53, "l")],
-                   empty="none raised", note="States follow ISA-18.2. Shelving hides an alarm for a time, with a reason; it returns if its condition still holds.")
+                   empty="none raised",
+                   note="States follow ISA-18.2. Shelving hides an alarm for a time, with a reason; it returns if its condition still holds.")
     for a in r.alarms:
         cause = "" if not a.cause else (f", likely cause {a.cause}" if a.kind == "divergence" else f" ({a.cause})")
         what = f"{PRIORITY_WORDS.get(a.priority, a.priority)} {a.kind}" + (f" {a.channel}" if a.channel else "") + cause
         alarms.add([f"{a.id}", clock.stamp(a.raised_t), what, a.message], mark=True, group=True)
-        for s in a.steps[1:] if a.steps and a.steps[0].state == "active-unacknowledged" else a.steps:
-            state, detail = STATE_WORDS.get(s.state, s.state), s.detail
-            if s.state == "shelved" and s.by:
-                detail = f"by {s.by} until {clock.stamp(s.until_t, False)}; reason: {s.reason or 'none given'}"
-            elif s.detail.startswith("acknowledged") and s.by:
-                state = "acknowledged" + (", back to normal" if s.state == "normal" else ", still active")
-                detail = f"by {s.by}"
-            alarms.add(["", clock.stamp(s.t), state, detail])
+        for step in a.steps[1:] if a.steps and a.steps[0].state == "active-unacknowledged" else a.steps:
+            state, detail = STATE_WORDS.get(step.state, step.state), step.detail
+            if step.state == "shelved" and step.by:
+                detail = f"by {step.by} until {clock.stamp(step.until_t, False)}; reason: {step.reason or 'none given'}"
+            elif step.detail.startswith("acknowledged") and step.by:
+                state = "acknowledged" + (", back to normal" if step.state == "normal" else ", still active")
+                detail = f"by {step.by}"
+            alarms.add(["", clock.stamp(step.t), state, detail])
         if a.state != "normal":
             alarms.add(["", "at the end", STATE_WORDS.get(a.state, a.state), _END_WORDS.get(a.state, "not back to normal")], mark=True)
     blocks.append(alarms)
     notes = Table("Operator notes", [("time", 0.16, "l"), ("note", 0.56, "l"), ("by", 0.28, "l")], empty="none")
-    for n in r.notes:
-        notes.add([clock.stamp(n.t), n.text, n.source])
+    for op_note in r.notes:
+        notes.add([clock.stamp(op_note.t), op_note.text, op_note.source])
     blocks.append(notes)
 
     produced_t = now if now is not None else dt.datetime.now(dt.UTC).timestamp()

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import datetime as dt
 from pathlib import Path
+from typing import Any
 
 import matplotlib
 from matplotlib import font_manager, ft2font
@@ -45,9 +46,9 @@ class _Measure:
     SAFETY = 1.01
 
     def __init__(self) -> None:
-        self._fonts: dict[tuple[bool, str | None], tuple[object, dict[str, float]]] = {}
+        self._fonts: dict[tuple[bool, str | None], tuple[ft2font.FT2Font, dict[str, float]]] = {}
 
-    def _font(self, bold: bool, family: str | None) -> tuple[object, dict[str, float]]:
+    def _font(self, bold: bool, family: str | None) -> tuple[ft2font.FT2Font, dict[str, float]]:
         key = (bold, family)
         if key not in self._fonts:
             path = font_manager.findfont(FontProperties(weight="bold" if bold else "normal", family=family))
@@ -123,8 +124,10 @@ class _Pages:
 
     def text(self, x: float, y: float, s: str, size: float = BODY_PT, bold: bool = False, colour: str = "black",
              ha: str = "left", family: str | None = None) -> None:
+        # family only when given: otherwise the rc default, as a Text made without one
+        extra: dict[str, Any] = {"family": family} if family else {}
         self.fig.text(x / self.w, 1.0 - y / self.h, s, fontsize=size, fontweight="bold" if bold else "normal",
-                      color=colour, ha=ha, va="top", parse_math=False, **({"family": family} if family else {}))
+                      color=colour, ha=ha, va="top", parse_math=False, **extra)
 
     def rule(self, y: float, x0: float | None = None, x1: float | None = None, width: float = 0.4, colour: str = "#999999") -> None:
         x0 = MARGIN if x0 is None else x0

@@ -147,7 +147,7 @@ def start_client(url: BrokerURL, *, client_id: str = "", username: str = "", pas
     try:
         import paho.mqtt.client as mqtt
     except ImportError:
-        raise RuntimeError("MQTT needs paho-mqtt: pip install 'firewatch[mqtt]'") from None
+        raise RuntimeError("MQTT needs paho-mqtt: pip install 'firewatch-kiln[mqtt]'") from None
     client = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id=client_id)
     if username:
         client.username_pw_set(username, os.environ.get(password_env) or None)

@@ -13,10 +13,12 @@ from __future__ import annotations
 
 import math
 import struct
+from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, Protocol
 
 from firewatch.settings._tomlcheck import TomlReader, in_range, one_of
+from firewatch.settings._tomllines import KeyPath
 from firewatch.transport.modbus import TABLES, TYPES, RegisterMap
 from firewatch.transport.modbus_poll import parse_host_port
 
@@ -36,6 +38,20 @@ _STATUS_KEYS = ("error", "open", "under", "over")
 _INT_RANGES = {"int16": (-(1 << 15), (1 << 15) - 1), "uint16": (0, (1 << 16) - 1), "int32": (-(1 << 31), (1 << 31) - 1), "uint32": (0, (1 << 32) - 1)}
 
 
+class _Channel(Protocol):
+    """A profile's channel as read (settings/profile.py's tables, which import this module)."""
+
+    @property
+    def name(self) -> str: ...
+
+
+class _MeasuredChannel(_Channel, Protocol):
+    """A thermocouple as read: its name and the unit its input gives (``"mV"`` or ``"C"``)."""
+
+    @property
+    def unit(self) -> str: ...
+
+
 @dataclass(frozen=True)
 class ModbusInput:
     """A site's Modbus input, validated."""
@@ -51,7 +67,7 @@ class ModbusInput:
     device_time: RegisterMap | None = None
 
 
-def _number_list(reader: TomlReader, table: dict, path: tuple, key: str, kind: str) -> tuple[float, ...]:
+def _number_list(reader: TomlReader, table: dict[str, Any], path: KeyPath, key: str, kind: str) -> tuple[float, ...]:
     value = table.get(key, [])
     if not isinstance(value, list) or not all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in value):
         reader.problem(path + (key,), f"expected an array of raw register values, got {value!r}")
@@ -69,10 +85,11 @@ def _number_list(reader: TomlReader, table: dict, path: tuple, key: str, kind: s
 
 
 def _float32(x: float) -> float:
-    return struct.unpack(">f", struct.pack(">f", x))[0]
+    value: float = struct.unpack(">f", struct.pack(">f", x))[0]
+    return value
 
 
-def _register_map(reader: TomlReader, spec: Any, path: tuple, name: str, protocol: str, keys: set[str]) -> RegisterMap | None:
+def _register_map(reader: TomlReader, spec: Any, path: KeyPath, name: str, protocol: str, keys: set[str]) -> RegisterMap | None:
     """One register map, every problem reported; None when unusable."""
     if not isinstance(spec, dict):
         reader.problem(path, "expected a table")
@@ -129,9 +146,9 @@ def _register_map(reader: TomlReader, spec: Any, path: tuple, name: str, protoco
     )
 
 
-def _check_layout(reader: TomlReader, maps: list[tuple[RegisterMap, tuple]]) -> None:
+def _check_layout(reader: TomlReader, maps: list[tuple[RegisterMap, KeyPath]]) -> None:
     """Overlapping registers, and 32-bit values whose alignment differs from their neighbours'."""
-    by_table: dict[tuple[int, str], list[tuple[RegisterMap, tuple]]] = {}
+    by_table: dict[tuple[int, str], list[tuple[RegisterMap, KeyPath]]] = {}
     for m, path in maps:
         by_table.setdefault((m.unit_id, m.table), []).append((m, path))
     for (unit, table), items in by_table.items():
@@ -163,9 +180,9 @@ def read_modbus_input(
     reader: TomlReader,
     inp: dict[str, Any],
     fmt: str | None,
-    thermocouples: list | tuple = (),
-    pyrometers: list | tuple = (),
-    cold_junctions: list | tuple = (),
+    thermocouples: Sequence[_MeasuredChannel] = (),
+    pyrometers: Sequence[_Channel] = (),
+    cold_junctions: Sequence[str] = (),
 ) -> ModbusInput | None:
     """Read and check a Modbus ``[input]``; None for other formats (whose stray Modbus keys are reported).
 
@@ -189,7 +206,7 @@ def read_modbus_input(
     timeout_s = reader.get(inp, path, "timeout_s", float, default=0.5, check=in_range(0.0, 60.0, lo_open=True))
     retries = reader.get(inp, path, "retries", int, default=2, check=in_range(0, 10))
     channels = inp.get("channels")
-    maps: list[tuple[RegisterMap, tuple]] = []
+    maps: list[tuple[RegisterMap, KeyPath]] = []
     if not isinstance(channels, dict) or not channels:
         reader.problem(path + ("channels",), f"format {fmt!r} needs [input.channels.NAME] tables mapping registers to channels")
         channels = {}
@@ -206,7 +223,8 @@ def read_modbus_input(
             reader.problem(tpath + ("type",), "the device's clock needs int32 or uint32 (UTC seconds); 16 bits overflow and float32 rounds to minutes")
             device_time = None
     if inp.get("clock") == "device" and "device_time" not in inp:
-        reader.problem(path + ("clock",), "clock = \"device\" needs [input.device_time], the register holding the device's clock: a poll carries no time of its own")
+        reader.problem(path + ("clock",), "clock = \"device\" needs [input.device_time], the register holding the device's clock: "
+                       "a poll carries no time of its own")
     _check_layout(reader, maps + ([(device_time, path + ("device_time",))] if device_time is not None else []))
     _check_channels(reader, maps, set(channels), thermocouples, pyrometers, cold_junctions)
     return ModbusInput(
@@ -215,7 +233,8 @@ def read_modbus_input(
     )
 
 
-def _check_channels(reader: TomlReader, maps: list[tuple[RegisterMap, tuple]], given: set[str], thermocouples, pyrometers, cold_junctions) -> None:
+def _check_channels(reader: TomlReader, maps: list[tuple[RegisterMap, KeyPath]], given: set[str],
+                    thermocouples: Sequence[_MeasuredChannel], pyrometers: Sequence[_Channel], cold_junctions: Sequence[str]) -> None:
     """Every map names a channel of the profile with a unit that agrees; every measured channel is mapped."""
     tcs = {t.name: t for t in thermocouples}
     pys = {p.name for p in pyrometers}
@@ -224,7 +243,8 @@ def _check_channels(reader: TomlReader, maps: list[tuple[RegisterMap, tuple]], g
         if m.channel in tcs:
             want = tcs[m.channel].unit
             if want == "mV" and m.unit != "mV":
-                reader.problem(path + ("unit",), f"unit {m.unit!r} disagrees with [[thermocouple]] {m.channel}'s unit 'mV' (EMF); the map's unit is what the register holds")
+                reader.problem(path + ("unit",), f"unit {m.unit!r} disagrees with [[thermocouple]] {m.channel}'s unit 'mV' (EMF); "
+                               "the map's unit is what the register holds")
             elif want == "C" and m.unit == "mV":
                 reader.problem(path + ("unit",), f"unit 'mV' disagrees with [[thermocouple]] {m.channel}'s unit 'C'; the map's unit is what the register holds")
         elif m.channel in pys or m.channel in cjs:

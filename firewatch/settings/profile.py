@@ -290,7 +290,8 @@ INPUT_FIELDS = (
     Field("time_field", str, None, help="`csv`, `keyvalue`: the field holding the device's time, seconds"),
     Field("pair_separator", str, None, shown_default="white space", help="`keyvalue`: between pairs"),
     Field("kv_separator", str, None, shown_default='`"="`', help="`keyvalue`: between key and value"),
-    Field("channels", dict, None, help="`csv`, `keyvalue`, Modbus: one `[input.channels.NAME]` table per channel (below; Modbus maps in [modbus.md](modbus.md))"),
+    Field("channels", dict, None,
+          help="`csv`, `keyvalue`, Modbus: one `[input.channels.NAME]` table per channel (below; Modbus maps in [modbus.md](modbus.md))"),
     # Modbus (read and checked by settings/modbus_map.py; listed here so that they are known keys and documented)
     Field("port", str, None, help="Modbus: the serial device (`modbus-rtu`) or `HOST:PORT` (`modbus-tcp`) when `--port` is not given"),
     Field("poll_s", float, None, shown_default="1.0", help="Modbus: seconds between polls (one reading set per poll)"),
@@ -337,7 +338,9 @@ PYROMETER_FIELDS = (
     Field("band_um", None, None, _BAND, convert=_floats, missing="give [START_UM, END_UM]", help="`[start, end]` in µm (band 1 of a ratio instrument)"),
     Field("band2_um", None, None, _BAND, convert=_floats, missing="give [START_UM, END_UM]", help="ratio: the longer band"),
     Field("band_file", str, None, help="instead of `band_um`: a CSV of wavelength (µm) and relative response, beside the profile"),
-    Field("set_emissivity", float, 1.0, _FRACTION, help="the instrument's own emissivity setting (single band); `firewatch tune --apply` writes the setting that makes the instrument read the reference, to be dialled into the instrument too"),
+    Field("set_emissivity", float, 1.0, _FRACTION,
+          help="the instrument's own emissivity setting (single band); `firewatch tune --apply` writes the setting "
+               "that makes the instrument read the reference, to be dialled into the instrument too"),
     Field("set_transmission", float, 1.0, _FRACTION, help="the instrument's own transmission setting (single band)"),
     Field("set_slope", float, 1.0, _POSITIVE, help="the instrument's emissivity slope setting (ratio)"),
     Field("emissivity", float, 1.0, _FRACTION, help="what is known of the ware's emissivity in the band (tune it with `firewatch tune`)"),

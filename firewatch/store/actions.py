@@ -278,7 +278,8 @@ class ActionQueue:
         self.con.close()
 
     def submit(self, kind: str, *, alarm_id: int | None = None, reason: str = "", duration_s: float | None = None,
-               text: str = "", source: str | None = None, about_t: float | None = None, clock=time.time) -> int:
+               text: str = "", source: str | None = None, about_t: float | None = None,
+               clock: Callable[[], float] = time.time) -> int:
         """Queue an action for the recorder; returns its id. ``ValueError`` for an incomplete action."""
         check_action(kind, alarm_id, reason, duration_s, text)
         cur = self.con.execute(
@@ -294,7 +295,7 @@ class ActionQueue:
         """One action as it was queued (None if there is no such row)."""
         return next(iter(self._select("id = ?", (action_id,))), None)
 
-    def _select(self, where: str, params: tuple) -> list[Action]:
+    def _select(self, where: str, params: tuple[Any, ...]) -> list[Action]:
         rows = self.con.execute(
             "SELECT id, submitted_utc, kind, alarm_id, coalesce(reason, ''), duration_s, coalesce(text, ''), source, about_t "
             f"FROM action WHERE {where} ORDER BY id", params
@@ -302,7 +303,7 @@ class ActionQueue:
         return [Action(r[2], r[7], alarm_id=r[3], reason=r[4], duration_s=r[5], text=r[6], about_t=r[8], id=r[0],
                        submitted_utc=r[1]) for r in rows]
 
-    def mark_applied(self, action_id: int, result: str, clock=time.time) -> bool:
+    def mark_applied(self, action_id: int, result: str, clock: Callable[[], float] = time.time) -> bool:
         """Record the result of a pending action; False if it had been applied already."""
         cur = self.con.execute("UPDATE action SET applied_utc = ?, result = ? WHERE id = ? AND applied_utc IS NULL",
                                (clock(), result, action_id))

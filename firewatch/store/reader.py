@@ -12,7 +12,7 @@ from typing import Any
 import numpy as np
 
 from firewatch.firing.pipeline import ChannelInfo
-from firewatch.store._common import SCHEMA_VERSION, LogDamaged, LogError, _connect, log_error, STORAGE_CODES, LogUnavailable
+from firewatch.store._common import SCHEMA_VERSION, STORAGE_CODES, LogDamaged, LogError, LogUnavailable, _connect, log_error
 
 __all__ = ["Series", "LogReader", "open_reader"]
 
@@ -67,7 +67,7 @@ class LogReader:
     def __exit__(self, *exc: object) -> None:
         self.close()
 
-    def query(self, sql: str, params: Iterable[Any] = ()) -> list[tuple]:
+    def query(self, sql: str, params: Iterable[Any] = ()) -> list[tuple[Any, ...]]:
         """Rows of one statement; a SQLite failure becomes a :class:`LogError` naming the file
         (:class:`LogDamaged` when SQLite finds the file damaged)."""
         try:

@@ -140,9 +140,9 @@ def _read_record(reader: LogReader, site: SiteProfile | None, schedule: Schedule
     if cols.times is None:
         cols._sample()
     times = cols.times if cols.times is not None else np.empty(0)
-    envelopes = {}
+    envelopes: dict[str, tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
     reference = site.reference.name if site is not None and site.reference is not None else None
-    for name in [reference] + [f"{py.name}.reconciled" for py in (site.pyrometers if site is not None else ())]:
+    for name in ([reference] if reference is not None else []) + [f"{py.name}.reconciled" for py in (site.pyrometers if site is not None else ())]:
         if name in ids:
             rows = reader.query("SELECT minute * 60.0 + 30.0, lo, hi FROM trend_minute WHERE channel_id = ? ORDER BY minute", (ids[name],))
             arr = np.array(rows, dtype=float).reshape(-1, 3)

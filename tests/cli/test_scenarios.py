@@ -14,7 +14,6 @@ from firewatch.services.replay import profiles_from_log
 from firewatch.settings.profile import profiles_dir
 from firewatch.simulator.scenario import BUILT_IN, load_scenario
 from firewatch.store.reader import LogReader
-
 from tests.e2e.helpers import ROOT, env, wait_for
 
 
@@ -57,7 +56,7 @@ def test_sim_by_name_equals_sim_by_file() -> None:
     ("argv", "fragment"),
     [
         (["sim", "--scenario", "no-such", "--stdout"], "--scenario: no-such: no such file, and no built-in scenario of that name"),
-        (["sim"], "one of --tcp, --pty, --stdout or --to-log is required"),
+        (["sim"], "one of --tcp, --pty, --stdout, --to-log or --modbus-tcp is required"),
         (["demo", "--scenario", "no-such"], "--scenario: no-such: no such file"),
     ],
 )

@@ -75,6 +75,19 @@ def samples(log: Path) -> int:
         return 0
 
 
+def readable(log: Path) -> bool:
+    """The recorder has made ``log`` a firing log a reader opens: it writes the schema, then its version, in two
+    transactions, and a reader between them (or before) finds no firing log yet."""
+    from firewatch.store._common import LogError
+    from firewatch.store.reader import LogReader
+
+    try:
+        with LogReader(log):
+            return True
+    except LogError:
+        return False
+
+
 def stop(proc: subprocess.Popen, sig: int = signal.SIGTERM, timeout: float = 20.0) -> tuple[str, str]:
     if proc.poll() is None:
         proc.send_signal(sig)

@@ -12,11 +12,10 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
-from firewatch.simulator.run import Simulation
-from firewatch.simulator.scenario import load_scenario, parse_fault
-
 from firewatch.firing.pipeline import Pipeline, channel_table
 from firewatch.services.recorder import Ingest, Recorder, attach_alarms, warm_start
+from firewatch.simulator.run import Simulation
+from firewatch.simulator.scenario import load_scenario, parse_fault
 from firewatch.store.actions import ActionQueue
 from firewatch.store.writer import LogWriter
 from firewatch.transport.native import NativeParser

@@ -24,7 +24,6 @@ import pytest
 
 from firewatch.simulator.run import Simulation
 from firewatch.simulator.scenario import load_scenario
-
 from tests.e2e.helpers import firewatch, run, samples, start_sim_tcp, stop, wait_for
 
 

@@ -11,12 +11,12 @@ from pathlib import Path
 
 import pytest
 
-from firewatch.store.reader import LogReader
 from firewatch.settings.profile import profiles_dir
 from firewatch.settings.schedule import load_schedule
 from firewatch.simulator import serve
 from firewatch.simulator.run import Simulation
 from firewatch.simulator.scenario import load_scenario, parse_fault
+from firewatch.store.reader import LogReader
 
 DATA = Path(__file__).resolve().parents[1] / "data"
 FAULT_AT_MIN = 600  # about 1000 degC into the demo glaze firing

@@ -7,15 +7,14 @@ this process so that its line queue can be made small.
 
 from __future__ import annotations
 
-import io
 import logging
-
-import pytest
 import signal
 import socket
 import sqlite3
 import threading
 from pathlib import Path
+
+import pytest
 
 from firewatch.services.recorder import ITEM_BYTES, Recorder
 from firewatch.settings.profile import load_site, profiles_dir
@@ -23,7 +22,6 @@ from firewatch.settings.schedule import load_schedule
 from firewatch.store._common import LogError
 from firewatch.store.reader import LogReader
 from firewatch.transport.native import crc16
-
 from tests.e2e.helpers import firewatch, stop, wait_for
 
 T0 = 1_773_464_400.0

@@ -16,7 +16,6 @@ import pytest
 
 from firewatch.settings.profile import profiles_dir
 from firewatch.store.reader import LogReader
-
 from tests.e2e.helpers import firewatch, free_port, inspect, run, samples, stop, wait_for
 
 PROFILES = profiles_dir()

@@ -13,11 +13,10 @@ from pathlib import Path
 
 import pytest
 
-from firewatch.store.reader import LogReader
 from firewatch.settings.profile import profiles_dir
-
+from firewatch.store.reader import LogReader
+from tests.e2e.helpers import firewatch, free_port, readable, start_sim_tcp, stop, wait_for
 from tests.ui.helpers import settle
-from tests.e2e.helpers import firewatch, free_port, start_sim_tcp, stop, wait_for
 
 MOSQUITTO = shutil.which("mosquitto") or ("/usr/sbin/mosquitto" if Path("/usr/sbin/mosquitto").exists() else None)
 pytestmark = pytest.mark.skipif(MOSQUITTO is None, reason="mosquitto is installed by .ci/run")
@@ -187,12 +186,13 @@ def test_actions_over_mqtt_only_when_enabled(tmp_path: Path, broker: Broker, acc
                     "--site", str(_site(tmp_path, accept)), "--mqtt", f"mqtt://127.0.0.1:{broker.port}/{p}")
     try:
         def alarm_id():
-            if not log.exists():
-                return None
             with LogReader(log) as r:
                 rows = r.query("SELECT id FROM alarm")
                 return rows[0][0] if rows else None
 
+        # not before the recorder has made the log a firing log: a reader racing its creation
+        # finds "not a firing log" (the flaky failure this wait removes)
+        wait_for(lambda: readable(log), timeout=40)
         aid = wait_for(alarm_id, timeout=40)
         time.sleep(1.0)
         client = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id="shift-lead")

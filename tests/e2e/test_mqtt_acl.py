@@ -28,7 +28,6 @@ import pytest
 
 from firewatch.settings.profile import profiles_dir
 from firewatch.store.reader import LogReader
-
 from tests.e2e.helpers import ROOT, env, free_port, start_sim_tcp, stop, wait_for
 
 MOSQUITTO = shutil.which("mosquitto") or ("/usr/sbin/mosquitto" if Path("/usr/sbin/mosquitto").exists() else None)

@@ -13,7 +13,6 @@ import pytest
 from firewatch.store.reader import LogReader
 from firewatch.transport.native import encode
 from firewatch.transport.records import Value
-
 from tests.e2e.helpers import firewatch, free_port, inspect, run, samples, start_sim_tcp, stop, wait_for
 
 

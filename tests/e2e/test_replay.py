@@ -7,7 +7,6 @@ import json
 from pathlib import Path
 
 from firewatch.settings.profile import profiles_dir
-
 from tests.e2e.helpers import inspect, run
 
 

@@ -20,7 +20,6 @@ from firewatch.store.view import FiringView
 from firewatch.transport.framing import LineFramer
 from firewatch.transport.native import NativeParser
 from firewatch.transport.records import ReadingSet
-
 from tests.e2e.helpers import firewatch, start_sim_tcp, stop, wait_for
 
 SCHEDULE = load_schedule(profiles_dir() / "demo-glaze.toml")  # the recorder's default schedule

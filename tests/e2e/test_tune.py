@@ -19,7 +19,6 @@ from firewatch.simulator import serve
 from firewatch.simulator.run import Simulation
 from firewatch.simulator.scenario import load_scenario, parse_fault
 from firewatch.store.reader import LogReader
-
 from tests.e2e.helpers import run
 
 DATA = Path(__file__).resolve().parents[1] / "data"

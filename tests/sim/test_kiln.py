@@ -9,11 +9,11 @@ from firewatch.physics.bands import Band
 from firewatch.physics.constants import SIGMA, ZERO_CELSIUS
 from firewatch.settings.profile import Pyrometer, load_site
 from firewatch.settings.schedule import load_schedule
-from firewatch.transport.native import NativeParser
 from firewatch.simulator.instruments import pyrometer_reading
 from firewatch.simulator.kiln import Controller, KilnModel, KilnParameters
 from firewatch.simulator.run import Simulation
 from firewatch.simulator.scenario import load_scenario, parse_fault
+from firewatch.transport.native import NativeParser
 
 
 def test_steady_state_heat_balance() -> None:

@@ -16,7 +16,6 @@ from firewatch.cli import main
 from firewatch.transport.modbus import ModbusParser, RegisterMap, plan_requests
 from firewatch.transport.modbus_poll import LinkSettings, ModbusPoller
 from firewatch.transport.records import ReadingSet, Status
-
 from tests.transport.modbus_server import TestServer
 
 DT = ModbusTcpClient.DATATYPE

@@ -16,7 +16,6 @@ from firewatch.store._common import LogDamaged
 from firewatch.ui import run_app
 from firewatch.ui.app import FirewatchApp
 from firewatch.ui.widgets import ReadingsPanel
-
 from tests.damage import spoil_table
 from tests.ui.helpers import settle
 

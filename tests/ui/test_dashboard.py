@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import asyncio
 from pathlib import Path
 
 import pytest
@@ -13,7 +12,6 @@ from firewatch.ui.app import FirewatchApp, cautions_marker
 from firewatch.ui.dashboard import DashboardScreen
 from firewatch.ui.screens import CautionsScreen, HelpScreen, NoteScreen, ShelveScreen
 from firewatch.ui.widgets import AlarmList, ReadingsPanel
-
 from tests.e2e.helpers import firewatch, samples, start_sim_tcp, stop, wait_for
 from tests.ui.helpers import settle
 

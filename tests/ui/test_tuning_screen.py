@@ -12,7 +12,6 @@ from firewatch.simulator.run import Simulation
 from firewatch.simulator.scenario import load_scenario
 from firewatch.ui.app import FirewatchApp
 from firewatch.ui.tuning import ConfirmScreen, TuningScreen
-
 from tests.ui.helpers import settle
 
 DATA = Path(__file__).resolve().parents[1] / "data"
