@@ -15,6 +15,7 @@ from typing import Any
 
 from firewatch import __version__
 from firewatch.commands import _logging
+from firewatch.commands._args import UsageError
 
 __all__ = ["main", "UsageError", "Parser"]
 
@@ -41,10 +42,6 @@ CAUTION = (
 )
 
 
-class UsageError(Exception):
-    """A bad command line: printed as one line, exit status 2."""
-
-
 class Parser(argparse.ArgumentParser):
     """An argument parser whose errors are one line and exit status 2."""
 
@@ -63,7 +60,7 @@ def build_parser() -> Parser:
     parser.add_argument("--version", action="version", version=f"firewatch {__version__}")
     _add_common(parser, top=True)
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=Parser)
-    for name, module in COMMANDS.items():
+    for module in COMMANDS.values():
         importlib.import_module(f"firewatch.commands.{module}").add_parser(sub)
     _add_common_below(parser)
     return parser

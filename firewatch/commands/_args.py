@@ -5,7 +5,11 @@ from __future__ import annotations
 import argparse
 import math
 
-__all__ = ["number", "fraction", "positive", "band", "unit"]
+__all__ = ["UsageError", "number", "fraction", "positive", "band", "unit"]
+
+
+class UsageError(Exception):
+    """A bad command line: printed as one line, exit status 2 (``firewatch.cli.main`` catches it)."""
 
 
 def number(text: str) -> float:

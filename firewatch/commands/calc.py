@@ -17,8 +17,8 @@ import sys
 import warnings
 from typing import Any
 
-from firewatch.cli import UsageError
 from firewatch.commands import _args
+from firewatch.commands._args import UsageError
 
 __all__ = ["add_parser", "run"]
 

@@ -26,8 +26,8 @@ import threading
 import time
 from pathlib import Path
 
-from firewatch.cli import UsageError
 from firewatch.commands import _args
+from firewatch.commands._args import UsageError
 
 __all__ = ["add_parser", "run", "start_demo", "demo_folder", "demo_log_path", "discard_log"]
 

@@ -6,7 +6,7 @@ import argparse
 import csv
 import sys
 
-from firewatch.cli import UsageError
+from firewatch.commands._args import UsageError
 from firewatch.commands._common import iso, open_log
 
 __all__ = ["add_parser", "run", "export_csv"]

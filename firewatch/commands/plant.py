@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from firewatch.cli import UsageError
+from firewatch.commands._args import UsageError
 
 __all__ = ["add_parser", "run"]
 

@@ -10,8 +10,8 @@ import argparse
 import sys
 import time
 
-from firewatch.cli import UsageError
 from firewatch.commands import _args
+from firewatch.commands._args import UsageError
 
 __all__ = ["add_parser", "run", "render"]
 

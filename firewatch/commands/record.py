@@ -5,8 +5,8 @@ from __future__ import annotations
 import argparse
 from typing import TYPE_CHECKING
 
-from firewatch.cli import UsageError
 from firewatch.commands import _args
+from firewatch.commands._args import UsageError
 from firewatch.commands._common import refuse_damaged
 
 __all__ = ["add_parser", "run", "load_profiles", "input_port"]

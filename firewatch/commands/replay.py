@@ -6,8 +6,8 @@ import argparse
 import json
 import sys
 
-from firewatch.cli import UsageError
 from firewatch.commands import _args
+from firewatch.commands._args import UsageError
 from firewatch.commands._common import duration_text, iso, open_log
 
 __all__ = ["add_parser", "run"]

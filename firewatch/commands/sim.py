@@ -6,8 +6,8 @@ import argparse
 import sys
 from pathlib import Path
 
-from firewatch.cli import UsageError
 from firewatch.commands import _args
+from firewatch.commands._args import UsageError
 from firewatch.commands._common import refuse_damaged
 
 __all__ = ["add_parser", "run"]

@@ -16,7 +16,7 @@ import json
 import sys
 from typing import Any
 
-from firewatch.cli import UsageError
+from firewatch.commands._args import UsageError
 from firewatch.commands._common import iso, open_log
 
 __all__ = ["add_parser", "run"]

@@ -24,7 +24,7 @@ def run(args: argparse.Namespace) -> int:
     from firewatch.ui import run_watch
 
     if args.site:
-        from firewatch.cli import UsageError
+        from firewatch.commands._args import UsageError
         from firewatch.settings._tomlcheck import ProfileError
         from firewatch.settings.profile import load_site
 
