@@ -12,8 +12,8 @@ from matplotlib.axes import Axes
 from matplotlib.figure import Figure
 
 from firewatch.firing.record import ChartData
-from firewatch.report.text import Clock, Units
-from firewatch.settings.units import from_celsius
+from firewatch.settings.timefmt import Clock
+from firewatch.settings.units import Units, from_celsius
 
 __all__ = ["axes_rect", "chart_figure", "draw_chart"]
 
