@@ -6,7 +6,7 @@ import datetime as dt
 
 from firewatch.cli import UsageError
 
-__all__ = ["iso", "open_log", "duration_text"]
+__all__ = ["iso", "open_log"]
 
 
 def iso(t: float | None) -> str | None:
@@ -14,13 +14,6 @@ def iso(t: float | None) -> str | None:
     if t is None:
         return None
     return dt.datetime.fromtimestamp(t, dt.timezone.utc).isoformat(timespec="seconds").replace("+00:00", "Z")
-
-
-def duration_text(seconds: float) -> str:
-    seconds = int(round(seconds))
-    h, rem = divmod(seconds, 3600)
-    m, s = divmod(rem, 60)
-    return f"{h}:{m:02d}:{s:02d}"
 
 
 def open_log(path: str, option: str = "FILE.db"):

@@ -22,6 +22,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--speed", type=_args.positive, default=60.0, help="simulated seconds per real second (default 60)")
     p.add_argument("--log", metavar="FILE.db", help="keep the firing log here (default: a temporary file, removed on exit)")
     p.add_argument("--fault", action="append", default=[], metavar="KIND@MINUTES[:K=V,...]", help="a simulator fault (repeatable)")
+    p.add_argument("--utc", action="store_true", help="clock times in UTC instead of the site's time zone ([site] timezone, else this computer's)")
 
 
 def start_demo(log: Path, speed: float, faults: list[str]) -> tuple[subprocess.Popen, subprocess.Popen]:
@@ -82,7 +83,7 @@ def run(args: argparse.Namespace) -> int:
         sim, rec = start_demo(log, args.speed, args.fault)
         from firewatch.ui import run_watch
 
-        return run_watch(log)
+        return run_watch(log, utc=args.utc)
     finally:
         _stop(*(p for p in (rec, sim) if p is not None))
         if tmp is not None:

@@ -23,7 +23,7 @@ import zoneinfo
 from dataclasses import dataclass
 from pathlib import Path
 
-__all__ = ["Clock", "TimeAxis", "UTC_NAMES", "duration", "local_zone", "time_axis"]
+__all__ = ["UTC_NAMES", "Clock", "TimeAxis", "duration", "local_zone", "time_axis"]
 
 UTC_NAMES = frozenset({"UTC", "Etc/UTC", "Etc/UCT", "UCT", "Etc/Universal", "Universal", "Etc/Zulu", "Zulu", "Etc/GMT",
                        "GMT"})
@@ -77,7 +77,7 @@ def local_zone() -> tuple[dt.tzinfo, str]:
             return zoneinfo.ZoneInfo(name), name
         except (ValueError, zoneinfo.ZoneInfoNotFoundError):
             continue
-    here = dt.datetime.now().astimezone().tzinfo or dt.timezone.utc
+    here = dt.datetime.now().astimezone().tzinfo or dt.UTC
     return here, dt.datetime.now(here).tzname() or "local time"
 
 
@@ -95,12 +95,12 @@ class Clock:
     def for_site(cls, timezone: str, utc: bool = False) -> Clock:
         """The site's zone; UTC when ``utc``; the computer's when the site names none."""
         if utc:
-            return cls(dt.timezone.utc, "UTC", "utc")
+            return cls(dt.UTC, "UTC", "utc")
         if timezone:
             return cls(zoneinfo.ZoneInfo(timezone), timezone)
         zone, name = local_zone()
         if name in UTC_NAMES:
-            return cls(dt.timezone.utc, "UTC", "computer")
+            return cls(dt.UTC, "UTC", "computer")
         return cls(zone, name, "computer")
 
     def local(self, t: float) -> dt.datetime:
@@ -258,5 +258,5 @@ def time_axis(t0: float, t1: float, origin: float, clock: Clock, max_ticks: int 
 
 
 def _range(first: float, last: float, step: float) -> list[float]:
-    n = int(math.floor((last - first) / step + 1e-9)) + 1
+    n = math.floor((last - first) / step + 1e-9) + 1
     return [first + i * step for i in range(max(n, 0))]

@@ -9,6 +9,7 @@ and ``°F`` in °F, never a bare number.
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass
 
 import numpy as np
@@ -123,3 +124,51 @@ class Units:
             return "—"
         v = float(delta_from_celsius(c_per_h, self.unit))
         return f"{v:{'+' if signed else ''}.{digits}f} {self.symbol}/h".replace("-", "−")
+
+    def restate(self, text: str) -> str:
+        """A logged text (an alarm's message, an event's detail) with its °C and K figures in these units.
+
+        The log keeps °C and kelvin; on a screen switched to °F every figure
+        reads in °F, differences labelled as °F too. Figures keep as many
+        decimals as they were logged with.
+
+        Examples
+        --------
+        >>> f = Units("F")
+        >>> f.restate("py1 -11.5 K from tc2 (allowed ±5.9 K)")
+        'py1 −20.7 °F from tc2 (allowed ±10.6 °F)'
+        >>> f.restate("faster than 120 °C/h through quartz (550-600 °C); tc2 departs at +6.5 K/h; type K")
+        'faster than 216 °F/h through quartz (1022-1112 °F); tc2 departs at +11.7 °F/h; type K'
+        >>> f.restate("both depart from tc2 (+1.0 and -2.5 K/h)"), Units("C").restate("-2 K")
+        ('both depart from tc2 (+1.8 and −4.5 °F/h)', '-2 K')
+        """
+        if self.unit != "F":
+            return text
+        text = _RANGE_C.sub(lambda m: f"{self._figure(m[1], False)}-{self._figure(m[2], False)} °F", text)
+        text = _PAIR_KH.sub(lambda m: f"{self._figure(m[1], True)} and {self._figure(m[2], True)} °F/h", text)
+
+        def one(m: re.Match) -> str:
+            unit = m["unit"]
+            absolute = unit == "°C"  # a temperature; everything else (K, K/h, °C/h) is a difference or a rate
+            return f"{self._figure(m['num'], not absolute)} °F{'/h' if unit.endswith('/h') else ''}"
+
+        return _FIGURE.sub(one, text)
+
+    def _figure(self, number: str, difference: bool) -> str:
+        sign = number[0] if number[0] in "±+-−" else ""
+        digits = number[len(sign):]
+        value = float(digits) * (-1.0 if sign in "-−" and sign else 1.0)
+        decimals = len(digits.split(".")[1]) if "." in digits else 0
+        out = value * 9.0 / 5.0 if difference else value * 9.0 / 5.0 + 32.0
+        text = f"{abs(out):.{decimals}f}"
+        if sign == "±":
+            return "±" + text
+        if out < 0:
+            return "−" + text
+        return ("+" if sign == "+" else "") + text
+
+
+_NUM = r"[±+\-−]?\d+(?:\.\d+)?"
+_FIGURE = re.compile(rf"(?P<num>{_NUM}) (?P<unit>°C/h|°C|K/h|K)(?![\w/])")
+_RANGE_C = re.compile(r"(\d+(?:\.\d+)?)-(\d+(?:\.\d+)?) °C(?![\w/])")
+_PAIR_KH = re.compile(rf"({_NUM}) and ({_NUM}) K/h")

@@ -8,18 +8,20 @@ that draw.
 
 from __future__ import annotations
 
-__all__ = ["run_watch", "run_replay"]
+__all__ = ["run_replay", "run_watch"]
 
 
-def run_watch(log, show_cautions: bool | None = None, site_path=None) -> int:
+def run_watch(log, show_cautions: bool | None = None, site_path=None, utc: bool = False) -> int:
     from firewatch.ui.app import FirewatchApp
 
-    FirewatchApp(log, mode="live", show_cautions=show_cautions, site_path=site_path).run()
+    FirewatchApp(log, mode="live", show_cautions=show_cautions, site_path=site_path, utc=utc).run()
     return 0
 
 
-def run_replay(log, site=None, schedule=None, speed: float = 60.0, show_cautions: bool | None = None, site_path=None) -> int:
+def run_replay(log, site=None, schedule=None, speed: float = 60.0, show_cautions: bool | None = None, site_path=None,
+               utc: bool = False) -> int:
     from firewatch.ui.app import FirewatchApp
 
-    FirewatchApp(log, mode="replay", site=site, schedule=schedule, speed=speed, show_cautions=show_cautions, site_path=site_path).run()
+    FirewatchApp(log, mode="replay", site=site, schedule=schedule, speed=speed, show_cautions=show_cautions,
+                 site_path=site_path, utc=utc).run()
     return 0
