@@ -104,12 +104,14 @@ class Units:
         """
         Examples
         --------
-        >>> Units("C").delta(-3.16), Units("F").delta(10.0, 0, signed=False)
-        ('−3.2 K', '18 °F')
+        >>> Units("C").delta(-3.16), Units("F").delta(10.0, 0, signed=False), Units("C").delta(-0.02)
+        ('−3.2 K', '18 °F', '+0.0 K')
         """
         if k is None or not math.isfinite(k):
             return "—"
         v = float(delta_from_celsius(k, self.unit))
+        if abs(v) < 0.5 * 10.0**-digits:
+            v = 0.0  # never "−0.0"
         text = f"{v:+.{digits}f}" if signed else f"{abs(v):.{digits}f}"
         return text.replace("-", "−") + " " + self.delta_symbol
 
@@ -123,6 +125,8 @@ class Units:
         if c_per_h is None or not math.isfinite(c_per_h):
             return "—"
         v = float(delta_from_celsius(c_per_h, self.unit))
+        if abs(v) < 0.5 * 10.0**-digits:
+            v = 0.0
         return f"{v:{'+' if signed else ''}.{digits}f} {self.symbol}/h".replace("-", "−")
 
     def restate(self, text: str) -> str:

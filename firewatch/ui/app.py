@@ -30,8 +30,8 @@ class FirewatchApp(App):
     TITLE = "firewatch"
     ENABLE_COMMAND_PALETTE = False
 
-    unit: reactive[str] = reactive("C")
-    """Units people read: C or F."""
+    unit: reactive[str] = reactive("C", repaint=False)
+    """Units people read: C or F (the screen redraws what shows a temperature; nothing else is repainted)."""
 
     def __init__(self, log, mode: str = "live", site=None, schedule=None, speed: float = 60.0,
                  show_cautions: bool | None = None, desk: ActionDesk | None = None, site_path=None, utc: bool = False) -> None:

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import threading
 import time
+from dataclasses import replace
 
 from rich.text import Text
 from textual import work
@@ -38,6 +39,8 @@ from firewatch.ui.widgets import (
     ReadingsPanel,
     SchedulePanel,
     TrendChart,
+    corners,
+    envelope_line,
 )
 
 __all__ = ["SPEEDS", "DashboardScreen"]
@@ -54,6 +57,14 @@ CAUTION_LINES = (
 CAUTION_LINE = CAUTION_LINES[0]
 CHART_EVERY_S = 10.0
 """Live: the chart is redrawn this often at most (numbers update every second)."""
+
+
+def _set(line: Static, content: str | Text) -> None:
+    """Update a one-row line only when its text changes, without a layout pass (its size is fixed)."""
+    key = content.markup if isinstance(content, Text) else content
+    if getattr(line, "_shown_key", None) != key:
+        line._shown_key = key  # type: ignore[attr-defined]
+        line.update(content, layout=False)
 
 
 class LogRead(Message):
@@ -144,8 +155,11 @@ class DashboardScreen(Screen):
         self.selected_alarm: int | None = None
         self._wake = threading.Event()
         self._want_chart = True
+        self._want_read = True
         self._last_chart = 0.0
         self._stop = threading.Event()
+        self._last_moment: Moment | None = None
+        self._last_chart_data: ChartData | None = None
         self._legend: list[tuple[str, str]] = []
         self._axis = ""
         self._evidence = ""
@@ -191,6 +205,7 @@ class DashboardScreen(Screen):
     @work(thread=True, exclusive=True, group="poll")
     def poll(self) -> None:
         view = self.view
+        shown: float | None = None
         while not self._stop.is_set():
             self._wake.wait(1.0)
             self._wake.clear()
@@ -199,23 +214,28 @@ class DashboardScreen(Screen):
             try:
                 # take the request first, then the cursor: a seek that lands meanwhile wakes us again
                 want_chart, self._want_chart = self._want_chart, False
+                want_read, self._want_read = self._want_read, False
+                moment: Moment | None = None
                 if self.mode == "live":
                     # every second, news or not: a silent line or a stopped recorder is news to the operator
                     moment = view.live()
                     t: float | None = moment.t
                 else:
-                    view.refresh_bounds()
+                    news = view.refresh_bounds()
                     t = self.cursor
                     if t is None:
                         continue
-                    moment = view.moment(t)
+                    if want_read or want_chart or news or t != shown:
+                        moment = view.moment(t)  # a paused replay with nothing new is left as drawn
+                        shown = t
                 chart = None
                 now = time.monotonic()
-                if t is not None and view.end_t is not None and (
+                if moment is not None and t is not None and view.end_t is not None and (
                         want_chart or (self.mode == "live" and now - self._last_chart >= CHART_EVERY_S)):
                     chart = self._chart_data(t)
                     self._last_chart = now
-                self.post_message(LogRead(moment, chart, view.end_t))
+                if moment is not None:
+                    self.post_message(LogRead(moment, chart, view.end_t))
                 desk = getattr(self.app, "desk", None)
                 settled = desk.follow_up() if desk is not None and desk.waiting else []
                 if settled:
@@ -251,20 +271,23 @@ class DashboardScreen(Screen):
         if self._series_key != key:  # a seek within the same span redraws only the cursor
             import numpy as np
 
-            series = []
-            for name in names[:4]:
-                tr = view.trend(name, t0, t1, columns)
-                # min and max per column, drawn as one line through both
-                tt = np.repeat(tr.t, 2)
-                yy = np.column_stack([tr.lo, tr.hi]).ravel()
-                series.append((name.replace(".reconciled", ""), tt, yy))
+            trends = [(name.replace(".reconciled", ""), view.trend(name, t0, t1, columns)) for name in names[:4]]
+            # min and max per column, drawn as one line through both where the line between neighbours would
+            # not show the column's spread: half the points to draw for a smooth trace (the chart's redraw cost)
+            finite = [tr for _, tr in trends if tr.t.size]
+            spread = (np.nanmax([np.nanmax(tr.hi) for tr in finite]) - np.nanmin([np.nanmin(tr.lo) for tr in finite])) if finite else 0.0
+            rows = max(self.query_one(TrendChart).size.height - 2, 4)
+            tolerance = float(spread) / (4 * rows) if np.isfinite(spread) else 0.0  # a braille dot's height
+            series = [(label, *envelope_line(tr.t, tr.lo, tr.hi, tolerance)) for label, tr in trends]
             self._series_key, self._series = key, series
             self._alarm_marks = [a[0] for a in view.alarm_times()]
         series, alarms = self._series, self._alarm_marks
-        return ChartData(t0, t1, series, view.planned(t0, t1), t if self.mode == "replay" else None, alarms,
+        return ChartData(t0, t1, series, corners(*view.planned(t0, t1)), t if self.mode == "replay" else None, alarms,
                          self.app.unit, origin=start, clock=self.clock)
 
     def _request(self, chart: bool = False) -> None:
+        """Ask the poller to read the log now (and the chart too)."""
+        self._want_read = True
         self._want_chart = self._want_chart or chart
         self._wake.set()
 
@@ -277,6 +300,11 @@ class DashboardScreen(Screen):
     def on_log_read(self, message: LogRead) -> None:
         m = message.moment
         unit, clock = self.app.unit, self.clock
+        self._last_moment = m
+        if message.chart is not None:
+            self._last_chart_data = message.chart
+            if message.chart.unit != unit:  # read before a unit switch: the data are °C, drawn in the unit now chosen
+                message.chart = replace(message.chart, unit=unit)
         readings = self.query_one(ReadingsPanel)
         readings.unit, readings.moment = unit, m
         sched = self.query_one(SchedulePanel)
@@ -321,7 +349,7 @@ class DashboardScreen(Screen):
         # what must be read comes first; the rest (the reason, the site, the kiln) is cut at the right if need be
         parts = [state, alarm_text] + ([f"({reason})"] if reason else []) + [firing.get("site_name") or "", firing.get("kiln") or ""]
         title = self.query_one("#title", Static)
-        title.update(Text(" · ".join(p for p in parts if p), no_wrap=True, overflow="ellipsis"))
+        _set(title, fmt.clip(" · ".join(p for p in parts if p), max(self.size.width - 2, 20)))
         title.set_class(bool(unack), "alarming")
         title.set_class(self.mode == "live" and not m.state.fresh, "degraded")
         start = view.start_t
@@ -337,7 +365,7 @@ class DashboardScreen(Screen):
             for label, style in self._legend:
                 line.append(" ━", style=style)
                 line.append(label)
-        self.query_one("#cursorline", Static).update(line)
+        _set(self.query_one("#cursorline", Static), line)
         self._notice()
 
     def _notice(self) -> None:
@@ -347,16 +375,18 @@ class DashboardScreen(Screen):
             text = fmt.clip(f"evidence: {Units(self.app.unit).restate(self._evidence)}", width)
         else:
             text = next((c for c in CAUTION_LINES if len(c) <= width), CAUTION_LINES[-1])
-        self.query_one("#evidence", Static).update(text)
+        _set(self.query_one("#evidence", Static), text)
 
     def on_resize(self) -> None:
         self._notice()
 
     def on_alarm_list_highlighted(self, message: AlarmList.Highlighted) -> None:
+        chosen_before = self.selected_alarm is not None
         self.selected_alarm = message.alarm_id
         self._evidence = message.evidence
         self._notice()
-        self.refresh_bindings()
+        if chosen_before != (message.alarm_id is not None):
+            self.refresh_bindings()  # Ack and Shelve need a chosen alarm; the footer is rebuilt only when that changes
 
     # -- actions ------------------------------------------------------------------------
     def check_action(self, action: str, parameters: tuple) -> bool | None:
@@ -374,7 +404,8 @@ class DashboardScreen(Screen):
 
     def action_units(self) -> None:
         self.app.unit = "F" if self.app.unit == "C" else "C"
-        self._request(chart=True)
+        if self._last_moment is not None:  # at once, from what was last read: nothing new to read for a unit
+            self.on_log_read(LogRead(self._last_moment, self._last_chart_data, self.view.end_t))
 
     def action_tune(self) -> None:
         from firewatch.ui.tuning import TuningScreen

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
+from contextlib import ExitStack
 from dataclasses import dataclass
 
 import numpy as np
@@ -19,6 +20,7 @@ from textual.events import Resize
 from textual.message import Message
 from textual.reactive import reactive
 from textual.widgets import DataTable, Static
+from textual_hires_canvas import Canvas
 from textual_plot import HiResMode, PlotWidget
 from textual_plot.axis_formatter import AxisFormatter
 
@@ -27,7 +29,8 @@ from firewatch.settings.units import Units, from_celsius
 from firewatch.store.view import VERDICTS, AlarmRow, Moment
 from firewatch.ui import format as fmt
 
-__all__ = ["AlarmList", "ChartData", "EventList", "ReadingsPanel", "SchedulePanel", "TimeAxisFormatter", "TrendChart"]
+__all__ = ["AlarmList", "ChartData", "EventList", "ReadingsPanel", "SchedulePanel", "TimeAxisFormatter", "TrendChart", "corners",
+           "envelope_line"]
 
 ABNORMAL = "bold reverse"
 """The one emphasis for abnormal values: reads on a monochrome terminal too."""
@@ -42,11 +45,41 @@ def _default_clock() -> Clock:
     return Clock.for_site("", utc=True)
 
 
-class ReadingsPanel(Static):
+class _Panel(Static):
+    """A panel whose height follows its lines: a layout pass only when their number changes, not at every update."""
+
+    _drawn_lines = -1
+
+    def line_count(self, width: int) -> int:
+        raise NotImplementedError
+
+    def _changed(self) -> None:
+        n = self.line_count(max(self.size.width, 20))
+        if n != self._drawn_lines:
+            self._drawn_lines = n
+            self.refresh(layout=True)
+        else:
+            self.refresh()
+
+    def on_resize(self) -> None:
+        self._drawn_lines = -1
+        self._changed()
+
+
+class ReadingsPanel(_Panel):
     """Every thermocouple and pyrometer at the moment shown: name, value, verdict, then what room allows."""
 
-    moment: reactive[Moment | None] = reactive(None, layout=True)
-    unit: reactive[str] = reactive("C")
+    moment: reactive[Moment | None] = reactive(None, repaint=False, always_update=True)
+    unit: reactive[str] = reactive("C", repaint=False)
+
+    def watch_moment(self) -> None:
+        self._changed()
+
+    def watch_unit(self) -> None:
+        self._changed()
+
+    def line_count(self, width: int) -> int:
+        return len(self.rows(width))
 
     def __init__(self, site, **kw) -> None:
         super().__init__(**kw)
@@ -77,7 +110,9 @@ class ReadingsPanel(Static):
                 low, high = py.range_c
                 edge = {"UNDER": low, "OVER": high}.get(verdict)
                 shown = f"{'<' if verdict == 'UNDER' else '>'}{u.temperature(edge, 0)}" if edge is not None and math.isfinite(edge) else "—"
-                detail = [{"UNDER": "below its range", "OVER": "above its range"}.get(verdict, "no reading"), py.kind]
+                detail = [{"UNDER": "below its range", "OVER": "above its range"}.get(verdict, "no reading")]
+                if wide and math.isfinite(low) and math.isfinite(high):
+                    detail[0] += f" {u.number(low, 0)}–{u.temperature(high, 0)}"
             else:
                 shown = u.temperature(rec)
                 detail = []
@@ -87,10 +122,10 @@ class ReadingsPanel(Static):
                         detail.append(f"Δ {u.delta(div)} of ±{u.delta(allowed, signed=False)}")
                     else:  # the unit once: Δ−11.5/±5.9 K
                         detail.append(f"Δ{u.delta(div).split()[0]}/±{u.delta(allowed, signed=False)}")
-                detail.append(f"±{u.delta(m.value(py.name + '.u'), signed=False)}")
                 detail.append(f"reads {u.temperature(m.value(py.name))}")
-            if wide and py.label:
-                detail.append(py.label)
+                detail.append(f"{'uncertainty' if wide else 'unc.'} ±{u.delta(m.value(py.name + '.u'), signed=False)}")
+            if wide:
+                detail.append(py.label or py.kind)
             out.append((py.name, shown, verdict, self._stale(m, py.name, detail)))
         for cj in site.cold_junctions:
             verdict = m.verdict(cj)
@@ -142,12 +177,24 @@ def _fit_detail(parts: list[str], room: int) -> str:
     return out
 
 
-class SchedulePanel(Static):
+class SchedulePanel(_Panel):
     """Where the firing stands against its schedule: the segment with its rate and target, the rate now, the end."""
 
-    moment: reactive[Moment | None] = reactive(None, layout=True)
-    unit: reactive[str] = reactive("C")
-    clock: reactive[Clock] = reactive(_default_clock, layout=True)
+    moment: reactive[Moment | None] = reactive(None, repaint=False, always_update=True)
+    unit: reactive[str] = reactive("C", repaint=False)
+    clock: reactive[Clock] = reactive(_default_clock, repaint=False)
+
+    def watch_moment(self) -> None:
+        self._changed()
+
+    def watch_unit(self) -> None:
+        self._changed()
+
+    def watch_clock(self) -> None:
+        self._changed()
+
+    def line_count(self, width: int) -> int:
+        return len(self.lines(width))
     MAX_LINES = 6
     """At 80×24 the panel keeps to this many lines (the trend below needs the rest)."""
 
@@ -164,9 +211,10 @@ class SchedulePanel(Static):
         n = len(sched.segments)
         seg = m.value("plan.segment") if m else math.nan
         current = int(seg) if math.isfinite(seg) else -1
-        title = Text(fmt.clip(sched.name, width), style="bold")
         lines: list[Text] = []
         table = self._segment_table(sched, current, u, width)
+        where = f" · segment {current + 1} of {n}" if 0 <= current < n and table is not None else ""
+        title = Text(fmt.clip(sched.name + where, width), style="bold")
         if table is not None:
             lines += table
         elif 0 <= current < n:
@@ -268,6 +316,55 @@ class ChartData:
     clock: Clock | None = None
 
 
+def envelope_line(t: np.ndarray, lo: np.ndarray, hi: np.ndarray, tolerance: float = 0.0) -> tuple[np.ndarray, np.ndarray]:
+    """One line through each column's minimum and maximum, with a single point where the line between the
+    neighbouring columns already spans the column's range to within ``tolerance`` (a smooth ramp or a hold).
+
+    Examples
+    --------
+    >>> x, y = envelope_line(np.array([0.0, 1, 2, 3]), np.array([0.0, 9, 20, 30]), np.array([0.0, 11, 20, 30]))
+    >>> x.tolist(), y.tolist()
+    ([0.0, 1.0, 2.0, 3.0], [0.0, 10.0, 20.0, 30.0])
+    >>> x, y = envelope_line(np.array([0.0, 1, 2]), np.array([10.0, 0, 10]), np.array([10.0, 20, 10]))
+    >>> x.tolist(), y.tolist()
+    ([0.0, 1.0, 1.0, 2.0], [10.0, 0.0, 20.0, 10.0])
+    """
+    t, lo, hi = (np.asarray(a, dtype=float) for a in (t, lo, hi))
+    if t.size < 3:
+        return np.repeat(t, 2), np.column_stack([lo, hi]).ravel()
+    mid = (lo + hi) / 2.0
+    prev = np.concatenate([mid[:1], mid[:-1]])
+    nxt = np.concatenate([mid[1:], mid[-1:]])
+    a, b = (prev + mid) / 2.0, (mid + nxt) / 2.0  # where the drawn line crosses the column's edges
+    low, high = np.minimum(np.minimum(a, b), mid), np.maximum(np.maximum(a, b), mid)
+    single = (lo >= low - tolerance) & (hi <= high + tolerance)
+    counts = np.where(single, 1, 2)
+    x = np.repeat(t, counts)
+    y = np.empty(x.size)
+    starts = np.concatenate([[0], np.cumsum(counts)[:-1]])
+    y[starts] = np.where(single, mid, lo)
+    y[starts[~single] + 1] = hi[~single]
+    return x, y
+
+
+def corners(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """A piecewise-linear curve (the planned schedule) by its corners alone: the same line, fewer points to draw.
+
+    Examples
+    --------
+    >>> x, y = corners(np.arange(6.0), np.array([0.0, 1, 2, 3, 3, 3]))
+    >>> x.tolist(), y.tolist()
+    ([0.0, 3.0, 5.0], [0.0, 3.0, 3.0])
+    """
+    x, y = np.asarray(x, dtype=float), np.asarray(y, dtype=float)
+    if x.size < 3:
+        return x, y
+    slope = np.diff(y) / np.where(np.diff(x) == 0, np.nan, np.diff(x))
+    bend = ~np.isclose(slope[1:], slope[:-1], rtol=1e-6, atol=1e-9)
+    keep = np.concatenate([[True], bend, [True]])
+    return x[keep], y[keep]
+
+
 class TimeAxisFormatter(AxisFormatter):
     """The trend's time axis from :func:`firewatch.settings.timefmt.time_axis`: clock time or h:mm since start.
 
@@ -275,15 +372,22 @@ class TimeAxisFormatter(AxisFormatter):
     arithmetic exact); ticks and labels are chosen in UTC seconds.
     """
 
-    def __init__(self, origin: float, clock: Clock, max_ticks: int = 8) -> None:
+    def __init__(self, origin: float, clock: Clock, max_ticks: int = 8, columns: int = 0) -> None:
         self.origin = origin
         self.clock = clock
         self.max_ticks = max_ticks
+        self.columns = columns
+        """The plot's width in cells: a tick whose centred label would run past the right edge is left out."""
         self.meaning = ""
 
     def get_ticks(self, min_: float, max_: float, max_ticks: int = 8) -> list[float]:
         axis = time_axis(self.origin + min_, self.origin + max_, self.origin, self.clock, min(max_ticks, self.max_ticks))
-        self._last = ([t - self.origin for t in axis.ticks], axis.labels)
+        pairs = [(t - self.origin, label) for t, label in zip(axis.ticks, axis.labels)]
+        if self.columns and max_ > min_:
+            # the plot right-aligns only a label exactly at the end; any other is centred on its tick
+            pairs = [(t, label) for t, label in pairs
+                     if t >= max_ or (max_ - t) / (max_ - min_) * self.columns >= len(label) / 2 + 1]
+        self._last = ([t for t, _ in pairs], [label for _, label in pairs])
         self.meaning = axis.meaning
         return list(self._last[0])
 
@@ -311,13 +415,50 @@ class TrendChart(PlotWidget):
         super().__init__(allow_pan_and_zoom=False, **kw)
         self.axis_meaning = ""
         """How the time axis reads as last drawn: ``clock, CET`` or ``h:mm since start``."""
+        self.drawn: ChartData | None = None
+        """What the chart last drew (tests and the redraw benchmark wait on it)."""
 
     def on_mount(self) -> None:
         super().on_mount()
         self.margin_top = 0
         self.margin_bottom = 2
 
+    def render(self):
+        # textual-plot draws cell by cell and each cell asks textual for a refresh (some 600 per trend at 160x48,
+        # nearly half the redraw); its canvases' own batch_refresh makes that one refresh per canvas
+        with ExitStack() as stack:
+            for canvas in self.query(Canvas):
+                stack.enter_context(canvas.batch_refresh())
+            return super().render()
+
+    def _draw_now(self) -> None:
+        """Draw on the canvases now, so that they are painted in the same frame as the rest of the screen.
+
+        textual-plot draws its canvases while the screen paints the plot widget itself, which only marks the
+        canvases for the next frame: the new trend would show a frame after the numbers beside it.
+        """
+        if self.is_mounted and self.size.area:
+            self.render()
+
+    def _same_picture(self, data: ChartData) -> bool:
+        """Whether ``data`` would draw what is on the screen already: the same traces, plan, marks and unit, and a
+        cursor in the same column (a seek of a minute across a whole firing moves it by a fraction of a cell)."""
+        old = self.drawn
+        if old is None or not self.size.area:
+            return False
+        same = (old.t0, old.t1, old.unit, old.origin, old.clock, old.alarms) == (data.t0, data.t1, data.unit, data.origin, data.clock, data.alarms)
+        if not same or old.series is not data.series or not all(np.array_equal(a, b) for a, b in zip(old.planned, data.planned)):
+            return False
+        if (old.cursor is None) != (data.cursor is None):
+            return False
+        if data.cursor is None:
+            return True
+        return self.get_pixel_from_coordinate(old.cursor - old.origin, 0)[0] == self.get_pixel_from_coordinate(data.cursor - data.origin, 0)[0]
+
     def draw(self, data: ChartData) -> None:
+        if self._same_picture(data):
+            self.drawn = data
+            return
         clock = data.clock or _default_clock()
         self.clear()
         origin = data.origin
@@ -326,7 +467,8 @@ class TrendChart(PlotWidget):
             return np.asarray(t, dtype=float) - origin
 
         # a tick label is five cells: keep two cells between labels at the least
-        formatter = TimeAxisFormatter(origin, clock, max_ticks=max(2, min(8, (self.size.width - 10) // 8)))
+        columns = max(self.size.width - self.margin_left, 10)
+        formatter = TimeAxisFormatter(origin, clock, max_ticks=max(2, min(8, columns // 8)), columns=columns)
         self.set_x_formatter(formatter)
         px, py = data.planned
         if px.size:
@@ -342,6 +484,8 @@ class TrendChart(PlotWidget):
             self.add_v_line(float(rel(data.cursor)), "bright_white", None)
         self.set_xlimits(float(rel(data.t0)), float(rel(data.t1)))
         self.axis_meaning = time_axis(data.t0, data.t1, origin, clock).meaning
+        self.drawn = data
+        self._draw_now()
 
 
 class AlarmList(DataTable):
