@@ -112,7 +112,7 @@ def tmux_redraw(log: Path, repeats: int = 10) -> dict[str, list[float]]:
 
 def y_ticks(text: str) -> list[str]:
     """The trend's temperature axis labels as the screen shows them (they change with the unit)."""
-    return re.findall(r"^ *(\d+) ┫", text, re.M)
+    return re.findall(r"^ *(\d+) ┫", text, re.MULTILINE)
 
 
 def report_redraw(log: Path) -> None:

@@ -161,4 +161,4 @@ def _utc_seconds(text: str | None) -> float | None:
 
     if not text:
         return None
-    return dt.datetime.fromisoformat(text.replace("Z", "+00:00")).timestamp()
+    return dt.datetime.fromisoformat(text).timestamp()  # Python 3.11 reads the Z itself

@@ -107,7 +107,7 @@ def test_replay_at_80x24_reads_whole(tmp_path: Path) -> None:
         assert rows["py1"][3] == "OUT" and rows["py2"][3] == "ok"  # py1's window fouled (the fault), py2 within
         assert re.search(r"▶4/7 main climb \+120 °C/h → 1050 °C", text)
         assert re.search(rf"end in {DURATION} · at 15 Mar 00:\d\d", text)
-        assert re.search(r"^ ◆ MED +ACTIVE UNACK +10:34:14 +divergence py1", text, re.M)
+        assert re.search(r"^ ◆ MED +ACTIVE UNACK +10:34:14 +divergence py1", text, re.MULTILINE)
         assert "axis clock, UTC" in text
         assert re.search(r"\? Help .*\bq Quit$", lines[-1]), lines[-1]
         times_are_whole(text, "UTC")

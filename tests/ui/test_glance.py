@@ -23,7 +23,13 @@ from firewatch.store.view import VERDICTS
 from firewatch.ui.app import FirewatchApp
 from firewatch.ui.dashboard import DashboardScreen
 from firewatch.ui.screens import CAUTION_ITEMS, HelpScreen, NoteScreen, ShelveScreen
-from firewatch.ui.widgets import AlarmList, EventList, ReadingsPanel, SchedulePanel, TrendChart
+from firewatch.ui.widgets import (
+    AlarmList,
+    EventList,
+    ReadingsPanel,
+    SchedulePanel,
+    TrendChart,
+)
 from tests.ui.helpers import settle
 
 SIZES = [(80, 24), (100, 30), (160, 48)]
@@ -78,7 +84,7 @@ async def test_what_an_operator_needs_is_never_cut(glance_log: Path, size: tuple
         assert [r[2] for r in panel.rows(panel.size.width)] == ["", "", "OUT", "ok", ""]
         schedule = "\n".join(drawn(screen.query_one(SchedulePanel)))
         assert re.search(r"▶4(/7)? main climb +\+120 °C/h → 1050 °C", schedule), schedule
-        assert re.search(rf"now \+\d+ °C/h · [+−]\d+\.\d K off plan", schedule), schedule
+        assert re.search(r"now \+\d+ °C/h · [+−]\d+\.\d K off plan", schedule), schedule
         assert re.search(rf"end in {DURATION} · at 15 Mar 00:\d\d", schedule), schedule
         assert re.search(rf"{DURATION} (ahead of|behind) plan", schedule), schedule
         alarm = screen.query_one(AlarmList).shown[0]
