@@ -28,6 +28,17 @@ from bench_alarms import make_log  # noqa: E402
 from bench_recorder import cpu_seconds  # noqa: E402
 
 
+def cpu_fine(pid: int) -> float:
+    """CPU seconds of every thread of ``pid`` to the nanosecond (schedstat), where /proc/PID/stat counts 10 ms ticks."""
+    total = 0
+    for task in Path(f"/proc/{pid}/task").iterdir():
+        try:
+            total += int((task / "schedstat").read_text().split()[0])
+        except (OSError, ValueError, IndexError):
+            continue  # a thread that ended meanwhile
+    return total / 1e9
+
+
 def rss_mb(pid: int) -> float:
     for line in Path(f"/proc/{pid}/status").read_text().splitlines():
         if line.startswith("VmRSS:"):
@@ -70,14 +81,22 @@ def tmux_redraw(log: Path, repeats: int = 10) -> dict[str, list[float]]:
     def capture(name: str) -> str:
         return subprocess.run(["tmux", "-L", sock, "capture-pane", "-p", "-t", name], capture_output=True, text=True, check=True).stdout
 
-    def timed(name: str, key: str, done, timeout: float = 10.0) -> float:
+    pid: list[int] = []
+    cpu: dict[str, list[float]] = {}
+
+    def timed(name: str, key: str, done, timeout: float = 10.0, label: str = "") -> float:
         before = capture(name)
+        c0 = cpu_fine(pid[0]) if pid and name == "replay" else 0.0
         t0 = time.perf_counter()
         subprocess.run(["tmux", "-L", sock, "send-keys", "-t", name, key], check=True)
         while time.perf_counter() - t0 < timeout:
             text = capture(name)
             if text != before and done(text):
-                return time.perf_counter() - t0
+                took = time.perf_counter() - t0
+                if pid and name == "replay":  # the viewer's own CPU for the key, whatever the machine's load
+                    time.sleep(0.25)
+                    cpu.setdefault(label, []).append(cpu_fine(pid[0]) - c0)
+                return took
         raise RuntimeError(f"{name}: {key} never showed its effect")
 
     out: dict[str, list[float]] = {"baseline: a pane echoing a key": [], "u (°C/°F: everything)": [],
@@ -94,19 +113,28 @@ def tmux_redraw(log: Path, repeats: int = 10) -> dict[str, list[float]]:
             time.sleep(0.1)
         subprocess.run(["tmux", "-L", sock, "send-keys", "-t", "replay", "Enter", "PageDown"], check=True)
         time.sleep(2.0)
+        pane = subprocess.run(["tmux", "-L", sock, "display", "-p", "-t", "replay", "#{pane_pid}"], capture_output=True, text=True, check=True)
+        pid.append(int(pane.stdout.strip()))
+        c0 = cpu_fine(pid[0])
+        time.sleep(2.0)
+        idle = (cpu_fine(pid[0]) - c0) / 2.0  # a paused replay's own CPU per second (none is expected)
+        keys = list(out)[1:]
         for i in range(repeats):
             unit = "°F" if i % 2 == 0 else "°C"
             ticks = y_ticks(capture("replay"))
-            out["u (°C/°F: everything)"].append(timed("replay", "u", lambda text, u=unit, before=ticks: re.search(rf"tc1 +[\d.]+ {u}", text)
-                                                       is not None and y_ticks(text) != before))
+            out[keys[0]].append(timed("replay", "u", lambda text, u=unit, before=ticks: re.search(rf"tc1 +[\d.]+ {u}", text)
+                                      is not None and y_ticks(text) != before, label=keys[0]))
             time.sleep(0.3)
-            out["right (seek 1 min: moment and chart)"].append(timed("replay", "Right", lambda text: "since start" in text))
+            out[keys[1]].append(timed("replay", "Right", lambda text: "since start" in text, label=keys[1]))
             time.sleep(0.3)
             events = i % 2 == 0
-            out["e (alarms/events)"].append(timed("replay", "e", lambda text, ev=events: ("event" in text.split("Events", 1)[-1][:400]) == ev))
+            out[keys[2]].append(timed("replay", "e", lambda text, ev=events: ("event" in text.split("Events", 1)[-1][:400]) == ev,
+                                      label=keys[2]))
             time.sleep(0.3)
     finally:
         subprocess.run(["tmux", "-L", sock, "kill-server"], check=False)
+    for label, used in cpu.items():
+        out[f"cpu {label}"] = [max(c - idle * 0.25, 0.0) for c in used]
     return out
 
 
@@ -125,10 +153,13 @@ def report_redraw(log: Path) -> None:
     base_median = base[len(base) // 2]
     print("redraw after a key at 160x48 in a real terminal (tmux, polled), median / worst of 10:")
     for name, times in runs.items():
+        if name.startswith("cpu "):
+            continue
         times.sort()
         median = times[len(times) // 2]
+        used = sorted(runs.get(f"cpu {name}", [float("nan")]))
         print(f"  {name:40} {median * 1e3:7.1f} / {times[-1] * 1e3:6.1f} ms, ratio to baseline {median / base_median:5.1f}"
-              + ("" if name.startswith("baseline") else " (target <= 50 ms)"))
+              + ("" if name.startswith("baseline") else f" (target <= 50 ms); the viewer's CPU {used[len(used) // 2] * 1e3:.1f} ms"))
 
 
 def tmux_process(command: str, seconds: float, name: str) -> tuple[float, float, float]:

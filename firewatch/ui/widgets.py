@@ -424,6 +424,8 @@ class TrendChart(PlotWidget):
         self.margin_bottom = 2
 
     def render(self):
+        if not self._needs_rerender:
+            return super().render()  # nothing to draw: no canvas to refresh again
         # textual-plot draws cell by cell and each cell asks textual for a refresh (some 600 per trend at 160x48,
         # nearly half the redraw); its canvases' own batch_refresh makes that one refresh per canvas
         with ExitStack() as stack:
