@@ -72,6 +72,10 @@ class ReadingsPanel(_Panel):
     moment: reactive[Moment | None] = reactive(None, repaint=False, always_update=True)
     unit: reactive[str] = reactive("C", repaint=False)
 
+    def __init__(self, site, **kw) -> None:
+        super().__init__(**kw)
+        self.site = site
+
     def watch_moment(self) -> None:
         self._changed()
 
@@ -80,10 +84,6 @@ class ReadingsPanel(_Panel):
 
     def line_count(self, width: int) -> int:
         return len(self.rows(width))
-
-    def __init__(self, site, **kw) -> None:
-        super().__init__(**kw)
-        self.site = site
 
     def rows(self, width: int = 200) -> list[tuple[str, str, str, str]]:
         """(name, value, verdict, detail) per row as drawn at ``width``, the detail already fitted (for tests too)."""
@@ -151,7 +151,7 @@ class ReadingsPanel(_Panel):
             text.append(value.rjust(value_w) + " ")
             text.append(verdict.ljust(VERDICT_WIDTH), style="" if verdict in CALM_VERDICTS else ABNORMAL)
             if detail:
-                text.append(" " + detail, style=ABNORMAL if detail.startswith("for ") else "")
+                text.append(" " + detail, style=ABNORMAL if verdict == "STALE" else "")  # "for 2 min 3 s"
         return text
 
     @staticmethod
