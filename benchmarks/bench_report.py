@@ -91,7 +91,8 @@ def main() -> None:
 
     from firewatch.report.document import build_document
     from firewatch.report.pdf import write_pdf
-    from firewatch.report.text import Clock, Units
+    from firewatch.settings.timefmt import Clock
+    from firewatch.settings.units import Units
     from firewatch.store.record import load_record
 
     record_wall = record_cpu = render_wall = render_cpu = float("inf")

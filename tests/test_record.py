@@ -25,9 +25,10 @@ from firewatch.firing.record import (
     readings_digest,
     time_above,
 )
-from firewatch.report.text import Clock, Units, duration
 from firewatch.settings.profile import load_site
 from firewatch.settings.schedule import CriticalRange, Schedule, Segment
+from firewatch.settings.timefmt import Clock, duration
+from firewatch.settings.units import Units
 
 QUARTZ = CriticalRange("quartz inversion", 550.0, 600.0, 120.0, "both")
 

@@ -11,7 +11,7 @@ from firewatch.store._common import LogUnavailable
 if TYPE_CHECKING:
     from firewatch.store.reader import LogReader
 
-__all__ = ["iso", "open_log", "refuse_damaged", "duration_text"]
+__all__ = ["iso", "open_log", "refuse_damaged"]
 
 
 def iso(t: float | None) -> str | None:
@@ -19,13 +19,6 @@ def iso(t: float | None) -> str | None:
     if t is None:
         return None
     return dt.datetime.fromtimestamp(t, dt.UTC).isoformat(timespec="seconds").replace("+00:00", "Z")
-
-
-def duration_text(seconds: float) -> str:
-    seconds = int(round(seconds))
-    h, rem = divmod(seconds, 3600)
-    m, s = divmod(rem, 60)
-    return f"{h}:{m:02d}:{s:02d}"
 
 
 def open_log(path: str | Path, check: bool = True) -> LogReader:

@@ -49,6 +49,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--fault", action="append", default=[], metavar="KIND@MINUTES[:K=V,...]", help="a simulator fault (repeatable)")
     p.add_argument("--scenario", metavar="NAME|FILE", help="a built-in scenario by name (closed-kiln, open-port; see "
                    "firewatch sim --list-scenarios) or a scenario TOML (default: closed-kiln)")
+    p.add_argument("--utc", action="store_true", help="clock times in UTC instead of the site's time zone ([site] timezone, else this computer's)")
 
 
 def scenario_profiles(scenario: str | None) -> list[str]:
@@ -199,7 +200,7 @@ def run(args: argparse.Namespace) -> int:
         from firewatch.ui import run_app
         from firewatch.ui.app import FirewatchApp
 
-        app = FirewatchApp(log, mode="live")
+        app = FirewatchApp(log, mode="live", utc=args.utc)
         return run_app(app)
     finally:
         leaving.set()

@@ -7,7 +7,7 @@ import json
 import sys
 from typing import Any
 
-from firewatch.commands._common import duration_text, iso, open_log
+from firewatch.commands._common import iso, open_log
 
 __all__ = ["add_parser", "run", "summary"]
 
@@ -17,7 +17,8 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
                        description="The firing's start and end, duration, samples per channel, malformed lines, failed Modbus polls, gaps and alarms; "
                        "with --json also the firing report's summary (peak, holds, critical ranges, divergence, readings SHA-256).")
     p.add_argument("log", metavar="FILE.db")
-    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.add_argument("--json", action="store_true", help="print one JSON object (times in UTC, ISO 8601)")
+    p.add_argument("--utc", action="store_true", help="clock times in UTC instead of the site's time zone ([site] timezone, else this computer's)")
 
 
 def _record_summary(reader: Any) -> dict[str, Any] | None:
@@ -107,6 +108,18 @@ def _sessions(reader) -> list[dict[str, Any]]:
     ]
 
 
+def _site_zone(reader) -> str:
+    """The ``[site] timezone`` of the profile kept in the log ("" when it names none or does not load)."""
+    from firewatch.settings._tomlcheck import ProfileError
+    from firewatch.settings.profile import load_site
+    from firewatch.store._common import LogError
+
+    try:
+        return load_site(f"{reader.path} (site profile in the log)", text=reader.firing().get("site_profile") or "").timezone
+    except (ProfileError, LogError):
+        return ""
+
+
 def run(args: argparse.Namespace) -> int:
     from firewatch.store._common import LogDamaged, damage_error
 
@@ -118,6 +131,7 @@ def run(args: argparse.Namespace) -> int:
             if not problems:
                 raise
             info = {}  # what a damaged log could not give; the integrity check says why
+        zone = _site_zone(reader)
     info["integrity"] = {"check": "PRAGMA quick_check", "ok": not problems, "problems": problems}
     status = 0
     if problems:
@@ -130,20 +144,30 @@ def run(args: argparse.Namespace) -> int:
     from rich.console import Console
     from rich.table import Table
 
+    from firewatch.settings.timefmt import Clock, duration
+
+    clock = Clock.for_site(zone, utc=args.utc)
     console = Console()
     if len(info) == 1:  # only the integrity check could be read
         console.print(f"firing log {args.log}: damaged; SQLite's quick_check found:\n" + "\n".join(problems), markup=False, highlight=False)
         return status
+
+    def at(text: str | None) -> str:
+        """An ISO time from the summary, in the site's clock (the zone is named once, in its own row)."""
+        return clock.stamp(_utc_seconds(text)) if text else "-"
+
+    start_t, end_t = _utc_seconds(info["start"]), _utc_seconds(info["end"])
     table = Table(title=f"firing log {args.log}", show_header=False, title_justify="left")
     table.add_column("what")
     table.add_column("value")
     table.add_row("site", f"{info['site']} — {info['kiln']}")
     table.add_row("schedule", info["schedule"] or "none")
-    table.add_row("start", info["start"] or "no data")
-    table.add_row("end", info["end"] or "no data")
-    table.add_row("duration", duration_text(info["duration_s"]) if info["duration_s"] is not None else "-")
+    table.add_row("clock times", clock.describe(start_t, end_t))
+    table.add_row("start", clock.full(start_t) if start_t is not None else "no data")
+    table.add_row("end", clock.full(end_t) if end_t is not None else "no data")
+    table.add_row("duration", duration(info["duration_s"]) if info["duration_s"] is not None else "-")
     table.add_row("recorder sessions", "\n".join(
-        f"{x['started']} to {x['ended'] or 'open (killed, or still recording)'}"
+        f"{at(x['started'])} to {at(x['ended']) if x['ended'] else 'open (killed, or still recording)'}"
         f"{' (' + x['end_reason'] + ')' if x['end_reason'] else ''}; SQLite {x['sqlite_version']}"
         f"{' (' + x['sqlite_note'] + ')' if x['sqlite_note'] else ''}"
         for x in info["recorder_sessions"]) or "none")
@@ -151,14 +175,25 @@ def run(args: argparse.Namespace) -> int:
     table.add_row("malformed lines", str(info["malformed_lines"]))
     if info["failed_polls"]:
         table.add_row("failed Modbus polls", str(info["failed_polls"]))
-    table.add_row("gaps", "none" if not info["gaps"] else "\n".join(f"{g['start']} +{g['seconds']:.0f} s ({g['reason']})" for g in info["gaps"]))
+    table.add_row("gaps", "none" if not info["gaps"] else "\n".join(
+        f"{at(g['start'])}, {duration(g['seconds'])} ({g['reason']})" for g in info["gaps"]))
     table.add_row(
         "alarms",
         "none" if not info["alarms"] else "\n".join(
-            f"{a['priority']} {a['kind']} {a['channel'] or ''} {('cause ' + a['cause']) if a['cause'] else ''} at +{a['raised_s']:.0f} s, {a['state']}"
+            f"{clock.stamp(start_t + a['raised_s']) if start_t is not None else '-'} {a['priority']} {a['kind']} "
+            f"{a['channel'] or ''}{(' (cause ' + a['cause'] + ')') if a['cause'] else ''}, {a['state']}"
             for a in info["alarms"]
         ),
     )
     table.add_row("integrity", "ok (SQLite quick_check)" if not problems else "DAMAGED (SQLite quick_check):\n" + "\n".join(problems))
     console.print(table)
     return status
+
+
+def _utc_seconds(text: str | None) -> float | None:
+    """Seconds since the epoch from the summary's ISO 8601 UTC text."""
+    import datetime as dt
+
+    if not text:
+        return None
+    return dt.datetime.fromisoformat(text).timestamp()  # Python 3.11 reads the Z itself

@@ -14,6 +14,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
                        description="One row per kiln publishing under the prefix: state, segment, temperature, divergence, "
                        "active alarms, data age; Enter opens a kiln, A acknowledges every alarm (applied where sites allow).")
     p.add_argument("--mqtt", required=True, metavar="URL", help="mqtt://HOST:PORT/PREFIX (or mqtts://)")
+    p.add_argument("--utc", action="store_true", help="clock times in UTC instead of this computer's time zone")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -28,5 +29,5 @@ def run(args: argparse.Namespace) -> int:
         raise UsageError("--mqtt: the plant view needs paho-mqtt: pip install 'firewatch-kiln[mqtt]'") from None
     from firewatch.ui.plant import PlantApp
 
-    PlantApp(url).run()
+    PlantApp(url, utc=args.utc).run()
     return 0

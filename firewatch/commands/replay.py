@@ -8,7 +8,7 @@ import sys
 
 from firewatch.commands import _args
 from firewatch.commands._args import UsageError
-from firewatch.commands._common import duration_text, iso, open_log
+from firewatch.commands._common import iso, open_log
 
 __all__ = ["add_parser", "run"]
 
@@ -26,6 +26,8 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--schedule", help="schedule to use instead of the one stored in the log")
     p.add_argument("--json", action="store_true", help="with --headless: one JSON object")
     p.add_argument("--speed", type=_args.positive, default=60.0, help="dashboard: initial replay speed (default 60x)")
+    p.add_argument("--utc", action="store_true", help="clock times in UTC instead of the site's time zone ([site] timezone, "
+                   "else this computer's), on the dashboard and with --headless")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -52,7 +54,7 @@ def run(args: argparse.Namespace) -> int:
                 from firewatch.ui import run_replay
             except ImportError:
                 raise UsageError("the replay dashboard is not part of this version; use --headless") from None
-            return run_replay(args.log, site, schedule, speed=args.speed, site_path=args.site)
+            return run_replay(args.log, site, schedule, speed=args.speed, site_path=args.site, utc=args.utc)
         result = reevaluate(reader, site, schedule)
         original = len(reader.alarms())
     alarms = alarm_summary(result)
@@ -75,17 +77,21 @@ def run(args: argparse.Namespace) -> int:
     from rich.console import Console
     from rich.table import Table
 
+    from firewatch.settings.timefmt import Clock, duration
+
     console = Console()
-    span = duration_text(result.end_t - result.start_t) if result.start_t is not None and result.end_t is not None else "-"
+    clock = Clock.for_site(site.timezone, utc=args.utc)
+    start = result.start_t
+    span = duration(result.end_t - start) if start is not None else "-"
     console.print(f"re-evaluated {args.log}: {result.lines} lines ({result.malformed} malformed), {span}, site '{site.name}', "
-                  f"schedule '{info['schedule']}'. The log was not changed; it recorded {original} alarm(s).")
+                  f"schedule '{info['schedule']}'. The log was not changed; it recorded {original} alarm(s). "
+                  f"Clock times in {clock.describe(start, result.end_t)}.")
     table = Table(title=f"{len(alarms)} alarm(s) on re-evaluation", title_justify="left")
     for col in ("raised", "kind", "channel", "cause", "priority", "cleared", "message"):
-        table.add_column(col)
+        table.add_column(col, no_wrap=col in ("raised", "cleared"))  # a time is never split
     for a in alarms:
-        table.add_row(
-            duration_text(a["raised_s"]), a["kind"], a["channel"] or "-", a["cause"] or "-", a["priority"],
-            duration_text(a["cleared_s"]) if a["cleared_s"] is not None else "active", a["message"],
-        )
+        raised = clock.stamp(start + a["raised_s"]) if start is not None else "-"
+        cleared = f"after {duration(a['cleared_s'] - a['raised_s'])}" if a["cleared_s"] is not None else "active"
+        table.add_row(raised, a["kind"], a["channel"] or "-", a["cause"] or "-", a["priority"], cleared, a["message"])
     console.print(table)
     return 0

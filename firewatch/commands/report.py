@@ -64,7 +64,8 @@ def run(args: argparse.Namespace) -> int:
         sys.stderr.write("firewatch report: needs matplotlib: pip install 'firewatch-kiln[report]'\n")
         return 1
     from firewatch.report.document import build_document
-    from firewatch.report.text import Clock, Units
+    from firewatch.settings.timefmt import Clock
+    from firewatch.settings.units import Units
     from firewatch.store.record import read_record
 
     with open_log(args.log) as reader:

@@ -15,6 +15,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
                        "the SSH connection, never disturbs the recorder.")
     p.add_argument("log", metavar="FILE.db")
     p.add_argument("--site", metavar="SITE.toml", help="the site profile file that the tuning screen may write (accept is offered only with it)")
+    p.add_argument("--utc", action="store_true", help="clock times in UTC instead of the site's time zone ([site] timezone, else this computer's)")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -32,4 +33,4 @@ def run(args: argparse.Namespace) -> int:
             load_site(args.site)
         except ProfileError as exc:
             raise UsageError(f"--site: {exc.problems[0]}") from None
-    return run_watch(args.log, site_path=args.site)
+    return run_watch(args.log, site_path=args.site, utc=args.utc)

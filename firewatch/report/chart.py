@@ -15,8 +15,8 @@ from matplotlib.figure import Figure
 from numpy.typing import ArrayLike
 
 from firewatch.firing.record import ChartData
-from firewatch.report.text import Clock, Units
-from firewatch.settings.units import from_celsius
+from firewatch.settings.timefmt import Clock
+from firewatch.settings.units import Units, from_celsius
 
 __all__ = ["axes_rect", "chart_figure", "draw_chart"]
 

@@ -13,7 +13,8 @@ from dataclasses import dataclass, field
 
 from firewatch import __version__
 from firewatch.firing.record import DIGEST_NAME, FiringRecord
-from firewatch.report.text import Clock, Units, duration
+from firewatch.settings.timefmt import Clock, duration
+from firewatch.settings.units import Units
 
 __all__ = ["CAUTIONS", "STATE_WORDS", "ChartBlock", "Document", "Fields", "Table", "build_document"]
 

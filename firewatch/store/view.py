@@ -34,7 +34,7 @@ from firewatch.settings.profile import AlarmSettings, SiteProfile, load_site
 from firewatch.settings.schedule import Schedule, load_schedule
 from firewatch.transport.records import Status
 
-__all__ = ["FiringView", "Moment", "Trend", "AlarmRow", "ViewState", "HEARTBEAT_STALE_S",
+__all__ = ["FiringView", "Moment", "Trend", "AlarmRow", "ViewState", "HEARTBEAT_STALE_S", "VERDICTS",
            "LIVE", "NO_DATA", "RECORDER_STOPPED", "FIRING_ENDED", "REPLAY"]
 
 HEARTBEAT_STALE_S = 5.0
@@ -42,6 +42,8 @@ HEARTBEAT_STALE_S = 5.0
 (half a second), so this allows a slow commit or two and still says so within a few seconds."""
 
 LIVE, NO_DATA, RECORDER_STOPPED, FIRING_ENDED, REPLAY = "live", "no-data", "recorder-stopped", "firing-ended", "replay"
+VERDICTS = ("ok", "OUT", "STALE", "OPEN", "UNDER", "OVER", "ERROR", "RANGE", "—")
+"""Every word :meth:`Moment.verdict` gives: screens keep room for the longest, never cutting one."""
 _LABELS = {LIVE: "LIVE", NO_DATA: "NO DATA", RECORDER_STOPPED: "RECORDER STOPPED", FIRING_ENDED: "FIRING ENDED", REPLAY: "REPLAY"}
 
 
@@ -106,6 +108,28 @@ class Moment:
 
     def value(self, name: str) -> float:
         return self.values.get(name, math.nan)
+
+    def verdict(self, name: str) -> str:
+        """The word a channel's row ends with, decided here so that screens only draw it.
+
+        ``STALE`` when the value is older than the site's ``no_data_s``; else
+        the status word when the reading is not a plain value (``OPEN``,
+        ``UNDER``, ``OVER``, ``ERROR``, ``RANGE``, ``—`` for none); else, for a
+        pyrometer compared with a reference thermocouple, ``OUT`` when its
+        divergence is beyond the allowed band and ``ok`` within it; else "".
+        """
+        if name in self.stale:
+            return "STALE"
+        if name in self.status:
+            word = status_text(self.status[name])
+            if word:
+                return word
+        elif name not in self.values:
+            return "—"
+        div, allowed = self.value(f"{name}.divergence"), self.value(f"{name}.allowed")
+        if math.isfinite(div) and math.isfinite(allowed):
+            return "OUT" if abs(div) > allowed else "ok"
+        return ""
 
 
 @dataclass

@@ -8,20 +8,22 @@ that draw.
 
 from __future__ import annotations
 
-__all__ = ["run_watch", "run_replay", "run_app"]
+__all__ = ["run_app", "run_replay", "run_watch"]
 
 
-def run_watch(log, show_cautions: bool | None = None, site_path=None) -> int:
+def run_watch(log, show_cautions: bool | None = None, site_path=None, utc: bool = False) -> int:
     """The live dashboard until the operator quits; a log found damaged ends it with :class:`LogDamaged`."""
     from firewatch.ui.app import FirewatchApp
 
-    return run_app(FirewatchApp(log, mode="live", show_cautions=show_cautions, site_path=site_path))
+    return run_app(FirewatchApp(log, mode="live", show_cautions=show_cautions, site_path=site_path, utc=utc))
 
 
-def run_replay(log, site=None, schedule=None, speed: float = 60.0, show_cautions: bool | None = None, site_path=None) -> int:
+def run_replay(log, site=None, schedule=None, speed: float = 60.0, show_cautions: bool | None = None, site_path=None,
+               utc: bool = False) -> int:
     from firewatch.ui.app import FirewatchApp
 
-    return run_app(FirewatchApp(log, mode="replay", site=site, schedule=schedule, speed=speed, show_cautions=show_cautions, site_path=site_path))
+    return run_app(FirewatchApp(log, mode="replay", site=site, schedule=schedule, speed=speed, show_cautions=show_cautions,
+                                site_path=site_path, utc=utc))
 
 
 def run_app(app) -> int:

@@ -12,6 +12,7 @@ from textual.reactive import reactive
 from firewatch.services.desk import ActionDesk
 from firewatch.store._common import LogError, damage_error
 from firewatch.store.reader import LogReader
+from firewatch.settings.timefmt import Clock
 from firewatch.store.view import FiringView
 from firewatch.ui.dashboard import DashboardScreen
 from firewatch.ui.screens import CautionsScreen
@@ -35,17 +36,19 @@ class FirewatchApp(App):
     TITLE = "firewatch"
     ENABLE_COMMAND_PALETTE = False
 
-    unit: reactive[str] = reactive("C")
-    """Units people read: C or F."""
+    unit: reactive[str] = reactive("C", repaint=False)
+    """Units people read: C or F (the screen redraws what shows a temperature; nothing else is repainted)."""
 
     def __init__(self, log, mode: str = "live", site=None, schedule=None, speed: float = 60.0,
-                 show_cautions: bool | None = None, desk: ActionDesk | None = None, site_path=None) -> None:
+                 show_cautions: bool | None = None, desk: ActionDesk | None = None, site_path=None, utc: bool = False) -> None:
         super().__init__()
         self.site_path = site_path
         """The site profile file the tuning screen may write (None: accepting is not offered)."""
         self.log_path = Path(log)
         self.mode = mode
         self.view = FiringView(self.log_path, site=site, schedule=schedule)
+        self.clock = Clock.for_site(self.view.site.timezone if self.view.site is not None else "", utc=utc)
+        """Every clock time on the screens: the site's ``[site] timezone``, the computer's zone, or UTC (``--utc``)."""
         self.speed = speed
         # live and in replay: written at once while no recorder holds the log, else handed to the recorder
         self.desk = desk if desk is not None else ActionDesk(self.log_path, self.view.site, self.view.schedule)

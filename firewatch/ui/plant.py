@@ -12,6 +12,7 @@ from textual.screen import Screen
 from textual.widgets import DataTable, Footer, Static
 
 from firewatch.services.plant import PlantState
+from firewatch.settings.timefmt import Clock, duration
 from firewatch.ui import format as fmt
 __all__ = ["PlantApp", "KilnScreen"]
 
@@ -54,7 +55,8 @@ class KilnScreen(Screen):
         s = view.state.get("summary", {})
         age = time.time() - view.received if view.received else math.inf
         self.query_one("#kiln-title", Static).update(
-            f"{self.kiln} · {s.get('site', '')} · {s.get('kiln_name', '')} · data {fmt.duration(age)} old · Esc back"
+            f"{self.kiln} · {s.get('site', '')} · {s.get('kiln_name', '')} · data {duration(age)} old "
+            f"(at {self.app.clock.header(view.received)}) · Esc back"
         )
         alarms = self.query_one("#kiln-alarms", DataTable)
         alarms.clear()
@@ -106,7 +108,7 @@ class PlantScreen(Screen):
             age = now - v.received if v.received else math.inf
             unack = len(v.unacknowledged)
             if age > STALE_S:
-                state = Text(f"STALE {fmt.duration(age)}", style=ABNORMAL)
+                state = Text(f"STALE {duration(age)}", style=ABNORMAL)
             elif unack:
                 state = Text(f"ALARM {unack} unack", style=ABNORMAL)
             elif v.alarms:
@@ -116,13 +118,13 @@ class PlantScreen(Screen):
             seg = s.get("segment")
             table.add_row(v.kiln, state, "—" if seg is None else str(seg + 1), _num(s.get("temperature_c")), _num(s.get("divergence_k")),
                           ", ".join(f"{a['kind']} {a['channel'] or ''}".strip() for a in v.alarms) or "—",
-                          fmt.duration(s.get("remaining_s")), fmt.duration(age) if math.isfinite(age) else "—", key=v.kiln)
+                          duration(s.get("remaining_s")), duration(age) if math.isfinite(age) else "—", key=v.kiln)
         if keep is not None and views:
             table.move_cursor(row=min(keep, len(views) - 1))
         total = sum(len(v.unacknowledged) for v in views)
         self.query_one("#plant-title", Static).update(
-            f"PLANT {self.app.plant.url.prefix} · {len(views)} kiln(s) · {total} unacknowledged alarm(s) · "
-            f"broker {'connected' if self.app.plant.connected.is_set() else 'NOT CONNECTED'}"
+            f"PLANT {self.app.plant.url.prefix} · {self.app.clock.header(now)} · {len(views)} kiln(s) · "
+            f"{total} unacknowledged alarm(s) · broker {'connected' if self.app.plant.connected.is_set() else 'NOT CONNECTED'}"
         )
 
     def on_data_table_row_selected(self, event: DataTable.RowSelected) -> None:
@@ -152,9 +154,11 @@ class PlantApp(App):
     TITLE = "firewatch plant"
     ENABLE_COMMAND_PALETTE = False
 
-    def __init__(self, url) -> None:
+    def __init__(self, url, utc: bool = False) -> None:
         super().__init__()
         self.plant = PlantState(url)
+        self.clock = Clock.for_site("", utc=utc)
+        """Clock times: this computer's zone (kilns may be in several sites), or UTC with ``--utc``."""
 
     def on_mount(self) -> None:
         self.theme = "textual-dark"

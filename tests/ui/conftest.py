@@ -24,3 +24,12 @@ def fault_log(tmp_path_factory) -> Path:
 def _state_home(tmp_path, monkeypatch):
     """Keep the cautions marker out of the real home directory."""
     monkeypatch.setenv("XDG_STATE_HOME", str(tmp_path / "state"))
+
+
+@pytest.fixture(scope="session")
+def glance_log(tmp_path_factory) -> Path:
+    """Seven and a half hours of the demo glaze firing with py1's window fouling from 320 min: py1 OUT, py2 ok."""
+    log = tmp_path_factory.mktemp("glance") / "glance.db"
+    sc = load_scenario().with_changes(duration_s=450 * 60.0, seed=7, faults=(parse_fault("window-fouling@320:rate=0.4"),))
+    serve.to_log(Simulation(sc), log)
+    return log

@@ -1,4 +1,7 @@
-"""Snapshots of the main screens at 80x24 and 160x48 (pytest-textual-snapshot; update only after a look)."""
+"""Snapshots of the main screens at 80x24, 100x30 and 160x48 (pytest-textual-snapshot; update only after a look).
+
+Clock times in UTC (``utc=True``) so that the pictures do not depend on the computer's zone.
+"""
 
 from __future__ import annotations
 
@@ -8,7 +11,10 @@ from pathlib import Path
 import pytest
 
 from firewatch.ui.app import FirewatchApp
+from firewatch.ui.screens import ShelveScreen
 from firewatch.ui.widgets import AlarmList, ReadingsPanel
+
+SIZES = [(80, 24), (100, 30), (160, 48)]
 
 
 def _ready(app) -> bool:
@@ -21,16 +27,19 @@ def _ready(app) -> bool:
     return (
         panel.moment is not None
         and panel.moment.t == screen.cursor
-        and alarms.is_mounted
+        and len(alarms.alarms) == len(panel.moment.alarms)
         and screen.chart_cursor == screen.cursor
     )
 
 
-def at(seconds_in: float, keys: tuple[str, ...] = ()):
+def at(seconds_in: float | None, keys: tuple[str, ...] = ()):
+    """Seek to ``seconds_in`` after the start (None: the end), wait for the screen, then press ``keys``."""
+
     async def run_before(pilot) -> None:
         app = pilot.app
         screen = app.screen
-        screen.seek(screen.view.start_t + seconds_in)
+        view = screen.view
+        screen.seek(view.end_t if seconds_in is None else view.start_t + seconds_in)
         deadline = time.monotonic() + 10
         await pilot.pause(0.3)
         while time.monotonic() < deadline and not _ready(app):
@@ -42,21 +51,46 @@ def at(seconds_in: float, keys: tuple[str, ...] = ()):
     return run_before
 
 
-@pytest.mark.parametrize("size", [(80, 24), (160, 48)])
+@pytest.mark.parametrize("size", SIZES)
 def test_replay_with_an_alarm(snap_compare, fault_log: Path, size) -> None:
-    app = FirewatchApp(fault_log, mode="replay", show_cautions=False)
+    """tc2 open since 60 min: OPEN on its row, the pyrometers with no reference to compare with."""
+    app = FirewatchApp(fault_log, mode="replay", show_cautions=False, utc=True)
     assert snap_compare(app, terminal_size=size, run_before=at(80 * 60))
 
 
-@pytest.mark.parametrize("size", [(80, 24), (160, 48)])
+@pytest.mark.parametrize("size", SIZES)
+def test_replay_out_of_band(snap_compare, glance_log: Path, size) -> None:
+    """py1's window fouled: OUT beside its reconciled value, py2 ok; the divergence alarm listed; the trend in clock time."""
+    app = FirewatchApp(glance_log, mode="replay", show_cautions=False, utc=True)
+    assert snap_compare(app, terminal_size=size, run_before=at(None))
+
+
+@pytest.mark.parametrize("size", SIZES)
 def test_replay_in_fahrenheit_with_help(snap_compare, fault_log: Path, size) -> None:
-    app = FirewatchApp(fault_log, mode="replay", show_cautions=False)
+    app = FirewatchApp(fault_log, mode="replay", show_cautions=False, utc=True)
     assert snap_compare(app, terminal_size=size, run_before=at(30 * 60, ("u", "question_mark")))
+
+
+def test_fahrenheit_out_of_band(snap_compare, glance_log: Path) -> None:
+    app = FirewatchApp(glance_log, mode="replay", show_cautions=False, utc=True)
+    assert snap_compare(app, terminal_size=(80, 24), run_before=at(None, ("u",)))
+
+
+def test_shelve_dialog(snap_compare, glance_log: Path) -> None:
+    """Every field labelled (issue 14: the '60' had none)."""
+
+    async def run_before(pilot) -> None:
+        await at(None)(pilot)
+        pilot.app.push_screen(ShelveScreen("alarm #1: divergence py1"))
+        await pilot.pause(0.5)
+
+    app = FirewatchApp(glance_log, mode="replay", show_cautions=False, utc=True)
+    assert snap_compare(app, terminal_size=(80, 24), run_before=run_before)
 
 
 def test_cautions_at_first_start(snap_compare, fault_log: Path) -> None:
     async def run_before(pilot) -> None:
         await pilot.pause(1.0)
 
-    app = FirewatchApp(fault_log, mode="replay", show_cautions=True)
+    app = FirewatchApp(fault_log, mode="replay", show_cautions=True, utc=True)
     assert snap_compare(app, terminal_size=(80, 24), run_before=run_before)
