@@ -1,4 +1,4 @@
-"""Trailing rates of change (module named trend to keep clear of the standard library), robust to noise, vectorised over a batch with history carried between batches."""
+"""Trailing rates of change, robust to noise, vectorised over a batch with history carried between batches."""
 
 from __future__ import annotations
 

@@ -273,7 +273,8 @@ class Ingest:
         last = self._last_error
         if last is None or last[0] != reason or t - last[1] >= ERROR_REPEAT_S:
             again = f" ({last[2]} more failed batches since the last report)" if last and last[2] else ""
-            batch.events.append((t, "error", None, f"a batch of {len(raw)} lines could not be processed ({reason}); its lines are kept raw, recording goes on{again}"))
+            batch.events.append((t, "error", None, f"a batch of {len(raw)} lines could not be processed ({reason}); "
+                                 f"its lines are kept raw, recording goes on{again}"))
             self._last_error = (reason, t, 0)
         else:
             self._last_error = (last[0], last[1], last[2] + 1)

@@ -268,7 +268,8 @@ SITE_FIELDS = (
     Field("name", str, "unnamed site", help="the works"),
     Field("kiln", str, "", help="the kiln"),
     Field("timezone", str, "", _zone_check, shown_default="the computer's zone",
-          help="an IANA zone name such as `\"Europe/London\"`, for the clock times people read (the dashboard, `inspect`, `replay --headless`, the firing report; `--utc` overrides it); the log itself keeps UTC"),
+          help="an IANA zone name such as `\"Europe/London\"`, for the clock times people read (the dashboard, `inspect`, "
+               "`replay --headless`, the firing report; `--utc` overrides it); the log itself keeps UTC"),
 )
 
 INPUT_FORMATS = ("native", "csv", "keyvalue", *MODBUS_FORMATS)

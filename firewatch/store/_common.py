@@ -21,7 +21,10 @@ import sqlite3
 from importlib import resources
 from pathlib import Path
 
-__all__ = ["SCHEMA_VERSION", "LogError", "LogLocked", "LogDamaged", "LogWriteError", "LogUnavailable", "STORAGE_CODES", "log_error", "damage_error", "schema_sql"]
+__all__ = [
+    "SCHEMA_VERSION", "LogError", "LogLocked", "LogDamaged", "LogWriteError", "LogUnavailable", "STORAGE_CODES", "log_error",
+    "damage_error", "schema_sql",
+]
 
 SCHEMA_VERSION = 2
 """The schema this firewatch writes and the newest it reads."""

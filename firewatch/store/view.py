@@ -29,9 +29,9 @@ from typing import Any
 import numpy as np
 
 from firewatch.settings._tomlcheck import ProfileError
-from firewatch.store.reader import LogReader
 from firewatch.settings.profile import AlarmSettings, SiteProfile, load_site
 from firewatch.settings.schedule import Schedule, load_schedule
+from firewatch.store.reader import LogReader
 from firewatch.transport.records import Status
 
 __all__ = ["FiringView", "Moment", "Trend", "AlarmRow", "ViewState", "HEARTBEAT_STALE_S", "VERDICTS",

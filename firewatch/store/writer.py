@@ -36,8 +36,8 @@ import resource
 import shutil
 import socket
 import sqlite3
-import threading
 import stat
+import threading
 import time
 from collections import deque
 from collections.abc import Callable, Iterable
@@ -52,7 +52,8 @@ from firewatch.firing.pipeline import Batch, ChannelInfo
 from firewatch.store._common import SCHEMA_VERSION, LogError, LogLocked, LogWriteError, _connect, schema_sql
 
 __all__ = [
-    "LogWriter", "BriefWrite", "take_lock", "release_lock", "BRIEF_HOLDER", "BRIEF_WAIT_S", "Outage", "HOLD_S", "HOLD_RATE_HZ", "HOLD_LINES", "HOLD_LINE_BYTES", "RETRY_S", "RESERVE_BYTES",
+    "LogWriter", "BriefWrite", "take_lock", "release_lock", "BRIEF_HOLDER", "BRIEF_WAIT_S", "Outage", "HOLD_S", "HOLD_RATE_HZ",
+    "HOLD_LINES", "HOLD_LINE_BYTES", "RETRY_S", "RESERVE_BYTES",
     "WAL_CHECKPOINT_BYTES", "JOURNAL_SIZE_LIMIT", "hold_memory_bytes",
 ]
 
@@ -518,7 +519,8 @@ class LogWriter:
         )
 
     def event(self, t: float, kind: str, detail: str = "", channel: str | None = None) -> None:
-        self._run(_Statement("INSERT INTO event(t, kind, channel, detail) VALUES (?, ?, ?, ?)", (t, kind, channel, detail), None, _units((kind, detail)), False))
+        self._run(_Statement("INSERT INTO event(t, kind, channel, detail) VALUES (?, ?, ?, ?)", (t, kind, channel, detail), None,
+                             _units((kind, detail)), False))
 
     def gap(self, start_t: float, end_t: float, reason: str) -> None:
         self._run(_Statement("INSERT INTO gap(start_t, end_t, reason) VALUES (?, ?, ?)", (start_t, end_t, reason), None, 1, False))
@@ -708,7 +710,8 @@ class LogWriter:
             what = f"{op.other:,} records held in memory dropped, oldest first, while the log could not be written"
         if op.first_t is not None and start is not None and end is not None:
             self.con.execute("INSERT INTO gap(start_t, end_t, reason) VALUES (?, ?, ?)", (start, end, "write error"))
-            self.con.execute("INSERT INTO event(t, kind, channel, detail) VALUES (?, 'gap', NULL, ?)", (end, f"{end - start:.1f} s without data: write error: {what}"))
+            self.con.execute("INSERT INTO event(t, kind, channel, detail) VALUES (?, 'gap', NULL, ?)",
+                             (end, f"{end - start:.1f} s without data: write error: {what}"))
         else:
             t = end if end is not None else (self.last_t if self.last_t is not None else self._clock())
             self.con.execute("INSERT INTO event(t, kind, channel, detail) VALUES (?, 'write-error', NULL, ?)", (t, what))

@@ -10,9 +10,9 @@ from textual.app import App
 from textual.reactive import reactive
 
 from firewatch.services.desk import ActionDesk
+from firewatch.settings.timefmt import Clock
 from firewatch.store._common import LogError, damage_error
 from firewatch.store.reader import LogReader
-from firewatch.settings.timefmt import Clock
 from firewatch.store.view import FiringView
 from firewatch.ui.dashboard import DashboardScreen
 from firewatch.ui.screens import CautionsScreen

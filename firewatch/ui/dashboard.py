@@ -29,9 +29,8 @@ from textual.widgets import Footer, Static, TabbedContent, TabPane
 from firewatch.services.desk import Outcome
 from firewatch.settings.timefmt import Clock, duration
 from firewatch.settings.units import Units
-from firewatch.store.view import FIRING_ENDED, LIVE, NO_DATA, FiringView, Moment
 from firewatch.store._common import LogDamaged
-from firewatch.store.view import FiringView, Moment
+from firewatch.store.view import FIRING_ENDED, LIVE, NO_DATA, FiringView, Moment
 from firewatch.ui import format as fmt
 from firewatch.ui.screens import HelpScreen, NoteScreen, ShelveScreen
 from firewatch.ui.widgets import (

@@ -14,6 +14,7 @@ from textual.widgets import DataTable, Footer, Static
 from firewatch.services.plant import PlantState
 from firewatch.settings.timefmt import Clock, duration
 from firewatch.ui import format as fmt
+
 __all__ = ["PlantApp", "KilnScreen"]
 
 STALE_S = 30.0

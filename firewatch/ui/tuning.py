@@ -318,7 +318,7 @@ class TuningScreen(Screen):
         from firewatch.settings._tomlcheck import ProfileError
 
         assert self.data is not None and self.result is not None
-        when = dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds").replace("+00:00", "Z")
+        when = dt.datetime.now(dt.UTC).isoformat(timespec="seconds").replace("+00:00", "Z")
         setting = self.result.instrument
         parts: list[str] = []
         if "set_emissivity" in values:
