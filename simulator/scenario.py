@@ -33,7 +33,11 @@ Fault kinds and their parameters (defaults in brackets):
 tc-drift            channel [reference thermocouple], rate degC/h [6]
 tc-open             channel [reference thermocouple]
 window-fouling      rate, fraction of transmission lost per hour [0.05]
-emissivity-step     to, the new emissivity [+0.07], slope [unchanged]
+emissivity-step     to, the new emissivity in the single-band instrument's band
+                    [+0.07 when slope is not given, else unchanged]; slope,
+                    the new ratio e1/e2 of the emissivities in a ratio
+                    instrument's two bands [unchanged] (a non-gray step:
+                    ``slope`` alone, or with ``to``)
 dropout             seconds [60], disconnect 0/1 [0] (drop the TCP client)
 garbage             seconds [60], fraction of lines spoiled [0.3]
 =================== ==========================================================

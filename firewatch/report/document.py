@@ -12,6 +12,7 @@ import datetime as dt
 from dataclasses import dataclass, field
 
 from firewatch import __version__
+from firewatch.firing.alarms.causes import CauseStep
 from firewatch.firing.record import DIGEST_NAME, FiringRecord
 from firewatch.report.text import Clock, Units, duration
 
@@ -245,7 +246,11 @@ def build_document(record: FiringRecord, clock: Clock, units: Units, now: float 
         alarms.add([f"{a.id}", clock.stamp(a.raised_t), what, a.message], mark=True, group=True)
         for s in a.steps[1:] if a.steps and a.steps[0].state == "active-unacknowledged" else a.steps:
             state, detail = STATE_WORDS.get(s.state, s.state), s.detail
-            if s.state == "shelved" and s.by:
+            change = CauseStep.from_detail(s.t, s.detail) if s.state == "cause-changed" else None
+            if change is not None:  # a new likely cause: its story in words, not the logged JSON
+                state = "likely cause changed"
+                detail = f"now {change.cause}, was {change.words(lambda t: clock.stamp(t, False))}: {change.reason}"
+            elif s.state == "shelved" and s.by:
                 detail = f"by {s.by} until {clock.stamp(s.until_t, False)}; reason: {s.reason or 'none given'}"
             elif s.detail.startswith("acknowledged") and s.by:
                 state = "acknowledged" + (", back to normal" if s.state == "normal" else ", still active")

@@ -205,8 +205,8 @@ class AlarmList(DataTable):
         self._rows: list = []
 
     def show(self, alarms, origin: float | None) -> None:
-        key = [(a.id, a.state) for a in alarms]
-        if key == [(a.id, a.state) for a in self._rows]:
+        key = [(a.id, a.state, a.cause) for a in alarms]
+        if key == [(a.id, a.state, a.cause) for a in self._rows]:
             return  # nothing changed: no redraw
         selected = self.selected_id
         self._rows = list(alarms)
@@ -216,7 +216,7 @@ class AlarmList(DataTable):
             self.add_row(
                 Text(fmt.PRIORITY_WORDS.get(a.priority, a.priority), style=emphasis),
                 Text(fmt.STATE_WORDS.get(a.state, a.state), style="bold" if "UNACK" in fmt.STATE_WORDS.get(a.state, "") else ""),
-                a.kind, a.channel or "line", a.cause or "", fmt.duration(a.raised_t - origin) if origin else "", a.message,
+                a.kind, a.channel or "line", a.cause_label, fmt.duration(a.raised_t - origin) if origin else "", a.message,
                 key=str(a.id),
             )
         if selected is not None:
@@ -243,6 +243,8 @@ class AlarmList(DataTable):
         reason = ""
         if alarm is not None and alarm.evidence:
             reason = str(alarm.evidence.get("reason", ""))
+            if alarm.steps:  # a cause that changed: the model words its story, the screen only how a time reads
+                reason = f"{alarm.cause_story(fmt.clock_short)}: {reason}"
         self.post_message(self.Highlighted(alarm.id if alarm else None, reason))
 
     def on_data_table_row_highlighted(self, event: DataTable.RowHighlighted) -> None:

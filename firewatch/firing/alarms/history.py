@@ -11,7 +11,7 @@ BIN_S = 10.0
 
 
 class History:
-    """10-second means of chosen channels over the last two hours, for the cause of a divergence.
+    """10-second means of chosen channels over the last two hours (before the latest batch), for the cause of a divergence.
 
     Parameters
     ----------
@@ -68,7 +68,9 @@ class History:
             with np.errstate(invalid="ignore", divide="ignore"):
                 mean = sums[n][:-1] / counts[n][:-1]
             self.v[n] = np.concatenate([self.v[n], np.where(counts[n][:-1] > 0, mean, np.nan)])
-        keep = self.t >= self.t[-1] - self.KEEP_S
+        # keep two hours before the batch's first reading, so that whatever is judged inside a long batch (replay's
+        # thousands of lines) sees the same past as in the recorder's half-second batches
+        keep = self.t >= float(times[0]) - self.KEEP_S
         self.t = self.t[keep]
         for n in self.names:
             self.v[n] = self.v[n][keep]
