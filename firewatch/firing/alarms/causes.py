@@ -633,26 +633,28 @@ def _witnesses(s: Signals, m: Measures, th: CauseThresholds) -> tuple[dict[str, 
 
 
 def reference_drift(s: Signals, m: Measures, th: CauseThresholds = THRESHOLDS) -> float:
-    """The reference's drift that the other instruments agree on, K/h (0 when they see none, NaN when they disagree).
+    """The reference's drift that the other instruments see, K/h (0 when they see none; NaN with no witness).
 
-    The other thermocouple and the other pyrometer each see the reference
-    depart at some rate; where both read they must agree (within
-    ``drift_witness_fraction``) for a drift to be taken out, and one that
-    reads alone is taken as it is.
+    Where the other thermocouple and the other pyrometer both read and agree
+    (within ``drift_witness_fraction``) their mean is taken; where they
+    disagree, the thermocouples compared directly decide (a pyrometer's own
+    trend over a short stretch is the noisier witness); one that reads alone
+    is taken as it is.
     """
     seen, _ = _witnesses(s, m, th)
+    pair = seen.get(s.other) if s.other is not None else None
     others = [v for k, v in seen.items() if k != s.pyrometer]
     if not others:
         return math.nan
-    moving = [v for v in others if abs(v) > th.trend_min_k_per_h]
-    if not moving:
+    if not any(abs(v) > th.trend_min_k_per_h for v in others):
         return 0.0
-    if len(others) == 1:
-        return others[0]
-    a, b = others[0], others[1]
-    if _same_way(max(a, b, key=abs), min(a, b, key=abs), th.drift_witness_fraction):
-        return (a + b) / 2.0
-    return math.nan
+    if len(others) == 2:
+        a, b = others
+        if _same_way(max(a, b, key=abs), min(a, b, key=abs), th.drift_witness_fraction):
+            return (a + b) / 2.0
+        assert pair is not None
+        return pair if abs(pair) > th.trend_min_k_per_h else 0.0
+    return others[0]
 
 
 def thermocouple_drift(s: Signals, m: Measures, th: CauseThresholds = THRESHOLDS) -> Verdict:
@@ -706,9 +708,7 @@ def window_attenuation(s: Signals, m: Measures, th: CauseThresholds = THRESHOLDS
                                                                f"{th.trend_min_span_s / 60.0:.0f})"),))
     drift = reference_drift(s, m, th)
     if not math.isfinite(drift):
-        if s.partner is None and s.other is None:
-            return Verdict(None, evidence=ev, missing=(("witness", "no second pyrometer or thermocouple to compare with"),))
-        return Verdict(None, evidence=ev)  # the witnesses disagree on the reference
+        return Verdict(None, evidence=ev, missing=(("witness", "no second pyrometer or thermocouple to compare with"),))
     own = trend + drift  # this pyrometer's own fall, the reference's drift taken out
     ev["drift_k_per_h"] = evidence_number(drift)
     ev["own_fall_k_per_h"] = evidence_number(own)
@@ -849,8 +849,8 @@ def refuted(cause: str, j: Judgement, s: Signals, th: CauseThresholds = THRESHOL
         if math.isfinite(m.trend_k_per_h) and m.trend_k_per_h > th.trend_min_k_per_h and m.steady(th):
             return "the divergence turned to rise"
         drift = reference_drift(s, m, th)
-        if not math.isfinite(drift):  # the witnesses disagree: the thermocouples compared directly decide
-            drift = m.pair_trend_k_per_h if math.isfinite(m.pair_trend_k_per_h) else 0.0
+        if not math.isfinite(drift):
+            drift = 0.0
         if (s.partner_is_ratio and math.isfinite(m.partner_trend_k_per_h) and m.steady(th)
                 and _same_way(m.trend_k_per_h + drift, m.partner_trend_k_per_h + drift, th.window_partner_max_fraction)
                 and abs(m.trend_k_per_h + drift) > th.trend_min_k_per_h):
