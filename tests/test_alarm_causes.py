@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import ast
 import dataclasses
+import datetime as dt
 import inspect
 import itertools
 import math
@@ -238,8 +239,8 @@ def test_window_attenuation_waits_for_the_ratio_pyrometer() -> None:
     # issue 12: fouling seen while the ratio instrument is below its range: unknown, naming it
     s = signals(-5.0 * H + NOISE, partner=np.full(T.size, np.nan), partner_configured=True, reference_c=640.0)
     v = window_attenuation(s, measure(s))
-    assert v.cause is None and v.missing == (("partner", "py2 has not read in range in the last 60 minutes "
-                                                         "(it reads from 700 °C; tc2 is at 640 °C)"),)
+    words = "py2 has not read in range in the last 60 minutes (it reads from 700 °C; tc2 is at 640 °C)"
+    assert v.cause is None and v.missing == (("partner", words),)
     cause, ev = likely_cause(s)
     assert cause == "unknown" and ev["missing"] == ["partner"]
     # ... and the partner reading for only five minutes is not yet enough for its trend
@@ -396,7 +397,10 @@ def test_the_story_as_the_screen_and_the_log_keep_it() -> None:
                      "the evidence does not decide", {"reason": "py1 reads ever lower"}, {"reason": "the evidence does not decide"})
     again = CauseStep.from_detail(step.t, step.detail())
     assert again == step
-    hhmm = lambda t: __import__("datetime").datetime.fromtimestamp(t, __import__("datetime").timezone.utc).strftime("%H:%M")  # noqa: E731
+
+    def hhmm(t: float) -> str:
+        return dt.datetime.fromtimestamp(t, dt.UTC).strftime("%H:%M")
+
     assert cause_story("window-attenuation", [step], hhmm) == "window-attenuation, was unknown until py2 came into range at 11:42"
     assert cause_label("window-attenuation", [step]) == "window-attenuation (was unknown)"
     assert cause_story("emissivity-change", [], hhmm) == "emissivity-change"

@@ -221,9 +221,9 @@ def test_a_cause_learns_when_the_ratio_pyrometer_comes_into_range() -> None:
     assert 3600.0 + 600.0 < step.t <= 3600.0 + 600.0 + 4 * 60.0
     assert step.t % 60.0 == 0.0  # on the grid
     # the change is a transition of its own, which leaves the ISA-18.2 state alone
-    kinds = [(tr.state, tr.alarm.state) for tr in e.transitions if tr.alarm is alarm]
-    assert kinds == [("active-unacknowledged", "active-unacknowledged"), ("cause-changed", "active-unacknowledged")]
-    assert json.loads([tr for tr in e.transitions if tr.state == "cause-changed"][0].detail)["was"] == "unknown"
+    assert [tr.state for tr in e.transitions if tr.alarm is alarm] == ["active-unacknowledged", "cause-changed"]
+    assert alarm.state == "active-unacknowledged"
+    assert json.loads(next(tr for tr in e.transitions if tr.state == "cause-changed").detail)["was"] == "unknown"
 
 
 def test_the_same_causes_whatever_the_batches() -> None:
@@ -266,12 +266,16 @@ def test_causes_are_decided_again_only_while_the_condition_holds() -> None:
     assert e.learner.evaluations == len(range(240, 1860, 60))
 
 
+def part(arrays, keep: np.ndarray):
+    times, values, status = arrays
+    return times[keep], {k: v[keep] for k, v in values.items()}, {k: v[keep] for k, v in status.items()}
+
+
 def test_a_restored_alarm_goes_on_learning() -> None:
     first = AlarmEngine(SITE)
     arrays = fouling_firing()
-    times, values, status = arrays
-    head = times < 1200.0
-    run_in_batches(first, tuple(a[head] if isinstance(a, np.ndarray) else {k: v[head] for k, v in a.items()} for a in arrays), 600)
+    head = arrays[0] < 1200.0
+    run_in_batches(first, part(arrays, head), 600)
     (alarm,) = [a for a in first.alarms.values() if a.kind == "divergence"]
     assert alarm.cause == "unknown"
     # a recorder restarted on the log: the alarm comes back from it, the history starts empty
@@ -280,6 +284,6 @@ def test_a_restored_alarm_goes_on_learning() -> None:
 
     second.restore(Alarm(alarm.id, alarm.kind, alarm.channel, alarm.priority, alarm.raised_t, alarm.message, alarm.cause,
                          alarm.evidence, state=alarm.state))
-    run_in_batches(second, tuple(a[~head] if isinstance(a, np.ndarray) else {k: v[~head] for k, v in a.items()} for a in arrays), 600)
+    run_in_batches(second, part(arrays, ~head), 600)
     assert second.alarms[alarm.id].cause == "window-attenuation"
     assert second.learner.evaluations > 0

@@ -205,8 +205,8 @@ class AlarmList(DataTable):
         self._rows: list = []
 
     def show(self, alarms, origin: float | None) -> None:
-        key = [(a.id, a.state, a.cause) for a in alarms]
-        if key == [(a.id, a.state, a.cause) for a in self._rows]:
+        key = [(a.id, a.state, a.cause, len(a.steps)) for a in alarms]
+        if key == [(a.id, a.state, a.cause, len(a.steps)) for a in self._rows]:
             return  # nothing changed: no redraw
         selected = self.selected_id
         self._rows = list(alarms)

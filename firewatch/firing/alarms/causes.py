@@ -2,8 +2,9 @@
 
 Decided when a divergence alarm is raised, from the last hour of 10-second
 means (:class:`~firewatch.firing.alarms.history.History`), and decided
-again while the alarm's condition holds (the engine's
-:class:`~firewatch.firing.alarms.engine.CauseLearner`). Each cause function
+again while the alarm's condition holds
+(:class:`~firewatch.firing.alarms.learning.CauseLearner`, which asks
+:func:`refuted` what contradicts a cause already decided). Each cause function
 looks at the same :class:`Signals` (and the shared :class:`Measures`) and
 returns a :class:`Verdict`: the cause it names, or ``None`` when it does not
 decide, the evidence it measured (kept beside the alarm whatever the
@@ -11,7 +12,9 @@ verdict) and, where it could not judge, the evidence it lacked.
 :func:`likely_cause` asks them in a fixed order and the first to decide
 wins:
 
-1. :func:`thermocouple_lag`: the divergence tracks the rate of change. A
+1. :func:`thermocouple_lag`: the divergence tracks the rate of change (the
+   reference's own rate, which a first-order sensor lags behind by its time
+   constant times the rate it sees). A
    straight line of divergence against rate explains it (R² above
    ``lag_min_r2``), its slope is a plausible time constant (at least
    ``lag_min_time_constants`` of the profile's, at most ``lag_max_s``), it
@@ -233,13 +236,16 @@ class Signals:
         single = [p for p in site.pyrometers if p.kind == "single" and p.reference and p.name != name]
         partner = (ratio or single)[0] if (ratio or single) else None
         tc = site.thermocouple(ref) if ref else None
+        rate = h.get(f"{ref}.rate") if ref else None
+        if rate is None and rate_name:
+            rate = h.get(rate_name)
         return cls(
             pyrometer=name,
             single_band=py.kind == "single",
             reference=ref,
             t=tt,
             divergence=h.get(f"{name}.divergence"),
-            rate=h.get(f"{ref}.rate", h.get(rate_name) if rate_name else None) if ref else (h.get(rate_name) if rate_name else None),
+            rate=rate,
             other=other,
             pair=pair,
             partner=partner.name if partner else None,
@@ -368,14 +374,14 @@ def find_step(s: Signals, th: CauseThresholds = THRESHOLDS) -> Step:
         return Step()
     width = th.step_mean_s
     end = s.window_end
-    n = int(math.ceil(th.window_s / width))
+    n = math.ceil(th.window_s / width)
     t0 = end - n * width
     blocks = _blocks(s.t, [d, s.rate, s.partner_divergence, s.pair], t0, width, n)
     ym = blocks[0]
     finite = ym[np.isfinite(ym)]
     if finite.size < th.step_min_blocks:
         return Step()
-    lag = max(1, int(round(th.step_within_s / width)))
+    lag = max(1, round(th.step_within_s / width))
     if n <= lag:
         return Step()
     steps = ym[lag:] - ym[:-lag]
@@ -529,8 +535,8 @@ def thermocouple_lag(s: Signals, th: CauseThresholds = THRESHOLDS) -> Verdict:
         mean_rate = float(x.mean())
         # a lag could be behind it only if the divergence has the sign of the rate
         if abs(mean_rate) > th.lag_hold_rate_c_per_h and np.sign(y.mean()) == np.sign(mean_rate):
-            return Verdict(None, evidence=ev, missing=(("rate", f"the rate held at {mean_rate:+.0f} °C/h in the last "
-                                                                f"{_window_words(s)}, so a lag cannot be fitted"),))
+            words = f"the rate held at {mean_rate:+.0f} °C/h in the last {_window_words(s)}, so a lag cannot be fitted"
+            return Verdict(None, evidence=ev, missing=(("rate", words),))
         return Verdict(None, evidence=ev)
     b, a, r2 = _line(x, y)
     lag_s = b * 3600.0
@@ -598,8 +604,8 @@ def emissivity_change(s: Signals, m: Measures, th: CauseThresholds = THRESHOLDS)
         reason += " while the rate held"
     if s.partner is not None:
         if not math.isfinite(st.partner_k):
-            return Verdict(None, evidence=ev, missing=(("partner-step", f"{s.partner} had no reading on both sides of the "
-                                                                         f"step, to tell a change of the ware from one of the reference"),))
+            words = f"{s.partner} had no reading on both sides of the step, to tell a change of the ware from one of the reference"
+            return Verdict(None, evidence=ev, missing=(("partner-step", words),))
         if abs(st.partner_k - st.k) < th.step_alike_fraction * abs(st.k):
             return Verdict(None, evidence=ev)  # both alike: the reference's doing, not the ware's
         if st.partner_after_only:
@@ -704,8 +710,8 @@ def window_attenuation(s: Signals, m: Measures, th: CauseThresholds = THRESHOLDS
             return Verdict(None, evidence=ev, missing=(_partner_missing(s),))
         since = s.partner_since()
         read = f" for only {(s.window_end - since) / 60.0:.0f} minutes" if since is not None else " too little"
-        return Verdict(None, evidence=ev, missing=(("partner", f"{s.partner} has read in range{read} (a trend takes "
-                                                               f"{th.trend_min_span_s / 60.0:.0f})"),))
+        words = f"{s.partner} has read in range{read} (a trend takes {th.trend_min_span_s / 60.0:.0f})"
+        return Verdict(None, evidence=ev, missing=(("partner", words),))
     drift = reference_drift(s, m, th)
     if not math.isfinite(drift):
         return Verdict(None, evidence=ev, missing=(("witness", "no second pyrometer or thermocouple to compare with"),))
@@ -739,6 +745,10 @@ class Judgement:
 
 def likely_cause(s: Signals, th: CauseThresholds = THRESHOLDS) -> tuple[str, dict[str, Any]]:
     """The likely cause of a divergence and its evidence (a JSON-ready dict ending with ``reason``).
+
+    The causes are asked in order and the first to decide wins; ``unknown``
+    names the evidence that was missing (a sentence in ``reason``, the keys
+    in ``missing``), or says what was seen that fits no signature.
 
     Parameters
     ----------
@@ -785,8 +795,8 @@ def judge(s: Signals, th: CauseThresholds = THRESHOLDS) -> Judgement:
             ev["reason"] = verdict.reason
             return Judgement(verdict.cause, ev, lag, m)
     if not math.isfinite(m.trend_k_per_h):
-        missing.append(("trend", f"the divergence has too short a stretch of values for a trend (it takes "
-                                 f"{th.trend_min_span_s / 60.0:.0f} minutes)"))
+        words = f"the divergence has too short a stretch of values for a trend (it takes {th.trend_min_span_s / 60.0:.0f} minutes)"
+        missing.append(("trend", words))
     keys = list(dict.fromkeys(k for k, _ in missing))
     sentences = list(dict.fromkeys(w for _, w in missing))
     if sentences:

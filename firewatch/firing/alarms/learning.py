@@ -27,7 +27,14 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
-from firewatch.firing.alarms.causes import CauseStep, CauseThresholds, Signals, because_words, judge, refuted
+from firewatch.firing.alarms.causes import (
+    CauseStep,
+    CauseThresholds,
+    Signals,
+    because_words,
+    judge,
+    refuted,
+)
 
 __all__ = ["CauseLearner"]
 
