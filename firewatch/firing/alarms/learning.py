@@ -25,7 +25,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING
 
 from firewatch.firing.alarms.causes import (
     CauseStep,
@@ -35,6 +35,9 @@ from firewatch.firing.alarms.causes import (
     judge,
     refuted,
 )
+
+if TYPE_CHECKING:
+    from firewatch.firing.alarms.engine import Alarm
 
 __all__ = ["CauseLearner"]
 
@@ -68,11 +71,11 @@ class CauseLearner:
     """
 
     def __init__(self, thresholds: CauseThresholds, signals_at: Callable[[str, float], Signals],
-                 changed: Callable[[Any, CauseStep], None]) -> None:
+                 changed: Callable[[Alarm, CauseStep], None]) -> None:
         self.thresholds = thresholds
         self.signals_at = signals_at
         self.changed = changed
-        self._watches: dict[int, tuple[Any, _Watch]] = {}
+        self._watches: dict[int, tuple[Alarm, _Watch]] = {}
         self.evaluations = 0
         """How many times a cause was decided again (for the benchmark)."""
 
@@ -80,20 +83,20 @@ class CauseLearner:
         every = self.thresholds.every_s
         return (math.floor(t / every) + 1) * every
 
-    def active(self, alarm: Any, t: float) -> None:
+    def active(self, alarm: Alarm, t: float) -> None:
         """The alarm's condition holds from ``t`` (raised, or active again)."""
         _, w = self._watches.setdefault(alarm.id, (alarm, _Watch()))
         if w.spans and math.isinf(w.spans[-1][1]):
             return
         w.spans.append([t, math.inf])
 
-    def inactive(self, alarm: Any, t: float) -> None:
+    def inactive(self, alarm: Alarm, t: float) -> None:
         """The alarm's condition cleared at ``t``."""
         entry = self._watches.get(alarm.id)
         if entry is not None and entry[1].spans and math.isinf(entry[1].spans[-1][1]):
             entry[1].spans[-1][1] = t
 
-    def restored(self, alarm: Any, t: float) -> None:
+    def restored(self, alarm: Alarm, t: float) -> None:
         """An alarm taken back from the log at a restart: watched from the first complete bin after ``t``."""
         if alarm.condition:
             self.active(alarm, t)
@@ -106,7 +109,7 @@ class CauseLearner:
             if not alarm.open:
                 del self._watches[key]
 
-    def _run(self, alarm: Any, w: _Watch, complete_to: float) -> None:
+    def _run(self, alarm: Alarm, w: _Watch, complete_to: float) -> None:
         if not w.spans:
             return
         if w.next_t is None:
@@ -127,8 +130,9 @@ class CauseLearner:
         # spans wholly in the past are done with
         w.spans = [s for s in w.spans if s[1] > w.next_t] or w.spans[-1:]
 
-    def _evaluate(self, alarm: Any, w: _Watch, t: float) -> None:
+    def _evaluate(self, alarm: Alarm, w: _Watch, t: float) -> None:
         th = self.thresholds
+        assert alarm.channel is not None  # a divergence alarm's channel is its pyrometer
         s = self.signals_at(alarm.channel, t)
         j = judge(s, th)
         cause, evidence = j.cause, j.evidence
