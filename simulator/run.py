@@ -119,9 +119,10 @@ class Simulation:
         slope = np.full(t.shape, self.scenario.slope)
         for f in self._faults("emissivity-step"):
             after = t >= f.at_s
-            to = f.param("to")
-            eps = np.where(after, min(1.0, self.scenario.emissivity + 0.07) if to is None else float(to), eps)
-            if f.param("slope") is not None:
+            to, non_gray = f.param("to"), f.param("slope") is not None
+            if to is not None or not non_gray:  # slope alone: a non-gray step that leaves the single band's emissivity
+                eps = np.where(after, min(1.0, self.scenario.emissivity + 0.07) if to is None else float(to), eps)
+            if non_gray:
                 slope = np.where(after, float(f.param("slope")), slope)
         return np.clip(eps, 1e-3, 1.0), slope
 

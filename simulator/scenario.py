@@ -35,7 +35,11 @@ tc-open             channel [reference thermocouple]
 loop-break          channel [first pyrometer]: its signal is lost (ERR on the
                     line, 0 mA on a 4-20 mA loop over Modbus)
 window-fouling      rate, fraction of transmission lost per hour [0.05]
-emissivity-step     to, the new emissivity [+0.07], slope [unchanged]
+emissivity-step     to, the new emissivity in the single-band instrument's band
+                    [+0.07 when slope is not given, else unchanged]; slope,
+                    the new ratio e1/e2 of the emissivities in a ratio
+                    instrument's two bands [unchanged] (a non-gray step:
+                    ``slope`` alone, or with ``to``)
 dropout             seconds [60], disconnect 0/1 [0] (drop the TCP client)
 garbage             seconds [60], fraction of lines spoiled [0.3]
 =================== ==========================================================

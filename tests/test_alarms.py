@@ -1,11 +1,14 @@
-"""The alarm engine: debouncing, the ISA-18.2 lifecycle state by state, and sensor conditions."""
+"""The alarm engine: debouncing, the ISA-18.2 lifecycle state by state, sensor conditions, and causes that learn."""
 
 from __future__ import annotations
+
+import dataclasses
+import json
 
 import numpy as np
 import pytest
 
-from firewatch.firing.alarms import AlarmEngine, Debounce
+from firewatch.firing.alarms import AlarmEngine, Debounce, causes
 from firewatch.settings.profile import load_site
 from firewatch.transport.records import Status
 
@@ -190,3 +193,110 @@ def test_divergence_needs_its_debounce() -> None:
     assert div[0].condition
     e.evaluate(*batch(470, 200, 1000.0, py1__divergence=1.0))  # below clear_k x u for 60 s
     assert not div[0].condition and div[0].cleared_t == pytest.approx(530.0)
+
+
+# -- causes that learn (issue 12 item 2) --------------------------------------------------------------
+def fouling_firing(t0: float = 0.0, seconds: int = 7200, partner_from_s: float = 3600.0):
+    """py1 falling 5 K/h from -8 K at a steady 900 degC, py2 (ratio) below its range until ``partner_from_s``:
+    arrays for the demo site, one reading set a second (constructed, common practice, no source)."""
+    times, values, status = batch(t0, seconds, 900.0)
+    h = (times - t0) / 3600.0
+    rng = np.random.default_rng(9)
+    values["py1.divergence"] = -8.0 - 5.0 * h + rng.normal(0.0, 0.05, times.size)
+    values["py2.divergence"] = np.where(times - t0 >= partner_from_s, rng.normal(0.0, 0.05, times.size), np.nan)
+    for k in ("py1.divergence", "py2.divergence"):
+        status[k] = np.where(np.isfinite(values[k]), int(Status.OK), int(Status.MISSING))
+    return times, values, status
+
+
+def run_in_batches(engine: AlarmEngine, arrays, size: int) -> None:
+    times, values, status = arrays
+    for i in range(0, times.size, size):
+        sl = slice(i, i + size)
+        engine.evaluate(times[sl], {k: v[sl] for k, v in values.items()}, {k: v[sl] for k, v in status.items()})
+
+
+def cause_changes(engine: AlarmEngine) -> list[tuple[float, str, str]]:
+    return [(tr.t, tr.alarm.channel, tr.detail) for tr in engine.transitions if tr.state == "cause-changed"]
+
+
+def test_a_cause_learns_when_the_ratio_pyrometer_comes_into_range() -> None:
+    # issue 12 item 2: raised unknown while py2 is below its range, window-attenuation once it reads
+    e = AlarmEngine(SITE)
+    run_in_batches(e, fouling_firing(), 600)
+    (alarm,) = [a for a in e.alarms.values() if a.kind == "divergence"]
+    assert alarm.raised_t == pytest.approx(180.0)  # the 180 s debounce
+    assert alarm.cause == "window-attenuation" and alarm.state == "active-unacknowledged"
+    (step,) = alarm.cause_steps
+    assert (step.was, step.cause, step.because, step.because_t) == ("unknown", "window-attenuation", "py2 came into range", 3600.0)
+    assert "py2 has not read in range" in step.was_reason
+    # a trend of py2 takes ten minutes of its readings, then three evaluations a minute apart confirm it
+    assert 3600.0 + 600.0 < step.t <= 3600.0 + 600.0 + 4 * 60.0
+    assert step.t % 60.0 == 0.0  # on the grid
+    # the change is a transition of its own, which leaves the ISA-18.2 state alone
+    assert [tr.state for tr in e.transitions if tr.alarm is alarm] == ["active-unacknowledged", "cause-changed"]
+    assert alarm.state == "active-unacknowledged"
+    assert json.loads(next(tr for tr in e.transitions if tr.state == "cause-changed").detail)["was"] == "unknown"
+
+
+def test_the_same_causes_whatever_the_batches() -> None:
+    # the recorder's half-second batches and replay's thousands of lines evaluate at the same moments
+    changes = []
+    for size in (1, 7, 600, 3000, 7200):
+        e = AlarmEngine(SITE)
+        run_in_batches(e, fouling_firing(), size)
+        changes.append((cause_changes(e), [(a.raised_t, a.cause, a.evidence) for a in e.alarms.values()]))
+    assert all(c == changes[0] for c in changes[1:])
+    assert len(changes[0][0]) == 1
+
+
+def test_a_new_cause_needs_confirming_and_never_returns_to_unknown() -> None:
+    th = dataclasses.replace(causes.THRESHOLDS, confirm=30)
+    e = AlarmEngine(SITE, thresholds=th)
+    run_in_batches(e, fouling_firing(), 600)
+    (alarm,) = [a for a in e.alarms.values() if a.kind == "divergence"]
+    assert alarm.cause_steps[0].t > 3600.0 + 600.0 + 29 * 60.0  # thirty evaluations in a row
+    # py2 falls below its range again: the decided cause stands (the evidence that decided it stays true)
+    e2 = AlarmEngine(SITE)
+    arrays = fouling_firing()
+    times, values, status = arrays
+    late = times >= 6000.0
+    values["py2.divergence"][late] = np.nan
+    status["py2.divergence"][late] = int(Status.MISSING)
+    run_in_batches(e2, arrays, 600)
+    (alarm2,) = [a for a in e2.alarms.values() if a.kind == "divergence"]
+    assert alarm2.cause == "window-attenuation" and len(alarm2.cause_steps) == 1
+
+
+def test_causes_are_decided_again_only_while_the_condition_holds() -> None:
+    e = AlarmEngine(SITE)
+    times, values, status = fouling_firing(seconds=3600, partner_from_s=10_000.0)
+    values["py1.divergence"][times >= 1800.0] = 0.0  # clears 60 s after (the clear debounce)
+    run_in_batches(e, (times, values, status), 600)
+    (alarm,) = [a for a in e.alarms.values() if a.kind == "divergence"]
+    assert alarm.cleared_t == pytest.approx(1860.0)
+    # one evaluation a minute from the first grid time after the raise (240 s) until the clear
+    assert e.learner.evaluations == len(range(240, 1860, 60))
+
+
+def part(arrays, keep: np.ndarray):
+    times, values, status = arrays
+    return times[keep], {k: v[keep] for k, v in values.items()}, {k: v[keep] for k, v in status.items()}
+
+
+def test_a_restored_alarm_goes_on_learning() -> None:
+    first = AlarmEngine(SITE)
+    arrays = fouling_firing()
+    head = arrays[0] < 1200.0
+    run_in_batches(first, part(arrays, head), 600)
+    (alarm,) = [a for a in first.alarms.values() if a.kind == "divergence"]
+    assert alarm.cause == "unknown"
+    # a recorder restarted on the log: the alarm comes back from it, the history starts empty
+    second = AlarmEngine(SITE)
+    from firewatch.firing.alarms import Alarm
+
+    second.restore(Alarm(alarm.id, alarm.kind, alarm.channel, alarm.priority, alarm.raised_t, alarm.message, alarm.cause,
+                         alarm.evidence, state=alarm.state))
+    run_in_batches(second, part(arrays, ~head), 600)
+    assert second.alarms[alarm.id].cause == "window-attenuation"
+    assert second.learner.evaluations > 0

@@ -52,8 +52,13 @@ def summary(reader) -> dict[str, Any]:
         {"start": iso(g["start_t"]), "end": iso(g["end_t"]), "seconds": round(g["end_t"] - g["start_t"], 3), "reason": g["reason"]}
         for g in reader.gaps()
     ]
+    from firewatch.firing.alarms.causes import cause_steps, earlier_causes
+
     alarms = []
     for a in reader.alarms():
+        earlier = earlier_causes(a["raised_t"], cause_steps(a["states"]), start)
+        for c, step in zip(earlier, cause_steps(a["states"])):
+            c["until"] = iso(step.t)
         alarms.append(
             {
                 "kind": a["kind"],
@@ -65,6 +70,7 @@ def summary(reader) -> dict[str, Any]:
                 "state": a["state"],
                 "message": a["message"],
                 "evidence": a["evidence"],
+                "causes": earlier,
                 "states": [
                     {"state": s["state"], "t_s": None if start is None else round(s["t"] - start, 3), "time": iso(s["t"]), "detail": s["detail"]}
                     for s in a["states"]

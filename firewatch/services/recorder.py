@@ -616,6 +616,14 @@ class AlarmLog:
 
         a = tr.alarm
         w = self.writer
+        if tr.state == "cause-changed":  # a new likely cause: the ISA-18.2 state stays as it is (docs/log-format.md)
+            w.execute("UPDATE alarm SET cause = ?, evidence = ? WHERE id = ?", (a.cause, evidence_json(a.evidence), a.id))
+            w.execute("INSERT INTO alarm_state(alarm_id, t, state, detail) VALUES (?, ?, ?, ?)", (a.id, tr.t, tr.state, tr.detail))
+            step = a.cause_steps[-1] if a.cause_steps else None
+            was = f", was {step.was}" + (f" until {step.because}" if step and step.because else "") if step else ""
+            w.event(tr.t, "alarm", f"#{a.id} {a.kind} {a.channel_name or ''}: likely cause {a.cause}{was}: "
+                    f"{(a.evidence or {}).get('reason', '')}", a.channel_name)
+            return
         if tr.new:
             w.execute(
                 "INSERT INTO alarm(id, kind, channel, cause, priority, raised_t, cleared_t, state, message, evidence) VALUES (?, ?, ?, ?, ?, ?, NULL, ?, ?, ?)",
@@ -634,11 +642,16 @@ class AlarmLog:
         rows = self.writer.query(
             "SELECT id, kind, channel, cause, priority, raised_t, cleared_t, state, message, evidence FROM alarm WHERE state != 'normal'"
         ).fetchall()
+        from firewatch.firing.alarms.causes import cause_steps
+
         for r in rows:
             channel = r[2]
             if r[1] == "sensor-fault" and r[3]:
                 channel = f"{channel}:{r[3]}" if channel else None
-            engine.restore(Alarm(r[0], r[1], channel, r[4], r[5], r[8] or "", r[3], json.loads(r[9]) if r[9] else None, state=r[7], cleared_t=r[6]))
+            steps = cause_steps(self.writer.execute(
+                "SELECT t, state, detail FROM alarm_state WHERE alarm_id = ? AND state = 'cause-changed' ORDER BY t, id", (r[0],)).fetchall())
+            engine.restore(Alarm(r[0], r[1], channel, r[4], r[5], r[8] or "", r[3], json.loads(r[9]) if r[9] else None, state=r[7],
+                                 cleared_t=r[6], cause_steps=steps))
         return len(rows)
 
 

@@ -138,6 +138,8 @@ def _reevaluate(reader: LogReader, site: SiteProfile, schedule: Schedule | None)
 
 def alarm_summary(result: Reevaluation) -> list[dict[str, Any]]:
     """Alarms of a re-run in the same form as ``inspect --json``."""
+    from firewatch.firing.alarms.causes import earlier_causes
+
     out = []
     start = result.start_t
     for alarm in sorted(result.engine.alarms.values(), key=lambda a: (a.raised_t, a.id)):
@@ -153,6 +155,7 @@ def alarm_summary(result: Reevaluation) -> list[dict[str, Any]]:
                 "state": alarm.state,
                 "message": alarm.message,
                 "evidence": alarm.evidence,
+                "causes": earlier_causes(alarm.raised_t, alarm.cause_steps, start),
                 "states": [{"state": tr.state, "t_s": None if start is None else round(tr.t - start, 3), "detail": tr.detail} for tr in states],
             }
         )

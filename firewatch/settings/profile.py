@@ -137,6 +137,9 @@ class AlarmSettings:
     no_data_s: float = 30.0
     frozen_s: float = 900.0
     latching: tuple[str, ...] = ()
+    cause_window_s: float = 3600.0
+    cause_every_s: float = 60.0
+    lag_min_r2: float = 0.6
 
 
 @dataclass(frozen=True)
@@ -373,6 +376,12 @@ ALARM_FIELDS = (
     Field("no_data_s", float, 30.0, _POSITIVE, help="a line or channel silent this long raises `no-data`, seconds"),
     Field("frozen_s", float, 900.0, _POSITIVE, help="a value unchanged this long raises `sensor-fault`, seconds"),
     Field("latching", None, (), strings("alarm kinds"), convert=tuple, shown_default="`[]`", help="alarm kinds that stay active until acknowledged"),
+    Field("cause_window_s", float, 3600.0, in_range(600.0, 7200.0),
+          help="the likely cause of a divergence looks back this far, seconds (at most the 2 h the alarms keep)"),
+    Field("cause_every_s", float, 60.0, in_range(10.0, 3600.0),
+          help="while a divergence alarm's condition holds, its likely cause is decided again this often, seconds"),
+    Field("lag_min_r2", float, 0.6, _FRACTION,
+          help="thermocouple lag is named only when the rate explains more than this fraction of the divergence's variance (R²)"),
 )
 
 MQTT_FIELDS = (

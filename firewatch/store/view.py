@@ -22,13 +22,14 @@ import json
 import math
 import threading
 import time
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
+from firewatch.firing.alarms.causes import CauseStep, cause_label, cause_steps, cause_story
 from firewatch.settings._tomlcheck import ProfileError
 from firewatch.settings.profile import AlarmSettings, SiteProfile, load_site
 from firewatch.settings.schedule import Schedule, load_schedule
@@ -91,6 +92,22 @@ class AlarmRow:
     raised_t: float
     message: str
     evidence: dict[str, Any] | None
+    steps: tuple[CauseStep, ...] = ()
+    """The changes of the likely cause up to the moment shown, oldest first."""
+
+    @property
+    def cause_label(self) -> str:
+        """The cause for the alarm list's column: ``window-attenuation (was unknown)``."""
+        return cause_label(self.cause, list(self.steps))
+
+    def cause_story(self, clock: Callable[[float], str]) -> str:
+        """``window-attenuation, was unknown until py2 came into range at 11:42`` (``clock`` words a UTC time)."""
+        return cause_story(self.cause, list(self.steps), clock)
+
+    @property
+    def reason(self) -> str:
+        """Why the cause is what it is (the evidence's own words)."""
+        return str((self.evidence or {}).get("reason", ""))
 
 
 @dataclass
@@ -311,11 +328,12 @@ class FiringView:
         """Alarms not normal at ``t``, with their state then (most urgent first): replay."""
         rows = self.reader.query(
             "SELECT a.id, a.kind, a.channel, a.cause, a.priority, a.raised_t, a.message, a.evidence, "
-            "(SELECT s.state FROM alarm_state s WHERE s.alarm_id = a.id AND s.t <= ? ORDER BY s.t DESC, s.id DESC LIMIT 1) "
+            "(SELECT s.state FROM alarm_state s WHERE s.alarm_id = a.id AND s.t <= ? AND s.state != 'cause-changed' "
+            "ORDER BY s.t DESC, s.id DESC LIMIT 1) "
             "FROM alarm a WHERE a.raised_t <= ?",
             (t, t),
         )
-        return _urgent_first(rows)
+        return self._with_causes(_urgent_first(rows), t)
 
     def alarms_now(self) -> list[AlarmRow]:
         """Alarms not normal as they stand now, whenever they were raised (most urgent first): live.
@@ -326,7 +344,26 @@ class FiringView:
         rows = self.reader.query(
             "SELECT id, kind, channel, cause, priority, raised_t, message, evidence, state FROM alarm WHERE state != 'normal'"
         )
-        return _urgent_first(rows)
+        return self._with_causes(_urgent_first(rows), None)
+
+    def _with_causes(self, alarms: list[AlarmRow], t: float | None) -> list[AlarmRow]:
+        """Each alarm with the changes of its likely cause up to ``t`` (all when None), and its cause as it stood then."""
+        ids = [a.id for a in alarms if a.kind == "divergence"]
+        if not ids:
+            return alarms
+        sql = (f"SELECT alarm_id, t, state, detail FROM alarm_state WHERE state = 'cause-changed' "
+               f"AND alarm_id IN ({','.join('?' * len(ids))}) ORDER BY t, id")
+        rows = self.reader.query(sql, ids)
+        for a in alarms:
+            every = cause_steps([(r[1], r[2], r[3]) for r in rows if r[0] == a.id])
+            if not every:
+                continue
+            shown = [c for c in every if t is None or c.t <= t]
+            a.steps = tuple(shown)
+            if t is not None:  # replay: the cause and its evidence as they stood at the cursor
+                a.cause = shown[-1].cause if shown else every[0].was
+                a.evidence = shown[-1].evidence if shown else every[0].was_evidence
+        return alarms
 
     def alarm_times(self) -> list[tuple[float, int, str]]:
         """Every alarm's raise time, id and kind (for marks and for jumping)."""

@@ -525,7 +525,7 @@ class AlarmList(DataTable):
         """List ``alarms``; raise times in ``clock``, with the date when not on the day of ``ref`` (the moment shown);
         the figures in messages in ``unit``."""
         clock = clock or self._clock
-        same = [(a.id, a.state) for a in alarms] == [(a.id, a.state) for a in self._rows]
+        same = [(a.id, a.state, a.cause, len(a.steps)) for a in alarms] == [(a.id, a.state, a.cause, len(a.steps)) for a in self._rows]
         day = None if ref is None else clock.local(ref).date()
         old_day = None if self._ref is None else self._clock.local(self._ref).date()
         if same and clock == self._clock and day == old_day and unit == self._units.unit and self._layout:
@@ -543,9 +543,9 @@ class AlarmList(DataTable):
                      Text(state, style="bold" if "UNACK" in state else ""), Text(raised)]
             message = self._units.restate(a.message)
             if wide:
-                cells += [Text(a.kind), Text(a.channel or "line"), Text(a.cause or ""), Text(message)]
+                cells += [Text(a.kind), Text(a.channel or "line"), Text(a.cause_label or ""), Text(message)]
             else:
-                cells += [Text(f"{a.kind} {a.channel or 'line'}"), Text(f"{a.cause}: {message}" if a.cause else message)]
+                cells += [Text(f"{a.kind} {a.channel or 'line'}"), Text(f"{a.cause_label}: {message}" if a.cause else message)]
             out.append(tuple(cells))
         return out
 
@@ -604,6 +604,8 @@ class AlarmList(DataTable):
         reason = ""
         if alarm is not None and alarm.evidence:
             reason = str(alarm.evidence.get("reason", ""))
+            if alarm.steps:  # a cause that changed: the model words its story, the screen only how a time reads
+                reason = f"{alarm.cause_story(fmt.clock_short)}: {reason}"
         self.post_message(self.Highlighted(alarm.id if alarm else None, reason))
 
     def on_data_table_row_highlighted(self, event: DataTable.RowHighlighted) -> None:

@@ -77,18 +77,24 @@ def test_emissivity_step_through_a_cold_sight_tube(tmp_path: Path) -> None:
 
 
 def test_thermocouple_lag_is_named(tmp_path: Path) -> None:
-    # tc2 in a heavy sheath lagging ten times its profile's 60 s: during the ramp the
+    # tc2 in a heavy sheath lagging fifteen times its profile's 60 s: during the ramp the
     # divergence follows the rate: a first-order lag reads rate x time constant behind (common practice, no source).
     text = (DATA / "cold-sight-scenario.toml").read_text().replace("[ware]", "[instruments.tc2]\ntime_constant_s = 900\n\n[ware]")
     text = text.replace('site = "cold-sight-site.toml"', 'site = "demo-site.toml"')
     path = tmp_path / "lag.toml"
     path.write_text(text)
-    sc = load_scenario(path).with_changes(duration_s=9 * 3600.0)
+    # issue 12 changed this test: py2 comes into range during a steady 120 degC/h climb, where lag is no longer
+    # named without a change of rate to fit against; it learns lag when the climb ends at 1050 degC (about
+    # 9 h 45 min in), so the firing runs to 10 h 30 min instead of 9 h
+    sc = load_scenario(path).with_changes(duration_s=10.5 * 3600.0)
     log = tmp_path / "lag.db"
     serve.to_log(Simulation(sc), log)
     with LogReader(log) as r:
         div = [a for a in r.alarms() if a["kind"] == "divergence"]
     assert div and all(a["cause"] == "thermocouple-lag" for a in div), [(a["channel"], a["cause"], a["evidence"]) for a in div]
+    # nothing but unknown came before: lag is never mistaken, only awaited
+    earlier = [s["detail"] for a in div for s in a["states"] if s["state"] == "cause-changed"]
+    assert all('"was": "unknown"' in d for d in earlier)
 
 
 @pytest.mark.parametrize(("schedule", "seed"), [("glaze", 11), ("glaze", 12), ("bisque", 13), ("bisque", 14), ("anneal", 15), ("anneal", 16)])

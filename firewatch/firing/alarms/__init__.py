@@ -1,6 +1,6 @@
 """Alarms: conditions, debouncing, the ISA-18.2 lifecycle, and the likely cause of a divergence.
 
-The package has four rooms:
+The package has five rooms:
 
 * :mod:`.engine`: :class:`AlarmEngine`, the ISA-18.2 lifecycle (raise,
   clear, acknowledge, shelve, unshelve, restore) and the order in which the
@@ -9,6 +9,8 @@ The package has four rooms:
   into the alarms it raises and clears, timed by :class:`Debounce`;
 * :mod:`.causes`: the likely cause of a divergence, one function per cause,
   their thresholds in :class:`CauseThresholds`;
+* :mod:`.learning`: the likely cause of an open divergence alarm decided
+  again as evidence arrives;
 * :mod:`.history`: the 10-second means that the causes look back on.
 
 Kinds
@@ -36,7 +38,10 @@ Likely cause of a divergence
 Decided at the moment the alarm is raised from the last hour of history
 (10 s means), with the evidence kept beside it: ``thermocouple-lag``,
 ``emissivity-change``, ``thermocouple-drift``, ``window-attenuation``, or
-``unknown`` when the evidence does not decide (see :mod:`.causes`).
+``unknown`` with a sentence naming the evidence that is missing (see
+:mod:`.causes`); then decided again once a minute while the alarm's
+condition holds, each change logged as a ``cause-changed`` transition (see
+:mod:`.learning`).
 """
 
 from __future__ import annotations
@@ -44,6 +49,7 @@ from __future__ import annotations
 from firewatch.firing.alarms.causes import CAUSES, THRESHOLDS, CauseThresholds, Verdict
 from firewatch.firing.alarms.conditions import Debounce
 from firewatch.firing.alarms.engine import (
+    CAUSE_CHANGED,
     KINDS,
     PRIORITY_ORDER,
     STATES,
@@ -57,6 +63,7 @@ from firewatch.firing.alarms.history import History
 __all__ = [
     "KINDS",
     "CAUSES",
+    "CAUSE_CHANGED",
     "STATES",
     "PRIORITY_ORDER",
     "Alarm",

@@ -9,7 +9,11 @@ kind that clears stays ``latched`` until acknowledged. ``shelved`` (with a
 reason and an expiry) hides an alarm; at expiry it returns to
 ``active-unacknowledged`` if its condition still holds, else ``normal``.
 Each transition is a :class:`Transition` with its time, written to the
-firing log's ``alarm_state`` table.
+firing log's ``alarm_state`` table. A divergence alarm's likely cause is
+decided when it is raised and again while its condition holds
+(:mod:`~firewatch.firing.alarms.learning`); each change is a transition too,
+with state ``cause-changed`` (:data:`CAUSE_CHANGED`), which leaves the
+alarm's ISA-18.2 state as it is.
 
 The conditions (:mod:`~firewatch.firing.alarms.conditions`) say when each
 alarm's condition starts and ends; this module alone decides what that
@@ -19,8 +23,9 @@ means for the alarm.
 from __future__ import annotations
 
 import json
+import math
 from collections.abc import Callable, Iterable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -38,11 +43,12 @@ from firewatch.firing.alarms.conditions import (
     SensorFaults,
     Silence,
 )
-from firewatch.firing.alarms.history import History
+from firewatch.firing.alarms.history import BIN_S, History
+from firewatch.firing.alarms.learning import CauseLearner
 from firewatch.settings.profile import SiteProfile
 from firewatch.settings.schedule import Schedule
 
-__all__ = ["KINDS", "STATES", "PRIORITY_ORDER", "Alarm", "Transition", "AlarmEngine", "evidence_json"]
+__all__ = ["KINDS", "STATES", "CAUSE_CHANGED", "PRIORITY_ORDER", "Alarm", "Transition", "AlarmEngine", "evidence_json"]
 
 KINDS = ("divergence", "schedule-deviation", "over-temperature", "rate-limit", "sensor-fault", "no-data")
 """Every kind of alarm."""
@@ -55,6 +61,8 @@ STATES = (
     "shelved",
 )
 """The ISA-18.2 states an alarm passes through."""
+CAUSE_CHANGED = "cause-changed"
+"""The transition that logs a new likely cause (not an ISA-18.2 state: the alarm's state stays as it was)."""
 PRIORITY_ORDER = {"high": 0, "medium": 1, "low": 2}
 
 
@@ -76,6 +84,8 @@ class Alarm:
     latching: bool = False
     shelved_until: float | None = None
     shelve_reason: str = ""
+    cause_steps: list[causes.CauseStep] = field(default_factory=list)
+    """Each change of the likely cause since the alarm was raised, oldest first."""
 
     @property
     def key(self) -> tuple[str, str | None]:
@@ -124,7 +134,8 @@ class AlarmEngine:
     next_id : callable() -> int
         Gives a new alarm its id (the recorder's log row id).
     thresholds : CauseThresholds, optional
-        What the likely cause of a divergence judges by.
+        What the likely cause of a divergence judges by (default: :data:`~.causes.THRESHOLDS` with the site
+        profile's ``[alarms]`` cause keys).
     """
 
     def __init__(
@@ -133,12 +144,12 @@ class AlarmEngine:
         schedule: Schedule | None = None,
         sink: Callable[[Transition], None] | None = None,
         next_id: Callable[[], int] | None = None,
-        thresholds: causes.CauseThresholds = causes.THRESHOLDS,
+        thresholds: causes.CauseThresholds | None = None,
     ) -> None:
         self.site = site
         self.schedule = schedule
         self.settings = site.alarms
-        self.thresholds = thresholds
+        self.thresholds = thresholds if thresholds is not None else causes.CauseThresholds.for_site(site.alarms)
         self.sink = sink or (lambda tr: None)
         self._ids = iter(range(1, 1 << 62))
         self.next_id = next_id or (lambda: next(self._ids))
@@ -147,7 +158,9 @@ class AlarmEngine:
         names = [tc.name for tc in site.thermocouples] + [f"{p.name}.divergence" for p in site.pyrometers if p.reference]
         names += [f"{p.name}.reconciled" for p in site.pyrometers]
         rate_name = f"{site.control.name}.rate" if site.control else None
-        if rate_name:
+        # each reference's own rate: a lagging sensor reads behind by its time constant times the rate it sees
+        names += list(dict.fromkeys(f"{p.reference}.rate" for p in site.pyrometers if p.reference))
+        if rate_name and rate_name not in names:
             names.append(rate_name)
         self._rate_name = rate_name
         self.history = History(names)
@@ -161,6 +174,7 @@ class AlarmEngine:
         self._over_temperature = OverTemperature(site, self._debounces)
         self._deviation = ScheduleDeviation(site, schedule, self._debounces) if schedule is not None else None
         self._rate_limit = RateLimit(site, schedule, self._debounces) if schedule is not None else None
+        self.learner = CauseLearner(self.thresholds, self.signals, self._cause_changed)
 
     # -- lifecycle --------------------------------------------------------------------
     def _emit(self, alarm: Alarm, t: float, state: str, detail: str, new: bool = False) -> None:
@@ -174,6 +188,8 @@ class AlarmEngine:
         key = (kind, channel)
         alarm = self._open.get(key)
         if alarm is not None:
+            if not alarm.condition and kind == "divergence":
+                self.learner.active(alarm, t)
             alarm.condition = True
             if alarm.state == "shelved":
                 return
@@ -185,6 +201,8 @@ class AlarmEngine:
         self.alarms[alarm.id] = alarm
         self._open[key] = alarm
         self._emit(alarm, t, "active-unacknowledged", message, new=True)
+        if kind == "divergence":
+            self.learner.active(alarm, t)
 
     def _clear(self, kind: str, channel: str | None, t: float, detail: str) -> None:
         alarm = self._open.get((kind, channel))
@@ -192,6 +210,8 @@ class AlarmEngine:
             return
         alarm.condition = False
         alarm.cleared_t = t
+        if kind == "divergence":
+            self.learner.inactive(alarm, t)
         if alarm.state == "shelved":
             return
         if alarm.state == "active-acknowledged" and not alarm.latching:
@@ -265,6 +285,8 @@ class AlarmEngine:
         self._open[alarm.key] = alarm
         if alarm.condition:
             self._debounces.restored.add(alarm.key)
+        if alarm.kind == "divergence":
+            self.learner.restored(alarm, -math.inf)
 
     @property
     def active(self) -> list[Alarm]:
@@ -296,10 +318,23 @@ class AlarmEngine:
         if self._deviation is not None and self._rate_limit is not None and "plan.segment" in values:
             self._apply(self._deviation.check(times, values))
             self._apply(self._rate_limit.check(times, values))
+        if self.history.t.size:
+            self.learner.update(float(self.history.t[-1]) + BIN_S / 2)
         return self.transitions[start:]
 
     # -- likely cause -----------------------------------------------------------------
+    def signals(self, name: str, t: float) -> causes.Signals:
+        """What the causes of ``name``'s divergence look at, over the window before ``t``."""
+        return causes.Signals.from_history(self.site, self.history, self._rate_name, name, t, float(self.thresholds.window_s))
+
     def likely_cause(self, name: str, t: float) -> tuple[str, dict[str, Any]]:
         """The likely cause of ``name``'s divergence at ``t``, with the evidence (see :mod:`.causes`)."""
-        signals = causes.Signals.from_history(self.site, self.history, self._rate_name, name, t, float(self.thresholds.window_s))
-        return causes.likely_cause(signals, self.thresholds)
+        return causes.likely_cause(self.signals(name, t), self.thresholds)
+
+    def _cause_changed(self, alarm: Alarm, step: causes.CauseStep) -> None:
+        """Log a new likely cause (the learner found one); the alarm's ISA-18.2 state stays as it is."""
+        alarm.cause, alarm.evidence = step.cause, step.evidence
+        alarm.cause_steps.append(step)
+        tr = Transition(alarm, step.t, CAUSE_CHANGED, step.detail())
+        self.transitions.append(tr)
+        self.sink(tr)

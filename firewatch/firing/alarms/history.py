@@ -11,7 +11,7 @@ BIN_S = 10.0
 
 
 class History:
-    """10-second means of chosen channels over the last two hours, for the cause of a divergence.
+    """10-second means of chosen channels over the last two hours (before the latest batch), for the cause of a divergence.
 
     Parameters
     ----------
@@ -68,12 +68,16 @@ class History:
             with np.errstate(invalid="ignore", divide="ignore"):
                 mean = sums[n][:-1] / counts[n][:-1]
             self.v[n] = np.concatenate([self.v[n], np.where(counts[n][:-1] > 0, mean, np.nan)])
-        keep = self.t >= self.t[-1] - self.KEEP_S
+        # keep two hours before the batch's first reading, so that whatever is judged inside a long batch (replay's
+        # thousands of lines) sees the same past as in the recorder's half-second batches
+        keep = self.t >= float(times[0]) - self.KEEP_S
         self.t = self.t[keep]
         for n in self.names:
             self.v[n] = self.v[n][keep]
 
     def window(self, end_t: float, span_s: float) -> tuple[np.ndarray, dict[str, np.ndarray]]:
         """The bin times in ``(end_t - span_s, end_t]`` and each channel's means there."""
-        keep = (self.t > end_t - span_s) & (self.t <= end_t)
-        return self.t[keep], {n: self.v[n][keep] for n in self.names}
+        # the bins are in time order (the firing's time line never goes back): two binary searches, and views
+        lo = int(np.searchsorted(self.t, end_t - span_s, side="right"))
+        hi = int(np.searchsorted(self.t, end_t, side="right"))
+        return self.t[lo:hi], {n: self.v[n][lo:hi] for n in self.names}
