@@ -648,7 +648,7 @@ class AlarmLog:
             channel = r[2]
             if r[1] == "sensor-fault" and r[3]:
                 channel = f"{channel}:{r[3]}" if channel else None
-            steps = cause_steps(self.writer.execute(
+            steps = cause_steps(self.writer.query(
                 "SELECT t, state, detail FROM alarm_state WHERE alarm_id = ? AND state = 'cause-changed' ORDER BY t, id", (r[0],)).fetchall())
             engine.restore(Alarm(r[0], r[1], channel, r[4], r[5], r[8] or "", r[3], json.loads(r[9]) if r[9] else None, state=r[7],
                                  cleared_t=r[6], cause_steps=steps))
