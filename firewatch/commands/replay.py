@@ -81,8 +81,8 @@ def run(args: argparse.Namespace) -> int:
 
     console = Console()
     clock = Clock.for_site(site.timezone, utc=args.utc)
-    start = result.start_t
-    span = duration(result.end_t - start) if start is not None else "-"
+    start, end = result.start_t, result.end_t  # both set by the first sample, or neither
+    span = duration(end - start) if start is not None and end is not None else "-"
     console.print(f"re-evaluated {args.log}: {result.lines} lines ({result.malformed} malformed), {span}, site '{site.name}', "
                   f"schedule '{info['schedule']}'. The log was not changed; it recorded {original} alarm(s). "
                   f"Clock times in {clock.describe(start, result.end_t)}.")

@@ -444,7 +444,7 @@ class Recorder:
         link = LinkSettings(mb.protocol, self.url, inp.baudrate, inp.bytesize, inp.parity, inp.stopbits, mb.timeout_s, mb.retries)
         self.poller = ModbusPoller(link, plan_requests(mb.channels, mb.device_time), mb.poll_s, on_line, self._queue.put_event, clock=self.clock_fn)
         self._gap_reason = "modbus link lost"
-        row = writer.execute("SELECT value FROM meta WHERE key = 'failed_polls'").fetchone()
+        row = writer.query("SELECT value FROM meta WHERE key = 'failed_polls'").fetchone()
         self._failed_before = int(row[0]) if row else 0  # a continued log adds to its count
         return self.poller
 
@@ -603,7 +603,7 @@ class AlarmLog:
 
     def __init__(self, writer: LogWriter | BriefWrite) -> None:
         self.writer = writer  # the recorder's writer, or a viewer's brief write (firewatch.services.desk)
-        row = writer.execute("SELECT coalesce(max(id), 0) FROM alarm").fetchone()
+        row = writer.query("SELECT coalesce(max(id), 0) FROM alarm").fetchone()
         self._next = int(row[0]) + 1
 
     def next_id(self) -> int:
@@ -639,7 +639,7 @@ class AlarmLog:
         """Give the engine back the alarms still open in the log; return how many."""
         from firewatch.firing.alarms import Alarm
 
-        rows = self.writer.execute(
+        rows = self.writer.query(
             "SELECT id, kind, channel, cause, priority, raised_t, cleared_t, state, message, evidence FROM alarm WHERE state != 'normal'"
         ).fetchall()
         from firewatch.firing.alarms.causes import cause_steps
@@ -648,7 +648,7 @@ class AlarmLog:
             channel = r[2]
             if r[1] == "sensor-fault" and r[3]:
                 channel = f"{channel}:{r[3]}" if channel else None
-            steps = cause_steps(self.writer.execute(
+            steps = cause_steps(self.writer.query(
                 "SELECT t, state, detail FROM alarm_state WHERE alarm_id = ? AND state = 'cause-changed' ORDER BY t, id", (r[0],)).fetchall())
             engine.restore(Alarm(r[0], r[1], channel, r[4], r[5], r[8] or "", r[3], json.loads(r[9]) if r[9] else None, state=r[7],
                                  cleared_t=r[6], cause_steps=steps))
@@ -678,7 +678,7 @@ def warm_start(pipeline: Pipeline, writer: LogWriter) -> int:
     values: dict[str, np.ndarray] = {}
     times = None
     for name in names:
-        rows = writer.execute(
+        rows = writer.query(
             "SELECT r.t, r.value FROM reading r JOIN channel c ON c.id = r.channel_id WHERE c.name = ? ORDER BY r.sample_id", (name,)
         ).fetchall()
         if not rows:
@@ -690,6 +690,6 @@ def warm_start(pipeline: Pipeline, writer: LogWriter) -> int:
             values[name] = arr[:, 1]
     if times is None:
         return 0
-    last = writer.execute("SELECT t, received_utc, device_time FROM sample ORDER BY id DESC LIMIT 1").fetchone()
+    last = writer.query("SELECT t, received_utc, device_time FROM sample ORDER BY id DESC LIMIT 1").fetchone()
     pipeline.warm_start(times, values, None if last is None else (float(last[0]), float(last[1]), last[2]))
     return int(times.size)

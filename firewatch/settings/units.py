@@ -157,7 +157,7 @@ class Units:
         text = _RANGE_C.sub(lambda m: f"{self._figure(m[1], False)}-{self._figure(m[2], False)} °F", text)
         text = _PAIR_KH.sub(lambda m: f"{self._figure(m[1], True)} and {self._figure(m[2], True)} °F/h", text)
 
-        def one(m: re.Match) -> str:
+        def one(m: re.Match[str]) -> str:
             unit = m["unit"]
             absolute = unit == "°C"  # a temperature; everything else (K, K/h, °C/h) is a difference or a rate
             return f"{self._figure(m['num'], not absolute)} °F{'/h' if unit.endswith('/h') else ''}"

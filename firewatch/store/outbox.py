@@ -41,7 +41,7 @@ class Outbox:
             if statement.strip():
                 writer.execute(statement)
         try:
-            self._next = int(writer.execute("SELECT coalesce(max(id), 0) + 1 FROM mqtt_outbox").fetchone()[0])
+            self._next = int(writer.query("SELECT coalesce(max(id), 0) + 1 FROM mqtt_outbox").fetchone()[0])
         except sqlite3.OperationalError:  # the table is still held in memory: the log could not be written
             self._next = 1
 
@@ -62,7 +62,7 @@ class Outbox:
 
     def unsent_after(self, last_id: int, limit: int = 20000) -> list[tuple[int, str, bytes, int, int]]:
         """Unsent messages after ``last_id`` in order: ``(id, topic, payload, qos, retain)``."""
-        return self.writer.execute(
+        return self.writer.query(
             "SELECT id, topic, payload, qos, retain FROM mqtt_outbox WHERE sent_utc IS NULL AND id > ? ORDER BY id LIMIT ?",
             (last_id, limit),
         ).fetchall()

@@ -22,7 +22,7 @@ import json
 import math
 import threading
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -172,6 +172,7 @@ class FiringView:
         self.reader.query = self._locked_query  # type: ignore[method-assign]
         firing = self.reader.firing()
         self.firing = firing
+        self.site: SiteProfile | None
         try:
             self.site = site or load_site(f"{self.path} (site profile in the log)", text=firing.get("site_profile") or "")
         except ProfileError:
@@ -195,7 +196,7 @@ class FiringView:
         """The site's ``no_data_s``: older values are stale, and a line silent this long is NO DATA."""
         return self.site.alarms.no_data_s if self.site is not None else AlarmSettings().no_data_s
 
-    def _locked_query(self, sql: str, params=()):
+    def _locked_query(self, sql: str, params: Iterable[Any] = ()) -> list[tuple[Any, ...]]:
         with self._lock:
             if self._closed:
                 raise RuntimeError("the firing view is closed")
@@ -221,8 +222,8 @@ class FiringView:
         return news
 
     def sample_at(self, t: float) -> int | None:
-        row = self.reader.query("SELECT max(id) FROM sample WHERE t <= ?", (t,))[0]
-        return row[0]
+        sample_id: int | None = self.reader.query("SELECT max(id) FROM sample WHERE t <= ?", (t,))[0][0]
+        return sample_id
 
     # -- the live state ------------------------------------------------------------------
     def session(self) -> dict[str, Any] | None:
@@ -298,7 +299,7 @@ class FiringView:
                 out[name] = (float(rt), math.nan if value is None else float(value), int(status))
         return out
 
-    def _events(self, where: str, params: tuple, limit: int) -> list[dict[str, Any]]:
+    def _events(self, where: str, params: tuple[Any, ...], limit: int) -> list[dict[str, Any]]:
         return [
             {"t": r[0], "kind": r[1], "channel": r[2], "detail": r[3]}
             for r in self.reader.query(
@@ -407,7 +408,7 @@ class FiringView:
         return t, self.schedule.planned_temperature(t - self.start_t)
 
 
-def _urgent_first(rows: list[tuple]) -> list[AlarmRow]:
+def _urgent_first(rows: list[tuple[Any, ...]]) -> list[AlarmRow]:
     out = [
         AlarmRow(r[0], r[1], r[2], r[3], r[4], r[8], r[5], r[6] or "", json.loads(r[7]) if r[7] else None)
         for r in rows

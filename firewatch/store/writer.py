@@ -43,6 +43,7 @@ from collections import deque
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
+from types import TracebackType
 from typing import Any
 
 import numpy as np
@@ -64,7 +65,7 @@ BRIEF_WAIT_S = 2.0
 takes milliseconds; a recorder's lock is never waited for)."""
 
 
-def take_lock(path: Path, holder: str, wait_brief_s: float = BRIEF_WAIT_S, clock=time.monotonic) -> int:
+def take_lock(path: Path, holder: str, wait_brief_s: float = BRIEF_WAIT_S, clock: Callable[[], float] = time.monotonic) -> int:
     """Take the log's writer lock ``FILE.db.lock`` (``flock``, exclusive, never blocking); return its descriptor.
 
     One writer at a time, always: the recorder for a whole session, or a viewer
@@ -199,6 +200,13 @@ def _cannot_write(exc: BaseException) -> bool:
     return isinstance(exc, sqlite3.DatabaseError) and _code(exc) in _CANNOT_WRITE
 
 
+def _inserted_id(cur: sqlite3.Cursor) -> int:
+    """The rowid the INSERT just run on ``cur`` gave its row (always set after an INSERT into a rowid table)."""
+    if cur.lastrowid is None:
+        raise sqlite3.InterfaceError("an INSERT gave no rowid")
+    return cur.lastrowid
+
+
 def hold_memory_bytes(channels: int, lines: int = HOLD_LINES) -> int:
     """About how much memory ``lines`` held lines of a site with ``channels`` stored channels take, bytes."""
     return lines * (HOLD_LINE_BYTES + 9 * channels + HOLD_OVERHEAD_BYTES)
@@ -240,8 +248,8 @@ class _Statement:
     """One held statement: ``params`` for one row, or ``rows`` for executemany."""
 
     sql: str
-    params: tuple
-    rows: list | None
+    params: tuple[Any, ...]
+    rows: list[tuple[Any, ...]] | None
     units: int
     bulk: bool
 
@@ -368,7 +376,10 @@ class LogWriter:
             self._release()
             raise
 
-    def _open(self, channels, site_name, kiln, site_text, schedule_name, schedule_text, clock, port, durable) -> None:
+    def _open(
+        self, channels: list[ChannelInfo], site_name: str, kiln: str, site_text: str, schedule_name: str, schedule_text: str,
+        clock: str, port: str, durable: bool,
+    ) -> None:
         new = not self.path.exists() or self.path.stat().st_size == 0
         try:
             self._connect()
@@ -429,13 +440,13 @@ class LogWriter:
                     "INSERT INTO channel(name, kind, unit, source, description) VALUES (?, ?, ?, ?, ?)",
                     (ch.name, ch.kind, ch.unit, ch.source, ch.description),
                 )
-                self._channel_ids[ch.name] = int(cur.lastrowid)
+                self._channel_ids[ch.name] = _inserted_id(cur)
         cur = self.con.execute(
             "INSERT INTO session(started_utc, heartbeat_utc, port, pid, host, firewatch_version, sqlite_version, site_profile, schedule) "
             "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
             (now := self._clock(), now, port, os.getpid(), socket.gethostname(), __version__, sqlite3.sqlite_version, site_text, schedule_text),
         )
-        self.session_id = int(cur.lastrowid)
+        self.session_id = _inserted_id(cur)
         self.con.execute("COMMIT")
         self.con.execute("BEGIN")
 
@@ -500,7 +511,7 @@ class LogWriter:
         minutes = np.floor(times / 60.0).astype(np.int64)
         starts = np.concatenate([[0], np.flatnonzero(np.diff(minutes)) + 1])
         keys = minutes[starts].tolist()
-        rows = []
+        rows: list[tuple[int, int, float, float, int]] = []
         for name, values in batch.values.items():
             cid = self._channel_ids.get(name)
             if cid is None:
@@ -550,6 +561,14 @@ class LogWriter:
             return self.con.execute(sql, params)
         return self._run(_Statement(sql, params, None, _units(params), bulk))
 
+    def query(self, sql: str, params: Iterable[Any] = ()) -> sqlite3.Cursor:
+        """Run a SELECT at once and return its cursor (it always has one, unlike :meth:`execute`).
+
+        It sees what is held in the open transaction, or, while the log cannot
+        be written, only what is committed. Nothing is held: a query writes nothing.
+        """
+        return self.con.execute(sql, tuple(params))
+
     # -- one batch, undone as a whole if its processing fails (the recorder's Ingest) ----------
     def batch_begin(self) -> None:
         """Mark the start of one batch's writes, which :meth:`batch_undo` can take back as a whole.
@@ -589,9 +608,9 @@ class LogWriter:
 
     def executemany(self, sql: str, rows: Iterable[Iterable[Any]], *, bulk: bool = False) -> None:
         """Many rows of one statement inside the writer's transaction, held like :meth:`execute`."""
-        rows = [tuple(r) for r in rows]
-        if rows:
-            self._run(_Statement(sql, (), rows, sum(_units(r) for r in rows), bulk))
+        held = [tuple(r) for r in rows]
+        if held:
+            self._run(_Statement(sql, (), held, sum(_units(r) for r in held), bulk))
 
     # -- holding what is not committed ------------------------------------------------
     def _apply(self, op: _Statement | _BatchOp | _Dropped, index: int = -1) -> sqlite3.Cursor | None:
@@ -676,6 +695,8 @@ class LogWriter:
                 if index is None:
                     return
             op = held[index]
+            # never a marker: the readings' search skips them (a marker is not bulk) and so does the other one
+            assert not isinstance(op, _Dropped)
             del held[index]
             self._held_units -= op.units
             marker = next((m for m in itertools.islice(held, 0, index) if isinstance(m, _Dropped)), None)
@@ -898,7 +919,7 @@ class LogWriter:
 
     def _close_holding(self, reason: str, t: float | None) -> list[str]:
         told = self.commit(t) if self._open_tx else []
-        attempts = (
+        attempts: tuple[Callable[[], None], ...] = (
             lambda: None,
             self._release_reserve,
             lambda: self._enforce_bound(0),
@@ -998,9 +1019,9 @@ class LogWriter:
             free = None
         limit = resource.getrlimit(resource.RLIMIT_FSIZE)[0]
         sizes = []
-        for name in (self.path, Path(f"{self.path}-wal")):
+        for file in (self.path, Path(f"{self.path}-wal")):
             try:
-                sizes.append(name.stat().st_size)
+                sizes.append(file.stat().st_size)
             except OSError:
                 pass
         at_limit = limit != resource.RLIM_INFINITY and max(sizes, default=0) + 65536 >= limit
@@ -1045,7 +1066,7 @@ class BriefWrite:
         The file is not a firing log this firewatch can write.
     """
 
-    def __init__(self, path: str | Path, clock_fn=time.time) -> None:
+    def __init__(self, path: str | Path, clock_fn: Callable[[], float] = time.time) -> None:
         self.path = Path(path)
         self._clock = clock_fn
         if not self.path.is_file():
@@ -1069,7 +1090,7 @@ class BriefWrite:
     def __enter__(self) -> BriefWrite:
         return self
 
-    def __exit__(self, exc_type, exc, tb) -> None:
+    def __exit__(self, exc_type: type[BaseException] | None, exc: BaseException | None, tb: TracebackType | None) -> None:
         try:
             if self.con.in_transaction:
                 self.con.execute("COMMIT" if exc_type is None else "ROLLBACK")
@@ -1085,9 +1106,14 @@ class BriefWrite:
     def timeline_now(self) -> float:
         """Now on the firing's time line: the wall clock, shifted as the newest sample was (device clock)."""
         row = self.con.execute("SELECT t - received_utc FROM sample ORDER BY id DESC LIMIT 1").fetchone()
-        return self._clock() + (row[0] if row and row[0] is not None else 0.0)
+        shift: float = row[0] if row and row[0] is not None else 0.0
+        return self._clock() + shift
 
     def execute(self, sql: str, params: Iterable[Any] = ()) -> sqlite3.Cursor:
+        return self.con.execute(sql, tuple(params))
+
+    def query(self, sql: str, params: Iterable[Any] = ()) -> sqlite3.Cursor:
+        """Run a SELECT inside the brief write's transaction (as :meth:`LogWriter.query`)."""
         return self.con.execute(sql, tuple(params))
 
     def event(self, t: float, kind: str, detail: str = "", channel: str | None = None) -> None:

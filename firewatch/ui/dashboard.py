@@ -16,6 +16,7 @@ from __future__ import annotations
 import threading
 import time
 from dataclasses import replace
+from typing import TYPE_CHECKING, cast
 
 from rich.text import Text
 from textual import work
@@ -43,6 +44,9 @@ from firewatch.ui.widgets import (
     corners,
     envelope_line,
 )
+
+if TYPE_CHECKING:
+    from firewatch.ui.app import FirewatchApp  # only for types: the app imports this screen
 
 __all__ = ["SPEEDS", "DashboardScreen"]
 
@@ -291,7 +295,7 @@ class DashboardScreen(Screen):
             self._alarm_marks = [a[0] for a in view.alarm_times()]
         series, alarms = self._series, self._alarm_marks
         return ChartData(t0, t1, series, corners(*view.planned(t0, t1)), t if self.mode == "replay" else None, alarms,
-                         self.app.unit, origin=start, clock=self.clock)
+                         self.fw.unit, origin=start, clock=self.clock)
 
     def _request(self, chart: bool = False) -> None:
         """Ask the poller to read the log now (and the chart too)."""
@@ -301,13 +305,18 @@ class DashboardScreen(Screen):
 
     # -- applying what was read -------------------------------------------------------
     @property
+    def fw(self) -> FirewatchApp:
+        """The app, typed: this screen is only ever shown by :class:`~firewatch.ui.app.FirewatchApp`."""
+        return cast("FirewatchApp", self.app)
+
+    @property
     def clock(self) -> Clock:
         """The clock every time on this screen is read in (the site's zone, or UTC with ``--utc``)."""
         return getattr(self.app, "clock", None) or Clock.for_site("", utc=True)
 
     def on_log_read(self, message: LogRead) -> None:
         m = message.moment
-        unit, clock = self.app.unit, self.clock
+        unit, clock = self.fw.unit, self.clock
         self._last_moment = m
         if message.chart is not None:
             self._last_chart_data = message.chart
@@ -369,7 +378,7 @@ class DashboardScreen(Screen):
         if self._axis:
             line.append(f" · axis {self._axis}")
         if self._legend:
-            line.append(f" · {'°F' if self.app.unit == 'F' else '°C'}")
+            line.append(f" · {'°F' if self.fw.unit == 'F' else '°C'}")
             for label, style in self._legend:
                 line.append(" ━", style=style)
                 line.append(label)
@@ -380,7 +389,7 @@ class DashboardScreen(Screen):
         """The line under the lists: the chosen alarm's evidence, else the caution, whole at this width."""
         width = max(self.size.width - 2, 10)
         if self._evidence:
-            text = fmt.clip(f"evidence: {Units(self.app.unit).restate(self._evidence)}", width)
+            text = fmt.clip(f"evidence: {Units(self.fw.unit).restate(self._evidence)}", width)
         else:
             text = next((c for c in CAUTION_LINES if len(c) <= width), CAUTION_LINES[-1])
         _set(self.query_one("#evidence", Static), text)
@@ -411,7 +420,7 @@ class DashboardScreen(Screen):
         self.app.push_screen(HelpScreen(self.KEY_HELP, self.TIME_HELP))
 
     def action_units(self) -> None:
-        self.app.unit = "F" if self.app.unit == "C" else "C"
+        self.fw.unit = "F" if self.fw.unit == "C" else "C"
         if self._last_moment is not None:  # at once, from what was last read: nothing new to read for a unit
             self.on_log_read(LogRead(self._last_moment, self._last_chart_data, self.view.end_t))
 
@@ -426,7 +435,7 @@ class DashboardScreen(Screen):
 
     def _submit(self, kind: str, **kw) -> None:
         """Hand an action to the desk and say what became of it: written, sent to the recorder, or refused."""
-        outcome = self.app.desk.submit(kind, **kw)
+        outcome = self.fw.desk.submit(kind, **kw)
         self.last_outcome = outcome
         self.notify(outcome.text, severity="information" if outcome.ok else "error", timeout=8)
         if outcome.written:

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 import time
+from typing import cast
 
 from rich.text import Text
 from textual.app import App, ComposeResult
@@ -34,6 +35,11 @@ class KilnScreen(Screen):
         super().__init__()
         self.kiln = kiln
 
+    @property
+    def fw(self) -> PlantApp:
+        """The app, typed: this screen is only ever shown by :class:`PlantApp`."""
+        return cast("PlantApp", self.app)
+
     def compose(self) -> ComposeResult:
         yield Static(id="kiln-title")
         yield DataTable(id="kiln-alarms", cursor_type="row")
@@ -47,7 +53,7 @@ class KilnScreen(Screen):
         self.set_interval(0.5, self.refresh_view)
 
     def _view(self):
-        return next((v for v in self.app.plant.snapshot() if v.kiln == self.kiln), None)
+        return next((v for v in self.fw.plant.snapshot() if v.kiln == self.kiln), None)
 
     def refresh_view(self) -> None:
         view = self._view()
@@ -57,7 +63,7 @@ class KilnScreen(Screen):
         age = time.time() - view.received if view.received else math.inf
         self.query_one("#kiln-title", Static).update(
             f"{self.kiln} · {s.get('site', '')} · {s.get('kiln_name', '')} · data {duration(age)} old "
-            f"(at {self.app.clock.header(view.received)}) · Esc back"
+            f"(at {self.fw.clock.header(view.received)}) · Esc back"
         )
         alarms = self.query_one("#kiln-alarms", DataTable)
         alarms.clear()
@@ -75,7 +81,7 @@ class KilnScreen(Screen):
         if view is None or not view.alarms or table.cursor_row is None or table.cursor_row >= len(view.alarms):
             return
         alarm = view.alarms[table.cursor_row]
-        self.app.plant.acknowledge(self.kiln, int(alarm["id"]))
+        self.fw.plant.acknowledge(self.kiln, int(alarm["id"]))
         self.notify(f"acknowledge sent to {self.kiln} (applied if its site enables plant actions)")
 
 
@@ -86,6 +92,11 @@ class PlantScreen(Screen):
         Binding("question_mark", "help", "Help"),
         Binding("q", "app.quit", "Quit"),
     ]
+
+    @property
+    def fw(self) -> PlantApp:
+        """The app, typed: this screen is only ever shown by :class:`PlantApp`."""
+        return cast("PlantApp", self.app)
 
     def compose(self) -> ComposeResult:
         yield Static(id="plant-title")
@@ -100,7 +111,7 @@ class PlantScreen(Screen):
 
     def refresh_rows(self) -> None:
         table = self.query_one("#kilns", DataTable)
-        views = self.app.plant.snapshot()
+        views = self.fw.plant.snapshot()
         now = time.time()
         keep = table.cursor_row
         table.clear()
@@ -124,8 +135,8 @@ class PlantScreen(Screen):
             table.move_cursor(row=min(keep, len(views) - 1))
         total = sum(len(v.unacknowledged) for v in views)
         self.query_one("#plant-title", Static).update(
-            f"PLANT {self.app.plant.url.prefix} · {self.app.clock.header(now)} · {len(views)} kiln(s) · "
-            f"{total} unacknowledged alarm(s) · broker {'connected' if self.app.plant.connected.is_set() else 'NOT CONNECTED'}"
+            f"PLANT {self.fw.plant.url.prefix} · {self.fw.clock.header(now)} · {len(views)} kiln(s) · "
+            f"{total} unacknowledged alarm(s) · broker {'connected' if self.fw.plant.connected.is_set() else 'NOT CONNECTED'}"
         )
 
     def on_data_table_row_selected(self, event: DataTable.RowSelected) -> None:
@@ -134,12 +145,12 @@ class PlantScreen(Screen):
 
     def action_open(self) -> None:
         table = self.query_one("#kilns", DataTable)
-        views = self.app.plant.snapshot()
+        views = self.fw.plant.snapshot()
         if views and table.cursor_row is not None and table.cursor_row < len(views):
             self.app.push_screen(KilnScreen(views[table.cursor_row].kiln))
 
     def action_acknowledge_all(self) -> None:
-        n = self.app.plant.acknowledge_all()
+        n = self.fw.plant.acknowledge_all()
         self.notify(f"{n} acknowledgement(s) sent; each kiln applies them if its site enables plant actions")
 
     def action_help(self) -> None:

@@ -379,6 +379,8 @@ class TimeAxisFormatter(AxisFormatter):
         self.columns = columns
         """The plot's width in cells: a tick whose centred label would run past the right edge is left out."""
         self.meaning = ""
+        self._last: tuple[list[float], list[str]] = ([], [])
+        """The ticks and labels the last :meth:`get_ticks` chose."""
 
     def get_ticks(self, min_: float, max_: float, max_ticks: int = 8) -> list[float]:
         axis = time_axis(self.origin + min_, self.origin + max_, self.origin, self.clock, min(max_ticks, self.max_ticks))
@@ -392,9 +394,8 @@ class TimeAxisFormatter(AxisFormatter):
         return list(self._last[0])
 
     def get_labels_for_ticks(self, ticks: Sequence[float]) -> list[str]:
-        last = getattr(self, "_last", ([], []))
-        if list(ticks) == last[0]:
-            return list(last[1])
+        if list(ticks) == self._last[0]:
+            return list(self._last[1])
         # ticks set from outside: label them as the last axis read (clock or since start)
         if self.meaning.startswith("clock"):
             return [self.clock.time(self.origin + t, seconds=False) for t in ticks]
@@ -451,10 +452,8 @@ class TrendChart(PlotWidget):
         same = (old.t0, old.t1, old.unit, old.origin, old.clock, old.alarms) == (data.t0, data.t1, data.unit, data.origin, data.clock, data.alarms)
         if not same or old.series is not data.series or not all(np.array_equal(a, b) for a, b in zip(old.planned, data.planned)):
             return False
-        if (old.cursor is None) != (data.cursor is None):
-            return False
-        if data.cursor is None:
-            return True
+        if old.cursor is None or data.cursor is None:
+            return old.cursor is None and data.cursor is None
         return self.get_pixel_from_coordinate(old.cursor - old.origin, 0)[0] == self.get_pixel_from_coordinate(data.cursor - data.origin, 0)[0]
 
     def draw(self, data: ChartData) -> None:
@@ -479,9 +478,9 @@ class TrendChart(PlotWidget):
             if t.size:
                 self.plot(rel(t), from_celsius(y, data.unit), line_style=self.STYLES[i % len(self.STYLES)], hires_mode=HiResMode.BRAILLE,
                           label=label)
-        for t in data.alarms:
-            if data.t0 <= t <= data.t1:
-                self.add_v_line(float(rel(t)), "yellow", None)
+        for at in data.alarms:
+            if data.t0 <= at <= data.t1:
+                self.add_v_line(float(rel(at)), "yellow", None)
         if data.cursor is not None:
             self.add_v_line(float(rel(data.cursor)), "bright_white", None)
         self.set_xlimits(float(rel(data.t0)), float(rel(data.t1)))
