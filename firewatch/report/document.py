@@ -249,18 +249,18 @@ def build_document(record: FiringRecord, clock: Clock, units: Units, now: float 
         cause = "" if not a.cause else (f", likely cause {a.cause}" if a.kind == "divergence" else f" ({a.cause})")
         what = f"{PRIORITY_WORDS.get(a.priority, a.priority)} {a.kind}" + (f" {a.channel}" if a.channel else "") + cause
         alarms.add([f"{a.id}", clock.stamp(a.raised_t), what, a.message], mark=True, group=True)
-        for s in a.steps[1:] if a.steps and a.steps[0].state == "active-unacknowledged" else a.steps:
-            state, detail = STATE_WORDS.get(s.state, s.state), s.detail
-            change = CauseStep.from_detail(s.t, s.detail) if s.state == "cause-changed" else None
+        for step in a.steps[1:] if a.steps and a.steps[0].state == "active-unacknowledged" else a.steps:
+            state, detail = STATE_WORDS.get(step.state, step.state), step.detail or ""
+            change = CauseStep.from_detail(step.t, step.detail) if step.state == "cause-changed" else None
             if change is not None:  # a new likely cause: its story in words, not the logged JSON
                 state = "likely cause changed"
                 detail = f"now {change.cause}, was {change.words(lambda t: clock.stamp(t, False))}: {change.reason}"
-            elif s.state == "shelved" and s.by:
-                detail = f"by {s.by} until {clock.stamp(s.until_t, False)}; reason: {s.reason or 'none given'}"
-            elif s.detail.startswith("acknowledged") and s.by:
-                state = "acknowledged" + (", back to normal" if s.state == "normal" else ", still active")
-                detail = f"by {s.by}"
-            alarms.add(["", clock.stamp(s.t), state, detail])
+            elif step.state == "shelved" and step.by:
+                detail = f"by {step.by} until {clock.stamp(step.until_t, False)}; reason: {step.reason or 'none given'}"
+            elif step.detail.startswith("acknowledged") and step.by:
+                state = "acknowledged" + (", back to normal" if step.state == "normal" else ", still active")
+                detail = f"by {step.by}"
+            alarms.add(["", clock.stamp(step.t), state, detail])
         if a.state != "normal":
             alarms.add(["", "at the end", STATE_WORDS.get(a.state, a.state), _END_WORDS.get(a.state, "not back to normal")], mark=True)
     blocks.append(alarms)

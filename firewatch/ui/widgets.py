@@ -605,7 +605,7 @@ class AlarmList(DataTable):
         if alarm is not None and alarm.evidence:
             reason = str(alarm.evidence.get("reason", ""))
             if alarm.steps:  # a cause that changed: the model words its story, the screen only how a time reads
-                reason = f"{alarm.cause_story(fmt.clock_short)}: {reason}"
+                reason = f"{alarm.cause_story(lambda t: self._clock.when(t, self._ref, seconds=False))}: {reason}"
         self.post_message(self.Highlighted(alarm.id if alarm else None, reason))
 
     def on_data_table_row_highlighted(self, event: DataTable.RowHighlighted) -> None:

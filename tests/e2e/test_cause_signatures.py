@@ -25,13 +25,13 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+
+from firewatch.settings.profile import load_site
+from firewatch.settings.schedule import load_schedule
 from firewatch.simulator import serve
 from firewatch.simulator.kiln import KilnParameters
 from firewatch.simulator.run import Simulation
 from firewatch.simulator.scenario import load_scenario, parse_fault
-
-from firewatch.settings.profile import load_site
-from firewatch.settings.schedule import load_schedule
 from firewatch.store.reader import LogReader
 from firewatch.store.view import FiringView
 from tests.e2e.helpers import ROOT, env
@@ -286,7 +286,9 @@ def test_the_viewer_shows_the_cause_as_it_stood() -> None:
     assert (before.cause, before.steps, before.state) == ("unknown", (), "active-unacknowledged")
     assert before.reason.startswith("the evidence does not decide: ")
     assert after.cause == now.cause == "window-attenuation" and after.state == "active-unacknowledged"
-    hhmm = lambda x: f"{int(x // 3600 % 24):02d}:{int(x // 60 % 60):02d}"
+    def hhmm(x: float) -> str:
+        return f"{int(x // 3600 % 24):02d}:{int(x // 60 % 60):02d}"
+
     assert now.cause_story(hhmm) == f"window-attenuation, was unknown until py2 came into range at {hhmm(change['because_t'])}"
     assert now.cause_label == "window-attenuation (was unknown)"
     assert now.reason.startswith("py1 reads ever lower")

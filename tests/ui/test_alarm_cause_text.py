@@ -5,8 +5,8 @@ from __future__ import annotations
 from textual.app import App, ComposeResult
 
 from firewatch.firing.alarms.causes import CauseStep
+from firewatch.settings.timefmt import Clock
 from firewatch.store.view import AlarmRow
-from firewatch.ui import format as fmt
 from firewatch.ui.widgets import AlarmList
 
 T1 = 1_773_488_520.0  # 2026-03-14 11:42:00 UTC (Python's datetime)
@@ -36,13 +36,14 @@ async def test_the_alarm_list_shows_the_story_of_a_cause() -> None:
     app = OneList()
     async with app.run_test(size=(160, 24)) as pilot:
         table = app.query_one(AlarmList)
-        table.show([row((step,))], T1 - 7200.0)
+        table.show([row((step,))], ref=T1, clock=Clock.for_site("UTC"))
         await pilot.pause()
-        assert [str(c) for c in table.get_row_at(0)][4] == "window-attenuation (was unknown)"
-        assert app.said[-1] == (f"window-attenuation, was unknown until py2 came into range at {fmt.clock_short(T1)}: "
+        assert [str(c) for c in table.get_row_at(0)][5] == "window-attenuation (was unknown)"
+        # the time of day, as the list shows it (UTC here)
+        assert app.said[-1] == ("window-attenuation, was unknown until py2 came into range at 11:42: "
                                 "py1 reads ever lower (-11.5 K/h) while py2 holds (+0.6 K/h)")
         # a cause that never changed: its reason alone, as before
-        table.show([row(())], T1 - 7200.0)
+        table.show([row(())], ref=T1, clock=Clock.for_site("UTC"))
         await pilot.pause()
-        assert [str(c) for c in table.get_row_at(0)][4] == "window-attenuation"
+        assert [str(c) for c in table.get_row_at(0)][5] == "window-attenuation"
         assert app.said[-1] == "py1 reads ever lower (-11.5 K/h) while py2 holds (+0.6 K/h)"
