@@ -605,7 +605,8 @@ class AlarmList(DataTable):
         if alarm is not None and alarm.evidence:
             reason = str(alarm.evidence.get("reason", ""))
             if alarm.steps:  # a cause that changed: the model words its story, the screen only how a time reads
-                reason = f"{alarm.cause_story(lambda t: self._clock.when(t, self._ref, seconds=False))}: {reason}"
+                # a dash, not a colon, after the time: a line cut there must not read as a cut time
+                reason = f"{alarm.cause_story(lambda t: self._clock.when(t, self._ref, seconds=False))} — {reason}"
         self.post_message(self.Highlighted(alarm.id if alarm else None, reason))
 
     def on_data_table_row_highlighted(self, event: DataTable.RowHighlighted) -> None:

@@ -112,4 +112,4 @@ def test_restart_in_segment_three_resumes_there(tmp_path: Path) -> None:
     finally:
         view.close()
     assert moment.value("plan.segment") == QUARTZ and math.isnan(moment.value("plan.hold"))
-    assert "▶3 quartz inversi" in text and "holding" not in text, text
+    assert "▶3/7 quartz inversi" in text and "holding" not in text, text

@@ -40,7 +40,7 @@ async def test_the_alarm_list_shows_the_story_of_a_cause() -> None:
         await pilot.pause()
         assert [str(c) for c in table.get_row_at(0)][5] == "window-attenuation (was unknown)"
         # the time of day, as the list shows it (UTC here)
-        assert app.said[-1] == ("window-attenuation, was unknown until py2 came into range at 11:42: "
+        assert app.said[-1] == ("window-attenuation, was unknown until py2 came into range at 11:42 — "
                                 "py1 reads ever lower (-11.5 K/h) while py2 holds (+0.6 K/h)")
         # a cause that never changed: its reason alone, as before
         table.show([row(())], ref=T1, clock=Clock.for_site("UTC"))
