@@ -16,7 +16,7 @@ from __future__ import annotations
 import threading
 import time
 from dataclasses import replace
-from typing import TYPE_CHECKING, cast
+from typing import Protocol, cast
 
 from rich.text import Text
 from textual import work
@@ -27,7 +27,7 @@ from textual.message import Message
 from textual.screen import Screen
 from textual.widgets import Footer, Static, TabbedContent, TabPane
 
-from firewatch.services.desk import Outcome
+from firewatch.services.desk import ActionDesk, Outcome
 from firewatch.settings.timefmt import Clock, duration
 from firewatch.settings.units import Units
 from firewatch.store._common import LogDamaged
@@ -45,8 +45,13 @@ from firewatch.ui.widgets import (
     envelope_line,
 )
 
-if TYPE_CHECKING:
-    from firewatch.ui.app import FirewatchApp  # only for types: the app imports this screen
+
+class DashboardHost(Protocol):
+    """What this screen needs of its app (:class:`~firewatch.ui.app.FirewatchApp`); a protocol, so that the
+    screen does not import the app that shows it."""
+
+    unit: str
+    desk: ActionDesk
 
 __all__ = ["SPEEDS", "DashboardScreen"]
 
@@ -305,9 +310,9 @@ class DashboardScreen(Screen):
 
     # -- applying what was read -------------------------------------------------------
     @property
-    def fw(self) -> FirewatchApp:
+    def fw(self) -> DashboardHost:
         """The app, typed: this screen is only ever shown by :class:`~firewatch.ui.app.FirewatchApp`."""
-        return cast("FirewatchApp", self.app)
+        return cast(DashboardHost, self.app)
 
     @property
     def clock(self) -> Clock:

@@ -25,7 +25,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING
+from typing import Any, Protocol
 
 from firewatch.firing.alarms.causes import (
     CauseStep,
@@ -36,8 +36,20 @@ from firewatch.firing.alarms.causes import (
     refuted,
 )
 
-if TYPE_CHECKING:
-    from firewatch.firing.alarms.engine import Alarm
+
+class Alarm(Protocol):
+    """What the learner reads and writes of an open alarm (the engine's ``Alarm``; a protocol, so that
+    this room does not import the engine that uses it)."""
+
+    id: int
+    channel: str | None
+    raised_t: float
+    cause: str | None
+    evidence: dict[str, Any] | None
+    condition: bool
+
+    @property
+    def open(self) -> bool: ...
 
 __all__ = ["CauseLearner"]
 
@@ -71,7 +83,7 @@ class CauseLearner:
     """
 
     def __init__(self, thresholds: CauseThresholds, signals_at: Callable[[str, float], Signals],
-                 changed: Callable[[Alarm, CauseStep], None]) -> None:
+                 changed: Callable[[Any, CauseStep], None]) -> None:
         self.thresholds = thresholds
         self.signals_at = signals_at
         self.changed = changed
