@@ -36,7 +36,7 @@ def _record_summary(reader: Any) -> dict[str, Any] | None:
         return None  # the integrity check names the damage
 
 
-def summary(reader) -> dict[str, Any]:
+def summary(reader, record: bool = True) -> dict[str, Any]:
     firing = reader.firing()
     start, end = firing.get("started_t"), firing.get("ended_t")
     samples = {
@@ -94,7 +94,7 @@ def summary(reader) -> dict[str, Any]:
         "failed_polls": int(failed_polls[0][0]) if failed_polls else 0,
         "gaps": gaps,
         "alarms": alarms,
-        "summary": _record_summary(reader),
+        "summary": _record_summary(reader) if record else None,
     }
 
 
@@ -132,7 +132,7 @@ def run(args: argparse.Namespace) -> int:
     with open_log(args.log, check=False) as reader:
         problems = reader.integrity()
         try:
-            info = summary(reader)
+            info = summary(reader, record=args.json)  # the record's figures are printed with --json only
         except LogDamaged:
             if not problems:
                 raise

@@ -22,7 +22,7 @@ from importlib import resources
 from pathlib import Path
 
 __all__ = [
-    "SCHEMA_VERSION", "LogError", "LogLocked", "LogDamaged", "LogWriteError", "LogUnavailable", "STORAGE_CODES", "log_error",
+    "SCHEMA_VERSION", "LogError", "LogLocked", "LogDamaged", "LogWriteError", "LogUnavailable", "STORAGE_CODES", "sqlite_code", "log_error",
     "damage_error", "schema_sql",
 ]
 
@@ -52,9 +52,14 @@ SQLITE_CORRUPT = 11
 SQLITE_NOTADB = 26
 
 
+def sqlite_code(exc: BaseException) -> int:
+    """SQLite's primary result code of an error (the extended bits dropped); 0 when it carries none."""
+    return (getattr(exc, "sqlite_errorcode", None) or 0) & 0xFF
+
+
 def log_error(path: Path, exc: sqlite3.Error) -> LogError:
     """A :class:`LogError` naming ``path`` and what SQLite said; :class:`LogDamaged` when it found damage."""
-    code = (getattr(exc, "sqlite_errorcode", None) or 0) & 0xFF  # the primary code, without the extended bits
+    code = sqlite_code(exc)
     if code == SQLITE_CORRUPT:
         return LogDamaged(f"{path}: the firing log is damaged ({exc})")
     if code == SQLITE_NOTADB:

@@ -12,7 +12,7 @@ from typing import Any
 import numpy as np
 
 from firewatch.firing.pipeline import ChannelInfo
-from firewatch.store._common import SCHEMA_VERSION, STORAGE_CODES, LogDamaged, LogError, LogUnavailable, _connect, log_error
+from firewatch.store._common import SCHEMA_VERSION, STORAGE_CODES, LogDamaged, LogError, LogUnavailable, _connect, log_error, sqlite_code
 
 __all__ = ["Series", "LogReader", "open_reader"]
 
@@ -44,7 +44,7 @@ class LogReader:
         except sqlite3.DatabaseError as exc:
             if con is not None:
                 con.close()
-            if ((getattr(exc, "sqlite_errorcode", 0) or 0) & 0xFF) in STORAGE_CODES:
+            if sqlite_code(exc) in STORAGE_CODES:
                 raise LogUnavailable(f"{self.path}: cannot open the firing log ({exc})") from None
             error = log_error(self.path, exc)
             if not isinstance(error, LogDamaged):  # not SQLite, another SQLite database, or no meta table

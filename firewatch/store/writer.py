@@ -50,7 +50,17 @@ import numpy as np
 
 from firewatch import __version__
 from firewatch.firing.pipeline import Batch, ChannelInfo
-from firewatch.store._common import SCHEMA_VERSION, LogError, LogLocked, LogWriteError, _connect, schema_sql
+from firewatch.settings.timefmt import duration
+from firewatch.store._common import (
+    SCHEMA_VERSION,
+    STORAGE_CODES,
+    LogError,
+    LogLocked,
+    LogWriteError,
+    _connect,
+    schema_sql,
+    sqlite_code,
+)
 
 __all__ = [
     "LogWriter", "BriefWrite", "take_lock", "release_lock", "BRIEF_HOLDER", "BRIEF_WAIT_S", "Outage", "HOLD_S", "HOLD_RATE_HZ",
@@ -187,17 +197,11 @@ CHECKPOINT_BUSY_MS = 200
 # (SQLite documentation, "Result and Error Codes"): BUSY, LOCKED, NOMEM, READONLY, IOERR, CORRUPT, FULL,
 # CANTOPEN, PROTOCOL, NOTADB.
 _CANNOT_WRITE = frozenset({5, 6, 7, 8, 10, 11, 13, 14, 15, 26})
-# of those, the ones that mean the storage rather than a damaged file when a log is opened
-_STORAGE = frozenset({7, 8, 10, 13, 14})
-
-
-def _code(exc: BaseException) -> int:
-    return (getattr(exc, "sqlite_errorcode", 0) or 0) & 0xFF
 
 
 def _cannot_write(exc: BaseException) -> bool:
     """True for an error that says the log cannot be written now (keep the writes and retry)."""
-    return isinstance(exc, sqlite3.DatabaseError) and _code(exc) in _CANNOT_WRITE
+    return isinstance(exc, sqlite3.DatabaseError) and sqlite_code(exc) in _CANNOT_WRITE
 
 
 def _inserted_id(cur: sqlite3.Cursor) -> int:
@@ -217,24 +221,6 @@ def _bytes_text(n: float) -> str:
         if n >= size:
             return f"{n / size:.1f} {unit}"
     return f"{int(n)} B"
-
-
-def _span(seconds: float) -> str:
-    """A duration with its units.
-
-    Examples
-    --------
-    >>> _span(42), _span(766), _span(600), _span(10140)
-    ('42 s', '12 min 46 s', '10 min', '2 h 49 min')
-    """
-    s = int(round(max(seconds, 0.0)))
-    h, rem = divmod(s, 3600)
-    m, sec = divmod(rem, 60)
-    if h:
-        return f"{h} h {m} min"
-    if m:
-        return f"{m} min {sec} s" if sec else f"{m} min"
-    return f"{sec} s"
 
 
 def _units(params: Iterable[Any]) -> int:
@@ -369,7 +355,7 @@ class LogWriter:
             self._open(channels, site_name, kiln, site_text, schedule_name, schedule_text, clock, port, durable)
         except sqlite3.Error as exc:
             self._release()
-            if _code(exc) in _STORAGE:
+            if sqlite_code(exc) in STORAGE_CODES:
                 raise LogWriteError(f"{self.path}: cannot write: {self._describe(exc)}") from None
             raise
         except Exception:
@@ -386,7 +372,7 @@ class LogWriter:
             if new:
                 self.con.executescript("BEGIN;\n" + schema_sql() + "\nCOMMIT;")
         except sqlite3.DatabaseError as exc:
-            if _code(exc) in _STORAGE:
+            if sqlite_code(exc) in STORAGE_CODES:
                 raise
             raise LogError(f"{self.path}: not a firing log ({exc})") from None
         stored_version = SCHEMA_VERSION
@@ -405,7 +391,7 @@ class LogWriter:
             try:
                 version = self.con.execute("SELECT value FROM meta WHERE key='schema_version'").fetchone()
             except sqlite3.DatabaseError as exc:
-                if _code(exc) in _STORAGE:
+                if sqlite_code(exc) in STORAGE_CODES:
                     raise
                 raise LogError(f"{self.path}: not a firing log ({exc})") from None
             if version is None or int(version[0]) > SCHEMA_VERSION:
@@ -820,18 +806,18 @@ class LogWriter:
                 channels = len(self._channel_ids)
                 text = (
                     f"cannot write to {self.path}: {outage.error}; holding readings in memory "
-                    f"(up to {limit:,} lines: {_span(limit / HOLD_RATE_HZ)} at {HOLD_RATE_HZ:g} lines/s, "
+                    f"(up to {limit:,} lines: {duration(limit / HOLD_RATE_HZ)} at {HOLD_RATE_HZ:g} lines/s, "
                     f"about {_bytes_text(hold_memory_bytes(channels, limit))} for {channels} channels) and retrying every {RETRY_S:g} s"
                 )
                 told.append(text)
                 self.event(t, "write-error", text)
             if outage.dropped_lines + outage.dropped_other and "dropping" not in outage.told:
                 outage.told.add("dropping")
-                told.append(f"cannot write to {self.path} for {_span(self._mono() - outage.since_mono)}: "
+                told.append(f"cannot write to {self.path} for {duration(self._mono() - outage.since_mono)}: "
                             f"more than {self.hold_lines or 0:,} lines held in memory; dropping the oldest")
         resumed, self._resumed = self._resumed, None
         if resumed is not None:
-            text = f"writing to {self.path} again after {_span(self._mono() - resumed.since_mono)}: " + self._outcome(resumed)
+            text = f"writing to {self.path} again after {duration(self._mono() - resumed.since_mono)}: " + self._outcome(resumed)
             told.append(text)
             self.event(t, "write-resumed", text)
         return told
@@ -1036,8 +1022,8 @@ class LogWriter:
             what = "the disk is full" if full else (exc.strerror or str(exc))
         else:
             name = getattr(exc, "sqlite_errorname", "")
-            full = _code(exc) == 13 or (free is not None and free < 65536)
-            if at_limit and _code(exc) in (10, 13):
+            full = sqlite_code(exc) == 13 or (free is not None and free < 65536)
+            if at_limit and sqlite_code(exc) in (10, 13):
                 return f"the file size limit (ulimit -f) of {_bytes_text(limit)} is reached"
             what = "the disk is full" if full else (f"{exc} ({name})" if name else str(exc))
         if full and free is not None:
