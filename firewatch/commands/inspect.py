@@ -23,16 +23,12 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 def _record_summary(reader: Any) -> dict[str, Any] | None:
     """The firing report's figures, or None where a damaged part of the log keeps them from being computed."""
-    import sqlite3
-
     from firewatch.store._common import LogError
     from firewatch.store.record import read_record  # the firing record's numbers, as the report shows them
 
     try:
         return read_record(reader).summary()
-    except (LogError, sqlite3.DatabaseError):
-        if reader.con.in_transaction:
-            reader.con.rollback()
+    except LogError:
         return None  # the integrity check names the damage
 
 

@@ -8,6 +8,7 @@ alarms with their transitions, and operator notes.
 
 from __future__ import annotations
 
+import sqlite3
 from pathlib import Path
 
 import numpy as np
@@ -23,6 +24,7 @@ from firewatch.firing.record import (
 from firewatch.settings._tomlcheck import ProfileError
 from firewatch.settings.profile import SiteProfile, load_site
 from firewatch.settings.schedule import Schedule, load_schedule
+from firewatch.store._common import log_error
 from firewatch.store.reader import LogReader
 
 __all__ = ["load_record", "profiles_from_log", "read_record"]
@@ -104,13 +106,18 @@ def read_record(reader: LogReader, site: SiteProfile | None = None, schedule: Sc
     covers the readings committed when the read began).
     """
     own = not reader.con.in_transaction
-    if own:
-        reader.con.execute("BEGIN")
     try:
-        return _read_record(reader, site, schedule)
-    finally:
-        if own and reader.con.in_transaction:
-            reader.con.execute("COMMIT")
+        if own:
+            reader.con.execute("BEGIN")
+        try:
+            return _read_record(reader, site, schedule)
+        finally:
+            if own and reader.con.in_transaction:
+                reader.con.execute("COMMIT")
+    except sqlite3.DatabaseError as exc:  # its direct reads, like the reader's own queries: a LogError naming the file
+        if reader.con.in_transaction:
+            reader.con.rollback()
+        raise log_error(reader.path, exc) from None
 
 
 def _read_record(reader: LogReader, site: SiteProfile | None, schedule: Schedule | None) -> FiringRecord:
