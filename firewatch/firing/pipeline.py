@@ -400,6 +400,20 @@ class Pipeline:
         return values.copy(), status.copy()
 
     def _compute_arrays(self, times: np.ndarray, batch: Batch) -> None:
+        self._measure(times, batch)
+        self._derive(times, batch.values, batch.status, batch.events)
+        if self.progress is not None:
+            # a tracker is made only for a site with a control thermocouple (__init__)
+            assert self.site.control is not None
+            ctl = self.site.control.name
+            out_v, out_s = batch.values, batch.status
+            plan = self.progress.update(times, out_v[ctl], out_v[f"{ctl}.rate"])
+            for name, values in plan.items():
+                out_v[name] = values
+                out_s[name] = np.where(np.isfinite(values), int(Status.OK), int(Status.MISSING))
+
+    def _measure(self, times: np.ndarray, batch: Batch) -> None:
+        """The measured channels as the log keeps them: cold junctions as reported, thermocouples converted, pyrometers as shown."""
         site = self.site
         n = times.size
         out_v, out_s = batch.values, batch.status
@@ -422,19 +436,37 @@ class Pipeline:
                 bad = (status == Status.OK) & np.isnan(temp)
                 status = np.where(bad, int(Status.OUT_OF_RANGE), status)
                 out_v[tc.name], out_s[tc.name] = temp, status
-                rate = self._rates[tc.name].update(times, temp) * 3600.0
+        for py in site.pyrometers:
+            shown, status = self._column(py.name)
+            # below absolute zero no radiance exists to invert: out of range, not a numpy warning
+            status = np.where((status == Status.OK) & ~(shown > -273.15), int(Status.OUT_OF_RANGE), status)
+            out_v[py.name], out_s[py.name] = np.where(status == Status.OK, shown, np.nan), status
+
+    def derive(self, times: np.ndarray, values: dict[str, np.ndarray], status: dict[str, np.ndarray]) -> tuple[dict[str, np.ndarray], dict[str, np.ndarray]]:
+        """The derived channels (rates, reconciled temperatures, uncertainties, divergences, allowances) of
+        measured readings as the log keeps them, in time order; progress is not among them.
+
+        This is how a reader recomputes what the log does not keep per sample; a
+        rate needs ``rate_window_s`` of readings before the first it is wanted for.
+        """
+        out_v = {name: values[name] for name in self.site.channel_names if name in values}
+        out_s = {name: status[name] for name in out_v}
+        events: list[tuple[float, str, str | None, str]] = []
+        self._derive(times, out_v, out_s, events)
+        keep = [c.name for c in self.channels if c.kind == "derived"]
+        return {k: out_v[k] for k in keep if k in out_v}, {k: out_s[k] for k in keep if k in out_s}
+
+    def _derive(self, times: np.ndarray, out_v: dict[str, np.ndarray], out_s: dict[str, np.ndarray],
+                events: list[tuple[float, str, str | None, str]]) -> None:
+        site = self.site
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", FirewatchWarning)  # out-of-range becomes a status below
+            for tc in site.thermocouples:
+                rate = self._rates[tc.name].update(times, out_v[tc.name]) * 3600.0
                 out_v[f"{tc.name}.rate"] = rate
                 out_s[f"{tc.name}.rate"] = np.where(np.isnan(rate), int(Status.MISSING), int(Status.OK))
             for py in site.pyrometers:
-                self._pyrometer(py, times, batch)
-        if self.progress is not None:
-            # a tracker is made only for a site with a control thermocouple (__init__)
-            assert site.control is not None
-            ctl = site.control.name
-            plan = self.progress.update(times, out_v[ctl], out_v[f"{ctl}.rate"])
-            for name, values in plan.items():
-                out_v[name] = values
-                out_s[name] = np.where(np.isfinite(values), int(Status.OK), int(Status.MISSING))
+                self._pyrometer(py, times, out_v, out_s, events)
 
     def warm_start(self, times: np.ndarray, values: dict[str, np.ndarray], last: tuple[float, float, float | None] | None = None) -> None:
         """Bring trends and progress up to date from readings already in a continued log (no output).
@@ -447,33 +479,33 @@ class Pipeline:
             own = device_time if self.clock == "device" and device_time is not None else received
             self._anchor = (float(own), float(received), float(t))
             self._offset = float(t) - float(own)
+        rates: dict[str, np.ndarray] = {}
         for tc in self.site.thermocouples:
             if tc.name in values:
-                self._rates[tc.name].update(times, values[tc.name])
+                rates[tc.name] = self._rates[tc.name].update(times, values[tc.name]) * 3600.0
         if self.progress is not None and self.site.control is not None:
             ctl = self.site.control.name
             if ctl in values:
-                self.progress.update(times, values[ctl], values.get(f"{ctl}.rate", np.full(times.size, np.nan)))
+                rate = values.get(f"{ctl}.rate", rates.get(ctl, np.full(times.size, np.nan)))
+                self.progress.update(times, values[ctl], rate)
         if times.size:
             self._last_t = float(times[-1])
 
-    def _background(self, py: Pyrometer, batch: Batch, n: int) -> tuple[np.ndarray | None, np.ndarray]:
+    def _background(self, py: Pyrometer, values: dict[str, np.ndarray], n: int) -> tuple[np.ndarray | None, np.ndarray]:
         if py.background is None:
             return None, np.zeros(n, dtype=bool)
         if isinstance(py.background, float):
             return np.full(n, py.background), np.zeros(n, dtype=bool)
-        bg = batch.values[py.background]
+        bg = values[py.background]
         missing = ~np.isfinite(bg)
         return bg, missing
 
-    def _pyrometer(self, py: Pyrometer, times: np.ndarray, batch: Batch) -> None:
+    def _pyrometer(self, py: Pyrometer, times: np.ndarray, values: dict[str, np.ndarray], statuses: dict[str, np.ndarray],
+                   events: list[tuple[float, str, str | None, str]]) -> None:
         n = times.size
-        shown, status = self._column(py.name)
         band, band2 = self._bands[py.name]
-        # below absolute zero no radiance exists to invert: out of range, not a numpy warning
-        status = np.where((status == Status.OK) & ~(shown > -273.15), int(Status.OUT_OF_RANGE), status)
+        indicated, status = values[py.name], statuses[py.name]
         ok = status == Status.OK
-        indicated = np.where(ok, shown, np.nan)
         accuracy = np.maximum(py.accuracy_c, py.accuracy_percent / 100.0 * np.abs(np.nan_to_num(indicated))) / math.sqrt(3.0)
         if py.kind == "ratio":
             assert band2 is not None
@@ -483,7 +515,7 @@ class Pipeline:
             )
         else:
             path: float | Window = Window(py.window, fouling=py.fouling) if py.window else py.transmission
-            bg, missing = self._background(py, batch, n)
+            bg, missing = self._background(py, values, n)
             if bg is None:
                 reconciled, u = correct_single_band(
                     indicated, band, py.emissivity, path, py.set_emissivity, py.set_transmission,
@@ -504,26 +536,25 @@ class Pipeline:
                 if missing.any() and py.name not in self._fallback_noted:
                     self._fallback_noted.add(py.name)
                     i = int(np.argmax(missing))
-                    batch.events.append((float(times[i]), "fallback", py.name,
-                                         f"background {py.background} has no value; assuming the walls are at the ware's temperature"))
+                    events.append((float(times[i]), "fallback", py.name,
+                           f"background {py.background} has no value; assuming the walls are at the ware's temperature"))
                 if not missing.any():
                     self._fallback_noted.discard(py.name)
         rec_status = np.where(ok & np.isfinite(reconciled), int(Status.OK), np.where(ok, int(Status.OUT_OF_RANGE), status))
-        batch.values[py.name], batch.status[py.name] = indicated, status
-        batch.values[f"{py.name}.reconciled"], batch.status[f"{py.name}.reconciled"] = reconciled, rec_status
-        batch.values[f"{py.name}.u"], batch.status[f"{py.name}.u"] = u, rec_status
+        values[f"{py.name}.reconciled"], statuses[f"{py.name}.reconciled"] = reconciled, rec_status
+        values[f"{py.name}.u"], statuses[f"{py.name}.u"] = u, rec_status
         if py.reference:
             tc = self.site.thermocouple(py.reference)
             assert tc is not None
-            ref = batch.values[tc.name]
-            rate_c_per_s = batch.values[f"{tc.name}.rate"] / 3600.0
+            ref = values[tc.name]
+            rate_c_per_s = values[f"{tc.name}.rate"] / 3600.0
             u_tc = tolerance_uncertainty(tc.type, ref, tc.tolerance_class)
             # outside its class's range, take 0.75 % of reading as the bound (common practice, no source)
             u_tc = np.where(np.isnan(u_tc), 0.0075 * np.abs(ref) / math.sqrt(3.0), u_tc)
             u_lag = tc.time_constant_s * np.abs(np.nan_to_num(rate_c_per_s))
             divergence = reconciled - ref
             allowed = self.site.alarms.divergence_k * np.sqrt(u**2 + u_tc**2 + u_lag**2)
-            both = (rec_status == Status.OK) & (batch.status[tc.name] == Status.OK)
+            both = (rec_status == Status.OK) & (statuses[tc.name] == Status.OK)
             st = np.where(both, int(Status.OK), int(Status.MISSING))
-            batch.values[f"{py.name}.divergence"], batch.status[f"{py.name}.divergence"] = np.where(both, divergence, np.nan), st
-            batch.values[f"{py.name}.allowed"], batch.status[f"{py.name}.allowed"] = np.where(both, allowed, np.nan), st
+            values[f"{py.name}.divergence"], statuses[f"{py.name}.divergence"] = np.where(both, divergence, np.nan), st
+            values[f"{py.name}.allowed"], statuses[f"{py.name}.allowed"] = np.where(both, allowed, np.nan), st

@@ -67,15 +67,10 @@ _LINES_PER_JOB = 24_000
 def _parse_job(job: tuple[str, SiteProfile, str, int, int]) -> list:
     """In a worker process: read raw lines ``lo < id <= hi`` and gather them into column batches."""
     path, site, clock, lo, hi = job
-    import sqlite3
-
     from firewatch.firing.pipeline import to_columns
 
-    con = sqlite3.connect(f"file:{path}?mode=ro", uri=True)
-    try:
-        rows = con.execute("SELECT received_utc, line FROM raw_line WHERE id > ? AND id <= ? ORDER BY id", (lo, hi)).fetchall()
-    finally:
-        con.close()
+    with LogReader(path) as reader:
+        rows = [(r[0], r[1]) for part in reader.raw_lines(lo, hi) for r in part]
     parser = make_parser(site, clock)
     names = site.channel_names
     gc.disable()
@@ -92,8 +87,8 @@ def _batches(reader: LogReader, site: SiteProfile, clock: str):
     """Column batches of the whole log, parsed in a second process while this one computes."""
     import multiprocessing
 
-    lo, hi = reader.query("SELECT coalesce(min(id), 1) - 1, coalesce(max(id), 0) FROM raw_line")[0]
-    jobs = [(str(reader.path.resolve()), site, clock, a, min(a + _LINES_PER_JOB, hi)) for a in range(lo, hi, _LINES_PER_JOB)]
+    lo, hi = reader.raw_span()
+    jobs = [(str(reader.data_path.resolve()), site, clock, a, min(a + _LINES_PER_JOB, hi)) for a in range(lo, hi, _LINES_PER_JOB)]
     if len(jobs) <= 1:
         for job in jobs:
             yield from _parse_job(job)
