@@ -404,9 +404,13 @@ class Recorder:
         reader.start()
         started = time.monotonic()
         reason = "stopped"
+        due = time.monotonic() + self.commit_interval_s
         try:
             while not self.stop_event.is_set():
-                self.stop_event.wait(self.commit_interval_s)
+                # cycles start every commit interval, whatever the last one took, so that what a kill can lose is
+                # bounded by the interval and one cycle's work, not their sum (issue 15: at most 1 s lost)
+                self.stop_event.wait(max(due - time.monotonic(), 0.0))
+                due = max(due + self.commit_interval_s, time.monotonic())
                 self._cycle(writer, ingest)
                 if self.duration_s is not None and time.monotonic() - started >= self.duration_s:
                     reason = f"--for {self.duration_s:g} s elapsed"

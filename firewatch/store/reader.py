@@ -2,8 +2,10 @@
 
 from __future__ import annotations
 
+import contextlib
 import json
 import sqlite3
+from contextlib import AbstractContextManager
 from collections.abc import Iterable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
@@ -69,7 +71,6 @@ class LogReader:
             if not isinstance(error, LogDamaged):  # not SQLite, another SQLite database, or no meta table
                 error = LogError(f"{self.path}: not a firing log ({exc})")
             raise error from None
-        self.con = con
         if version is None:
             con.close()
             raise LogError(f"{self.path}: not a firing log (no schema version)")
@@ -80,20 +81,32 @@ class LogReader:
         """The old layout's schema version when this reads a converted copy of an old log (see docs/log-format.md)."""
         self.data_path = self.path
         """The file the readings are read from: the log, or the converted copy of an old one."""
+        self._source = con
+        self._con: sqlite3.Connection | None = con
         if not is_compact(con):
-            con.close()
+            self.upgraded_from = str(version[0])
+            self._con = None  # converted when first read: an integrity check alone reads the original
+        self._layout: tuple[dict[str, tuple[int, int]], dict[str, tuple[int, str]]] | None = None
+        self.lock: AbstractContextManager[Any] = contextlib.nullcontext()
+        """Held around reads that bypass :meth:`query` (a viewer sharing the connection between threads sets its own)."""
+
+    @property
+    def con(self) -> sqlite3.Connection:
+        """The connection the readings are read through (an old log is converted on first use)."""
+        if self._con is None:
             from firewatch.store.upgrade import upgraded_copy
 
             try:
                 self.data_path = upgraded_copy(self.path)
-                self.con = _connect(self.data_path, read_only=True)
+                self._con = _connect(self.data_path, read_only=True)
             except sqlite3.DatabaseError as exc:
                 raise log_error(self.path, exc) from None
-            self.upgraded_from = str(version[0])
-        self._layout: tuple[dict[str, tuple[int, int]], dict[str, tuple[int, str]]] | None = None
+        return self._con
 
     def close(self) -> None:
-        self.con.close()
+        if self._con is not None and self._con is not self._source:
+            self._con.close()
+        self._source.close()
 
     def __enter__(self) -> LogReader:
         return self
@@ -109,9 +122,6 @@ class LogReader:
         except sqlite3.DatabaseError as exc:
             raise log_error(self.path, exc) from None
 
-    def _original(self) -> sqlite3.Connection:
-        return self.con if self.data_path == self.path else _connect(self.path, read_only=True)
-
     def integrity(self, limit: int = 20) -> list[str]:
         """SQLite's ``PRAGMA quick_check``: no problems (an empty list) when the log is sound, else up to ``limit``.
 
@@ -119,14 +129,10 @@ class LogReader:
         matches its table (SQLite's documentation, "PRAGMA quick_check"); it takes 0.2 to 0.7 s for a
         day's log of 60 MB, which a command reading the whole log can afford.
         """
-        con = self._original()
         try:
-            rows = con.execute(f"PRAGMA quick_check({int(limit)})").fetchall()
+            rows = self._source.execute(f"PRAGMA quick_check({int(limit)})").fetchall()
         except sqlite3.DatabaseError as exc:
             return [str(exc)]
-        finally:
-            if con is not self.con:
-                con.close()
         # SQLite may join several problems into one row, headed by the database's name
         problems = [line.strip() for (text,) in rows for line in str(text).splitlines()]
         problems = [p for p in problems if p and not p.startswith("*** in database")]
@@ -216,14 +222,23 @@ class LogReader:
         """
         measured = self._channels()[0]
         wanted = [n for n in (names if names is not None else measured) if n in measured]
-        cols = "".join(f", {column(measured[n][0])}" for n in wanted)
-        rows = self.query(f"SELECT id, session_id, t{cols} FROM sample WHERE id BETWEEN ? AND ? ORDER BY id", (lo, hi))
-        arr = np.array(rows, dtype=float).reshape(len(rows), 3 + len(wanted))  # NULL becomes NaN
-        ids = arr[:, 0].astype(np.int64)
-        out = Block(ids, arr[:, 1].astype(np.int64), arr[:, 2].copy(), {}, {}, {})
+        # NULL is read as +inf (9e999) and turned into NaN, so that the rows go straight into a numpy record array;
+        # no measured value is infinite (the parsers reject inf as malformed)
+        cols = "".join(f", ifnull({column(measured[n][0])}, 9e999)" for n in wanted)
+        dtype = np.dtype([("id", "i8"), ("s", "i8"), ("t", "f8")] + [(f"v{k}", "f8") for k in range(len(wanted))])
+        try:
+            with self.lock:
+                rows = np.fromiter(self.con.execute(f"SELECT id, session_id, t{cols} FROM sample WHERE id BETWEEN ? AND ? ORDER BY id", (lo, hi)),
+                                   dtype=dtype)
+        except sqlite3.DatabaseError as exc:
+            raise log_error(self.path, exc) from None
+        ids = rows["id"].copy()
+        out = Block(ids, rows["s"].copy(), rows["t"].copy(), {}, {}, {})
         for k, name in enumerate(wanted):
             cid, first = measured[name]
-            out.values[name] = arr[:, 3 + k].copy()
+            v = rows[f"v{k}"].copy()
+            v[np.isinf(v)] = np.nan
+            out.values[name] = v
             status = np.zeros(ids.size, dtype=np.int64)
             if ids.size:
                 for a, b, st in self.query("SELECT first_id, last_id, status FROM flag WHERE channel_id = ? AND first_id <= ? AND last_id >= ?",

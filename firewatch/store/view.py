@@ -175,6 +175,7 @@ class FiringView:
         self._closed = False
         self._query = self.reader.query
         self.reader.query = self._locked_query  # type: ignore[method-assign]
+        self.reader.lock = self._lock
         firing = self.reader.firing()
         self.firing = firing
         self.site: SiteProfile | None

@@ -966,6 +966,13 @@ class LogWriter:
                     raise
             else:
                 told = self._close_holding(reason, t)
+                if self.outage is None and not self.con.in_transaction:
+                    try:  # the lines still waiting are compressed now; a log that cannot take it keeps them as they are
+                        self.con.execute("BEGIN")
+                        self._pack_raw(1)
+                        self.con.execute("COMMIT")
+                    except sqlite3.Error:
+                        self._rollback_quietly()
             try:
                 self._checkpoint(force=True)
                 self.con.close()
