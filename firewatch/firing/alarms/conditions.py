@@ -365,15 +365,16 @@ class OverTemperature:
             return []
         names = [tc.name for tc in self.site.thermocouples] + [f"{p.name}.reconciled" for p in self.site.pyrometers]
         stack = np.vstack([values[n] for n in names])
-        with np.errstate(invalid="ignore"):
-            hottest = np.nanmax(np.where(np.isfinite(stack), stack, -np.inf), axis=0)
-        which = [names[i] for i in np.argmax(np.where(np.isfinite(stack), stack, -np.inf), axis=0)]
+        known = np.where(np.isfinite(stack), stack, -np.inf)
+        hottest = known.max(axis=0)
         bad = hottest > limit
         clear = hottest < limit - self.HYSTERESIS_K
 
         def raise_at(t: float) -> Raise:
+            # the hottest channel's name only where an alarm is raised, not a name per reading (issue 15)
             i = int(np.searchsorted(times, t))
-            return Raise("over-temperature", None, t, f"above {limit:g} °C ({which[i] if i < len(which) else ''})", "high")
+            which = names[int(np.argmax(known[:, i]))] if i < times.size else ""
+            return Raise("over-temperature", None, t, f"above {limit:g} °C ({which})", "high")
 
         return self.debounces.run(("over-temperature", None), times, bad, clear, self.ON_S, self.OFF_S, raise_at,
                                   f"below {limit - self.HYSTERESIS_K:g} °C")
