@@ -6,8 +6,6 @@ import argparse
 import csv
 import sys
 
-import numpy as np
-
 from firewatch.commands._args import UsageError
 from firewatch.commands._common import iso, open_log
 
@@ -42,6 +40,8 @@ def export_csv(reader, out) -> int:
     Streams :data:`PAGE` samples at a time: each channel is turned into text
     a column at a time, and the rows are joined and written once per page.
     """
+    import numpy as np
+
     from firewatch.store.derive import derived_block
     from firewatch.store.layout import STEP_KIND
     from firewatch.transport.records import Status

@@ -1170,7 +1170,7 @@ class BriefWrite:
 
     def timeline_now(self) -> float:
         """Now on the firing's time line: the wall clock, shifted as the newest sample was (device clock)."""
-        row = self.con.execute("SELECT t - received_utc FROM sample ORDER BY id DESC LIMIT 1").fetchone()
+        row = self.con.execute("SELECT s.t - n.last_received_utc FROM sample s JOIN session n ON n.id = s.session_id ORDER BY s.id DESC LIMIT 1").fetchone()
         shift: float = row[0] if row and row[0] is not None else 0.0
         return self._clock() + shift
 
