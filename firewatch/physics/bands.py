@@ -70,6 +70,8 @@ _LOG_T = np.linspace(np.log(TABLE_T_MIN_K), np.log(TABLE_T_MAX_K), _TABLE_POINTS
 """The tables' ln T knots, shared by every band (so one search serves several bands)."""
 _SEARCH_BELOW = 512
 """Below this many arguments numpy.interp's own search is the cheaper (measured, benchmarks/bench_corrections.py)."""
+_SLICE = 1 << 15
+"""Arguments read at a time: the temporaries of a slice stay in the cache (measured, benchmarks/bench_corrections.py)."""
 _SAMPLE_PAIRS = 256
 """Neighbouring pairs of arguments sampled to tell ordered arguments (a firing in time order) from scattered ones."""
 _NEAR_KNOTS = 4.0
@@ -114,7 +116,7 @@ class _Knots:
             m *= 2
         self._top = int(bucket[-1]) + 1  # arguments above the last knot's bucket are clipped to this one
         # last J whose knot is in a lower bucket than k (0: none)
-        self._lower = np.searchsorted(bucket, np.arange(self._top + 1), side="left").astype(np.int32)
+        self._lower = np.searchsorted(bucket, np.arange(self._top + 1), side="left").astype(np.intp)
         self._next = np.concatenate([xp, [np.inf]])  # the knot after J, i.e. xp[J]
         self._knot = np.concatenate([[xp[0]], xp, [xp[-1]]])  # xp[J - 1], finite at the ends
         self._near = _NEAR_KNOTS * span / (n - 1)
@@ -144,16 +146,26 @@ class _Knots:
         # at the last knot numpy.interp returns fp[-1]: a zero slope there gives it exactly; NaN beyond the ends
         return np.concatenate([[np.nan], slope, [0.0, np.nan]]), np.concatenate([[np.nan], fp, [np.nan]])
 
-    def place(self, x: NDArray[np.float64]) -> tuple[NDArray[np.int32], NDArray[np.float64]]:
+    def place(self, x: NDArray[np.float64]) -> tuple[NDArray[np.intp], NDArray[np.float64]]:
         """Interval J (see the class notes) and offset x - xp[J - 1], for 1-d ``x``."""
-        k = self._bucket(x)
-        np.clip(k, 0, self._top, out=k)
-        j = self._lower[k]
+        j = np.take(self._lower, self._bucket(x), mode="clip")  # NaN, inf and the far outside land in the end buckets
         j += x >= self._next[j]  # the knot in x's own bucket, if any, at or below x
-        j[x > self.x_last] = self.xp.size + 1  # above the last knot, which shares its bucket with what lies just above
+        if np.fmax.reduce(x, initial=-np.inf) > self.x_last:  # rare: above the last knot, which shares its bucket
+            j[x > self.x_last] = self.xp.size + 1
         return j, x - self._knot[j]
 
-    def value(self, place: tuple[NDArray[np.int32], NDArray[np.float64]], slope: NDArray[np.float64],
+    def interp(self, x: NDArray[np.float64], slope: NDArray[np.float64], fp: NDArray[np.float64]) -> NDArray[np.float64]:
+        """numpy.interp(x, xp, fp, left=nan, right=nan) for 1-d ``x``, with :meth:`slopes` of fp.
+
+        In slices of :data:`_SLICE` arguments, so that the temporaries stay in the cache.
+        """
+        out = np.empty_like(x)
+        for i in range(0, x.size, _SLICE):
+            part = x[i : i + _SLICE]
+            out[i : i + _SLICE] = self.value(self.place(part), slope, fp)
+        return out
+
+    def value(self, place: tuple[NDArray[np.intp], NDArray[np.float64]], slope: NDArray[np.float64],
               fp: NDArray[np.float64]) -> NDArray[np.float64]:
         """numpy.interp(x, xp, fp, left=nan, right=nan) from a :meth:`place` of ``x`` and :meth:`slopes` of fp."""
         j, dx = place
@@ -368,7 +380,7 @@ class Band:
         flat = log_t.ravel()
         if _GRID.searched(flat):
             return np.asarray(np.interp(log_t, *self._table, left=np.nan, right=np.nan), dtype=float)
-        return _GRID.value(_GRID.place(flat), *self._forward).reshape(log_t.shape)
+        return _GRID.interp(flat, *self._forward).reshape(log_t.shape)
 
     def _log_t_at(self, log_signal: NDArray[np.float64]) -> NDArray[np.float64]:
         """ln T at ln S from the table, NaN outside it: numpy.interp's result to the bit."""
@@ -377,7 +389,7 @@ class Band:
         if flat.size < _SEARCH_BELOW or self._inverse[0].searched(flat):
             return np.asarray(np.interp(log_signal, log_s, log_t, left=np.nan, right=np.nan), dtype=float)
         knots, slope, fp = self._inverse
-        return knots.value(knots.place(flat), slope, fp).reshape(log_signal.shape)
+        return knots.interp(flat, slope, fp).reshape(log_signal.shape)
 
     def log_signal(self, temperature_k: ArrayLike) -> NDArray[np.float64]:
         """ln S(T) from the table; NaN (with :class:`OutOfRangeWarning`) outside the table."""
@@ -415,7 +427,10 @@ def _flag_outside(
 
     ``show`` is the value quoted in the message, ``given`` by default.
     """
-    bad = np.isnan(result) & ~np.isnan(given)
+    missing = np.isnan(result)
+    if not missing.any():  # the usual case, in one pass
+        return
+    bad = missing & ~np.isnan(given)
     if not bad.any():
         return
     if given.ndim == 0:

@@ -269,7 +269,8 @@ def correct_single_band(
     s_t = np.exp(scene_band.log_signal(t))
     ds_t = s_t * _dlog(scene_band, t)  # dS_w/dT at the corrected temperature
     s_meas_gray = np.exp(log_meas) / gray
-    tau_eff = gray * s_t / np.exp(band.log_signal(t))
+    # without a window the band is the scene's and its signal at t is s_t: not read twice
+    tau_eff = gray * s_t / (s_t if scene_band is band else np.exp(band.log_signal(t)))
     terms = [
         (s_t - (0.0 if s_bg is None else s_bg)) / (eps * ds_t) * u_eps,
         s_meas_gray / (eps * ds_t) * (u_tau / tau_eff),
