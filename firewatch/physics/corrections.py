@@ -302,24 +302,25 @@ def _log_scene(log_meas_gray: NDArray[np.float64], eps: NDArray[np.float64], s_b
 
 _INPUTS = ("emissivity", "transmission", "indicated temperature", "background")
 
+_SLICE = 1 << 14
+"""Readings probed at a time: the probes' temporaries (several per input) then stay in the cache."""
+
 
 def _probe(
     band: Band, scene_band: Band, t: NDArray[np.float64], eps: NDArray[np.float64], u_eps: NDArray[np.float64],
     gray: NDArray[np.float64], tau_eff: NDArray[np.float64], u_tau: NDArray[np.float64], log_meas: NDArray[np.float64],
     t_ind: NDArray[np.float64], u_ind: NDArray[np.float64], settings: NDArray[np.float64],
-    t_bg: NDArray[np.float64] | None, u_bg: NDArray[np.float64], shape: tuple[int, ...],
+    t_bg: NDArray[np.float64] | None, u_bg: NDArray[np.float64], shape: tuple[int, ...], active: list[bool],
 ) -> tuple[dict[int, tuple[NDArray[np.float64], NDArray[np.float64]]], NDArray[np.float64] | None]:
     """Departures of the corrected temperature from ``t`` (K) at the probes of :func:`_check_linearity`.
 
-    Returns the departures at +2 u and -2 u for each input that has an uncertainty (keyed by its index in
+    Returns the departures at +2 u and -2 u for each ``active`` input (keyed by its index in
     ``_INPUTS``), and, where both the emissivity and the background have one, the product term: the mixed
     difference over their four corners, scaled to f_xy u_x u_y and doubled to compare with a 95 % half-width.
     All probes are solved in one pass: the scene signals are stacked, then one logarithm and one table lookup.
     """
-    active = [bool(np.any(u_eps > 0)), bool(np.any(u_tau > 0)), bool(np.any(u_ind > 0)),
-              t_bg is not None and bool(np.any(u_bg > 0))]
     s_m = np.broadcast_to(np.exp(log_meas) / gray, shape)
-    s_b = np.broadcast_to(np.exp(scene_band.log_signal(t_bg)), shape) if t_bg is not None else None
+    s_b = np.broadcast_to(np.exp(scene_band._log_signal_at(np.log(t_bg))), shape) if t_bg is not None else None
     e = np.broadcast_to(eps, shape)
     e_hi = np.broadcast_to(np.minimum(eps + 2 * u_eps, 1.0), shape)
     e_lo = np.broadcast_to(np.maximum(eps - 2 * u_eps, 1e-6), shape)
@@ -331,20 +332,25 @@ def _probe(
                  (s_m / np.maximum(1.0 - 2 * u_tau / tau_eff, 1e-6), e, s_b)]
     if active[2]:
         for sign in (1.0, -1.0):
-            lm = band.log_signal(np.maximum(t_ind + sign * 2 * u_ind, 1.0)) + np.log(settings)
+            lm = band._log_signal_at(np.log(np.maximum(t_ind + sign * 2 * u_ind, 1.0))) + np.log(settings)
             rows.append((np.broadcast_to(np.exp(lm) / gray, shape), e, s_b))
     if active[3]:
         assert t_bg is not None
-        b_hi = np.broadcast_to(np.exp(scene_band.log_signal(t_bg + 2 * u_bg)), shape)
-        b_lo = np.broadcast_to(np.exp(scene_band.log_signal(np.maximum(t_bg - 2 * u_bg, 1.0))), shape)
+        b_hi = np.broadcast_to(np.exp(scene_band._log_signal_at(np.log(t_bg + 2 * u_bg))), shape)
+        b_lo = np.broadcast_to(np.exp(scene_band._log_signal_at(np.log(np.maximum(t_bg - 2 * u_bg, 1.0)))), shape)
         rows += [(s_m, e, b_hi), (s_m, e, b_lo)]
         if active[0]:
             rows += [(s_m, e_hi, b_hi), (s_m, e_hi, b_lo), (s_m, e_lo, b_hi), (s_m, e_lo, b_lo)]
     scene = np.empty((len(rows), *shape))
     for k, (m, ek, bk) in enumerate(rows):
-        scene[k] = m / ek if bk is None else (m - (1.0 - ek) * bk) / ek
-    scene[~(scene > 0)] = np.nan  # no solution: the background alone gives more than the reading
-    d = scene_band.temperature_from_log_signal(np.log(scene)) - np.broadcast_to(t, shape)
+        if bk is None:
+            np.divide(m, ek, out=scene[k])
+        else:
+            scene[k] = (m - (1.0 - ek) * bk) / ek
+    # no solution where the background alone gives more than the reading: the log is then -inf or NaN, off the table
+    np.log(scene, out=scene)
+    d = scene_band.temperature_from_log_signal(scene)
+    d -= np.broadcast_to(t, shape)
     out: dict[int, tuple[NDArray[np.float64], NDArray[np.float64]]] = {}
     k = 0
     for i, on in enumerate(active):
@@ -354,9 +360,33 @@ def _probe(
     cross = None
     if active[0] and active[3]:
         step = np.broadcast_to(e_hi - e_lo, shape)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            cross = np.where(step > 0, (d[k] - d[k + 1] - d[k + 2] + d[k + 3]) * np.broadcast_to(u_eps, shape) / (2.0 * step), 0.0)
+        cross = np.where(step > 0, (d[k] - d[k + 1] - d[k + 2] + d[k + 3]) * np.broadcast_to(u_eps, shape) / (2.0 * step), 0.0)
     return out, cross
+
+
+def _judge(
+    pairs: dict[int, tuple[NDArray[np.float64], NDArray[np.float64]]], cross: NDArray[np.float64] | None,
+    u: NDArray[np.float64], t: NDArray[np.float64], shape: tuple[int, ...],
+) -> tuple[NDArray[np.float64], NDArray[np.bool_], NDArray[np.bool_]]:
+    """The probes' largest relative departure from 2 u, where that is too large, and where the model has no value within them.
+
+    The one-sided departures, summed in quadrature, plus the product term
+    added whole, estimate the upper and lower 95 % half-widths (see
+    :func:`_check_linearity`).
+    """
+    up = np.sqrt(sum(np.square(np.maximum(np.fmax(a, b), 0.0)) for a, b in pairs.values()))
+    down = np.sqrt(sum(np.square(np.minimum(np.fmin(a, b), 0.0)) for a, b in pairs.values()))
+    if cross is not None:
+        up, down = up + np.abs(cross), down + np.abs(cross)  # the product term is not Gaussian (heavy tails): added whole
+    two_u = 2.0 * np.broadcast_to(u, shape)
+    off = np.maximum(np.abs(up / two_u - 1.0), np.abs(down / two_u - 1.0))
+    undefined = np.zeros(shape, dtype=bool)
+    for a, b in pairs.values():
+        undefined |= np.isnan(a) | np.isnan(b)
+    if cross is not None:
+        undefined |= np.isnan(cross)
+    undefined &= np.isfinite(np.broadcast_to(t, shape))
+    return off, ((off > LINEARITY_LIMIT) & (two_u > 0)) | undefined, undefined
 
 
 def _check_linearity(
@@ -374,37 +404,54 @@ def _check_linearity(
     mixed second difference, JCGM 100 5.1.2 note; added whole, as a product
     of two uncertain inputs has heavy tails), estimate the upper and lower
     95 % half-widths; they are compared with 2 u.
+
+    The readings are probed in slices of :data:`_SLICE`, each input flattened
+    to the readings' shape (or kept whole where it is one number).
     """
-    if not (np.any(u_eps > 0) or np.any(u_tau > 0) or np.any(u_ind > 0) or (t_bg is not None and np.any(u_bg > 0))):
+    active = [bool(np.any(u_eps > 0)), bool(np.any(u_tau > 0)), bool(np.any(u_ind > 0)),
+              t_bg is not None and bool(np.any(u_bg > 0))]
+    if not any(active):
         return
     shape = np.broadcast_shapes(t.shape, u.shape)
+    size = int(np.prod(shape))
+
+    def flat(x: NDArray[np.float64]) -> NDArray[np.float64]:
+        return x if x.ndim == 0 else np.broadcast_to(x, shape).ravel()  # a view where x has the readings' shape
+
+    ins = [flat(np.asarray(x, dtype=float)) for x in (t, eps, u_eps, gray, tau_eff, u_tau, log_meas, t_ind, u_ind, settings, u_bg, u)]
+    bg = None if t_bg is None else flat(t_bg)
+
+    def probe(start: int, stop: int) -> tuple[dict[int, tuple[NDArray[np.float64], NDArray[np.float64]]],
+                                              NDArray[np.float64] | None, NDArray[np.float64], NDArray[np.float64]]:
+        def cut(x: NDArray[np.float64]) -> NDArray[np.float64]:
+            return x if x.ndim == 0 else x[start:stop]
+        x = [cut(v) for v in ins]
+        pairs, cross = _probe(band, scene_band, x[0], x[1], x[2], x[3], x[4], x[5], x[6], x[7], x[8], x[9],
+                              None if bg is None else cut(bg), x[10], (stop - start,), active)
+        return pairs, cross, x[11], x[0]
+
+    off = np.empty(size)
+    bad = np.empty(size, dtype=bool)
+    undefined = np.empty(size, dtype=bool)
     with warnings.catch_warnings(), np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         warnings.simplefilter("ignore", OutOfRangeWarning)  # a probe off the table is an undefined value, counted below
-        pairs, cross = _probe(band, scene_band, t, eps, u_eps, gray, tau_eff, u_tau, log_meas, t_ind, u_ind, settings,
-                              t_bg, u_bg, shape)
-    if not pairs:
-        return
-    up = np.sqrt(sum(np.square(np.maximum(np.fmax(a, b), 0.0)) for a, b in pairs.values()))
-    down = np.sqrt(sum(np.square(np.minimum(np.fmin(a, b), 0.0)) for a, b in pairs.values()))
-    if cross is not None:
-        up, down = up + np.abs(cross), down + np.abs(cross)  # the product term is not Gaussian (heavy tails): added whole
-    two_u = 2.0 * np.broadcast_to(u, shape)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        off = np.maximum(np.abs(up / two_u - 1.0), np.abs(down / two_u - 1.0))
-    undefined = np.zeros(shape, dtype=bool)
-    for a, b in pairs.values():
-        undefined |= np.isnan(a) | np.isnan(b)
-    if cross is not None:
-        undefined |= np.isnan(cross)
-    undefined &= np.isfinite(np.broadcast_to(t, shape))
-    bad = ((off > LINEARITY_LIMIT) & (two_u > 0)) | undefined
+        for start in range(0, size, _SLICE):
+            stop = min(start + _SLICE, size)
+            pairs, cross, u_part, t_part = probe(start, stop)
+            off[start:stop], bad[start:stop], undefined[start:stop] = _judge(pairs, cross, u_part, t_part, (stop - start,))
     if not bad.any():
         return
     # the worst value, and the input whose probes stray furthest from a straight line there
-    i = np.unravel_index(int(np.argmax(np.where(bad, np.nan_to_num(off, nan=np.inf), -1.0))), shape)
-    stray = {k: abs(float(a[i]) + float(b[i])) for k, (a, b) in pairs.items()}
+    worst = int(np.argmax(np.where(bad, np.nan_to_num(off, nan=np.inf), -1.0)))
+    start = worst - worst % _SLICE  # its slice probed again, as it was: the same values
+    with warnings.catch_warnings(), np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        warnings.simplefilter("ignore", OutOfRangeWarning)
+        pairs, cross, _, _ = probe(start, min(start + _SLICE, size))
+    j = worst - start
+    i = np.unravel_index(worst, shape)
+    stray = {k: abs(float(a[j]) + float(b[j])) for k, (a, b) in pairs.items()}
     if cross is not None:
-        stray[3] = max(stray.get(3, 0.0), abs(float(cross[i])))
+        stray[3] = max(stray.get(3, 0.0), abs(float(cross[j])))
     k = max(stray, key=lambda key: np.inf if np.isnan(stray[key]) else stray[key])
     t_i = float(np.broadcast_to(t, shape)[i]) - ZERO_CELSIUS
     if k == 0:
@@ -417,9 +464,9 @@ def _check_linearity(
                f"({t_i:.0f} degC): the emissivity's and background's uncertainties act together")
     else:
         why = f"the {_INPUTS[k]}'s uncertainty is large for the model's curvature"
-    if bool(undefined[i]):
+    if bool(undefined[worst]):
         why = "the model has no value within 2 u of the inputs (a reading near what the background alone gives, or an emissivity near 0); " + why
-    count = f"{int(bad.sum())} of {bad.size} values: " if bad.ndim and bad.size > 1 else ""
+    count = f"{int(bad.sum())} of {size} values: " if len(shape) and size > 1 else ""
     warnings.warn(
         f"{count}first-order uncertainty unreliable: {why}; use the Monte Carlo propagation "
         "(monte_carlo_single_band, calc pyro --monte-carlo)",
