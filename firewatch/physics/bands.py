@@ -154,16 +154,22 @@ class _Knots:
             j[x > self.x_last] = self.xp.size + 1
         return j, x - self._knot[j]
 
-    def interp(self, x: NDArray[np.float64], slope: NDArray[np.float64], fp: NDArray[np.float64]) -> NDArray[np.float64]:
-        """numpy.interp(x, xp, fp, left=nan, right=nan) for 1-d ``x``, with :meth:`slopes` of fp.
+    def interp(self, x: NDArray[np.float64], *tables: tuple[NDArray[np.float64], NDArray[np.float64]]) -> list[NDArray[np.float64]]:
+        """numpy.interp(x, xp, fp, left=nan, right=nan) for each table (:meth:`slopes` of an fp) at the same ``x``.
 
-        In slices of :data:`_SLICE` arguments, so that the temporaries stay in the cache.
+        Whichever of numpy.interp's search and the buckets is the cheaper
+        (:meth:`searched`); the buckets in slices of :data:`_SLICE` arguments, so
+        that the temporaries stay in the cache, and one placing for all tables.
         """
-        out = np.empty_like(x)
-        for i in range(0, x.size, _SLICE):
-            part = x[i : i + _SLICE]
-            out[i : i + _SLICE] = self.value(self.place(part), slope, fp)
-        return out
+        flat = x.ravel()
+        if self.searched(flat):
+            return [np.asarray(np.interp(x, self.xp, fp[1:-1], left=np.nan, right=np.nan), dtype=float) for _, fp in tables]
+        outs = [np.empty_like(flat) for _ in tables]
+        for i in range(0, flat.size, _SLICE):
+            place = self.place(flat[i : i + _SLICE])
+            for out, (slope, fp) in zip(outs, tables):
+                out[i : i + _SLICE] = self.value(place, slope, fp)
+        return [out.reshape(x.shape) for out in outs]
 
     def value(self, place: tuple[NDArray[np.intp], NDArray[np.float64]], slope: NDArray[np.float64],
               fp: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -377,19 +383,15 @@ class Band:
 
     def _log_signal_at(self, log_t: NDArray[np.float64]) -> NDArray[np.float64]:
         """ln S at ln T from the table, NaN outside it, without warning: numpy.interp's result to the bit."""
-        flat = log_t.ravel()
-        if _GRID.searched(flat):
-            return np.asarray(np.interp(log_t, *self._table, left=np.nan, right=np.nan), dtype=float)
-        return _GRID.interp(flat, *self._forward).reshape(log_t.shape)
+        return _GRID.interp(log_t, self._forward)[0]
 
     def _log_t_at(self, log_signal: NDArray[np.float64]) -> NDArray[np.float64]:
         """ln T at ln S from the table, NaN outside it: numpy.interp's result to the bit."""
-        log_t, log_s = self._table
-        flat = log_signal.ravel()
-        if flat.size < _SEARCH_BELOW or self._inverse[0].searched(flat):
+        if log_signal.size < _SEARCH_BELOW:  # numpy.interp's search, without building the buckets
+            log_t, log_s = self._table
             return np.asarray(np.interp(log_signal, log_s, log_t, left=np.nan, right=np.nan), dtype=float)
         knots, slope, fp = self._inverse
-        return knots.interp(flat, slope, fp).reshape(log_signal.shape)
+        return knots.interp(log_signal, (slope, fp))[0]
 
     def log_signal(self, temperature_k: ArrayLike) -> NDArray[np.float64]:
         """ln S(T) from the table; NaN (with :class:`OutOfRangeWarning`) outside the table."""
@@ -413,6 +415,19 @@ class Band:
 
     def __repr__(self) -> str:
         return f"Band({self.name!r})"
+
+
+def _log_signals(bands: tuple[Band, ...], temperature_k: NDArray[np.float64]) -> list[NDArray[np.float64]]:
+    """:meth:`Band.log_signal` of several bands at the same temperatures, placed on the shared ln T knots once.
+
+    Warns as the bands' own calls would, one after the other.
+    """
+    with np.errstate(divide="ignore", invalid="ignore"):
+        lt = np.log(temperature_k)
+    outs = _GRID.interp(lt, *(band._forward for band in bands))
+    for out in outs:
+        _flag_outside(out, temperature_k, "temperature (K)", f"{TABLE_T_MIN_K:g}..{TABLE_T_MAX_K:g} K")
+    return outs
 
 
 def band_radiance(band: Band, temperature_k: ArrayLike) -> NDArray[np.float64]:

@@ -68,13 +68,14 @@ See ``DeWitt1988``, ``GUM2008``, ``JCGM101`` and ``Planck1901`` in docs/referenc
 from __future__ import annotations
 
 import warnings
+from functools import lru_cache
 from typing import Any, Literal, overload
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from firewatch.physics._warnings import OutOfRangeWarning, RangeError, UncertaintyWarning, exact
-from firewatch.physics.bands import Band, _flag_outside
+from firewatch.physics.bands import _GRID, Band, _flag_outside, _Knots, _log_signals
 from firewatch.physics.constants import C2, ZERO_CELSIUS
 from firewatch.physics.windows import Window
 
@@ -530,6 +531,15 @@ def _ratio_table(band1: Band, band2: Band) -> tuple[NDArray[np.float64], NDArray
     return log_t1, log_r
 
 
+@lru_cache(maxsize=16)
+def _ratio_lookup(band1: Band, band2: Band) -> tuple[tuple[NDArray[np.float64], NDArray[np.float64]], _Knots,
+                                                     tuple[NDArray[np.float64], NDArray[np.float64]]]:
+    """ln R over the shared ln T knots, and the ln R knots with ln T over them (bands compare by identity)."""
+    log_t, log_r = _ratio_table(band1, band2)
+    knots = _Knots(log_r)
+    return _GRID.slopes(log_r), knots, knots.slopes(log_t)
+
+
 def _check_slope(value: ArrayLike, name: str) -> NDArray[np.float64]:
     v = np.asarray(value, dtype=float)
     bad = ~(v > 0)
@@ -539,7 +549,8 @@ def _check_slope(value: ArrayLike, name: str) -> NDArray[np.float64]:
 
 
 def _log_ratio(band1: Band, band2: Band, t_k: NDArray[np.float64]) -> NDArray[np.float64]:
-    return band1.log_signal(t_k) - band2.log_signal(t_k)
+    s1, s2 = _log_signals((band1, band2), t_k)  # one placing on the shared knots for both bands
+    return s1 - s2
 
 
 @overload
@@ -609,12 +620,12 @@ def correct_ratio(
     """
     k = _check_slope(slope, "slope")
     k_set = _check_slope(set_slope, "set slope")
-    log_t, log_r = _ratio_table(band1, band2)
+    forward, knots, inverse = _ratio_lookup(band1, band2)  # numpy.interp's results on the ratio table, to the bit
     t_ind = _to_kelvin(indicated_c)
-    lr_ind = np.interp(np.log(t_ind), log_t, log_r, left=np.nan, right=np.nan)
+    lr_ind = _GRID.interp(np.log(t_ind), forward)[0]
     _flag_outside(lr_ind, t_ind, "indicated temperature (K)", "200..4000 K")
     lr = lr_ind + np.log(k_set) - np.log(k)
-    t = np.exp(np.interp(lr, log_r, log_t, left=np.nan, right=np.nan))
+    t = np.exp(knots.interp(lr, inverse)[0])
     _flag_outside(t, lr, "indicated temperature (degC)", "what the band table covers (200..4000 K) once corrected", indicated_c)
     if not return_uncertainty:
         return t - ZERO_CELSIUS
