@@ -22,6 +22,7 @@ from typing import Any
 import numpy as np
 import pytest
 
+from firewatch.physics import corrections
 from firewatch.physics.bands import Band
 from firewatch.physics.corrections import correct_ratio, correct_single_band
 from firewatch.physics.windows import Window
@@ -146,6 +147,32 @@ def test_the_cases_exercise_every_warning() -> None:
                   "below what the background alone", "OutOfRangeWarning: "):
         assert cause in text, cause
     assert not any("UncertaintyWarning" in m for m in said["gray, no linearity check"])
+
+
+def test_the_worst_value_in_a_later_slice_is_found_and_named() -> None:
+    # issue 15: the probes run slice by slice; the one value that warns, in the last slice, must be counted and
+    # its cause named as for that reading alone (u(e)/e = 0.1/0.3: the module's example of a large ratio)
+    n = 3 * corrections._SLICE + 5
+    eps = np.full(n, 0.8)
+    u_eps = np.full(n, 0.001)
+    eps[-2], u_eps[-2] = 0.3, 0.1
+    with pytest.warns(Warning) as many:
+        correct_single_band(np.full(n, 1000.0), SI_BAND, eps, emissivity_u=u_eps, instrument_u_c=1.0, return_uncertainty=True)
+    with pytest.warns(Warning) as one:
+        correct_single_band(1000.0, SI_BAND, 0.3, emissivity_u=0.1, instrument_u_c=1.0, return_uncertainty=True)
+    assert [str(w.message) for w in many] == [f"1 of {n} values: " + str(w.message) for w in one]
+    assert "u(e)/e = 0.33" in str(one[0].message)
+
+
+@pytest.mark.parametrize("i", [0, 5, 7], ids=[CASES[i][0] for i in (0, 5, 7)])
+def test_slices_change_no_value_and_no_warning(i: int, monkeypatch: pytest.MonkeyPatch) -> None:
+    # slices of 97 readings (ending anywhere) against one slice for all: the same doubles, the same words
+    t, u, w = _run(CASES[i][1])
+    monkeypatch.setattr(corrections, "_SLICE", 97)
+    t2, u2, w2 = _run(CASES[i][1])
+    np.testing.assert_array_equal(t2, t)
+    np.testing.assert_array_equal(u2, u)
+    assert w2 == w
 
 
 if __name__ == "__main__":
