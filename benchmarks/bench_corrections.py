@@ -2,6 +2,8 @@
 
 Run by hand: ``python benchmarks/bench_corrections.py``. Prints ratios
 against baselines measured in the same run; no timings are asserted in tests.
+Times are CPU times of this process (the least of a few runs), so that other
+work on a shared machine does not enter them.
 
 Targets (issue 2): no slower than 3 x one numpy.interp over the same number
 of readings; at least 500 x faster than per-reading quadrature inside a
@@ -36,11 +38,12 @@ from firewatch.physics.windows import Window  # noqa: E402
 
 
 def best_of(fn, repeat: int = 5) -> float:
+    """Least CPU time of this process over ``repeat`` calls: on a shared machine, others' work stays out of it."""
     times = []
     for _ in range(repeat):
-        t0 = time.perf_counter()
+        t0 = time.process_time()
         fn()
-        times.append(time.perf_counter() - t0)
+        times.append(time.process_time() - t0)
     return min(times)
 
 
@@ -93,9 +96,9 @@ def main() -> None:
     t_unc_ord, t_unc_lin_ord, t_ratio_ord = uncertainty_times(ordered)
 
     sample = indicated[: args.naive_sample]
-    t0 = time.perf_counter()
+    t0 = time.process_time()
     naive = np.array([naive_correct(float(x), 0.8, 1.1, eps) for x in sample])
-    t_naive_each = (time.perf_counter() - t0) / sample.size
+    t_naive_each = (time.process_time() - t0) / sample.size
     fast = correct_single_band(sample, band, eps)
     err = np.max(np.abs(fast - naive))
 

@@ -320,11 +320,12 @@ def _probe(
     difference over their four corners, scaled to f_xy u_x u_y and doubled to compare with a 95 % half-width.
     All probes are solved in one pass: the scene signals are stacked, then one logarithm and one table lookup.
     """
-    s_m = np.broadcast_to(np.exp(log_meas) / gray, shape)
-    s_b = np.broadcast_to(np.exp(scene_band._log_signal_at(np.log(t_bg))), shape) if t_bg is not None else None
-    e = np.broadcast_to(eps, shape)
-    e_hi = np.broadcast_to(np.minimum(eps + 2 * u_eps, 1.0), shape)
-    e_lo = np.broadcast_to(np.maximum(eps - 2 * u_eps, 1e-6), shape)
+    # inputs keep their own shapes (one number, or one per reading): the arithmetic broadcasts them
+    s_m = np.exp(log_meas) / gray
+    s_b = np.exp(scene_band._log_signal_at(np.log(t_bg))) if t_bg is not None else None
+    e = eps
+    e_hi = np.minimum(eps + 2 * u_eps, 1.0)
+    e_lo = np.maximum(eps - 2 * u_eps, 1e-6)
     rows: list[tuple[Any, Any, Any]] = []  # (measured signal / gray, emissivity, background signal) per probe
     if active[0]:
         rows += [(s_m, e_hi, s_b), (s_m, e_lo, s_b)]
@@ -334,11 +335,11 @@ def _probe(
     if active[2]:
         for sign in (1.0, -1.0):
             lm = band._log_signal_at(np.log(np.maximum(t_ind + sign * 2 * u_ind, 1.0))) + np.log(settings)
-            rows.append((np.broadcast_to(np.exp(lm) / gray, shape), e, s_b))
+            rows.append((np.exp(lm) / gray, e, s_b))
     if active[3]:
         assert t_bg is not None
-        b_hi = np.broadcast_to(np.exp(scene_band._log_signal_at(np.log(t_bg + 2 * u_bg))), shape)
-        b_lo = np.broadcast_to(np.exp(scene_band._log_signal_at(np.log(np.maximum(t_bg - 2 * u_bg, 1.0)))), shape)
+        b_hi = np.exp(scene_band._log_signal_at(np.log(t_bg + 2 * u_bg)))
+        b_lo = np.exp(scene_band._log_signal_at(np.log(np.maximum(t_bg - 2 * u_bg, 1.0))))
         rows += [(s_m, e, b_hi), (s_m, e, b_lo)]
         if active[0]:
             rows += [(s_m, e_hi, b_hi), (s_m, e_hi, b_lo), (s_m, e_lo, b_hi), (s_m, e_lo, b_lo)]
@@ -351,7 +352,7 @@ def _probe(
     # no solution where the background alone gives more than the reading: the log is then -inf or NaN, off the table
     np.log(scene, out=scene)
     d = scene_band.temperature_from_log_signal(scene)
-    d -= np.broadcast_to(t, shape)
+    d -= t
     out: dict[int, tuple[NDArray[np.float64], NDArray[np.float64]]] = {}
     k = 0
     for i, on in enumerate(active):
@@ -360,8 +361,8 @@ def _probe(
             k += 2
     cross = None
     if active[0] and active[3]:
-        step = np.broadcast_to(e_hi - e_lo, shape)
-        cross = np.where(step > 0, (d[k] - d[k + 1] - d[k + 2] + d[k + 3]) * np.broadcast_to(u_eps, shape) / (2.0 * step), 0.0)
+        step = e_hi - e_lo
+        cross = np.where(step > 0, (d[k] - d[k + 1] - d[k + 2] + d[k + 3]) * u_eps / (2.0 * step), 0.0)
     return out, cross
 
 
@@ -379,14 +380,14 @@ def _judge(
     down = np.sqrt(sum(np.square(np.minimum(np.fmin(a, b), 0.0)) for a, b in pairs.values()))
     if cross is not None:
         up, down = up + np.abs(cross), down + np.abs(cross)  # the product term is not Gaussian (heavy tails): added whole
-    two_u = 2.0 * np.broadcast_to(u, shape)
+    two_u = 2.0 * u
     off = np.maximum(np.abs(up / two_u - 1.0), np.abs(down / two_u - 1.0))
     undefined = np.zeros(shape, dtype=bool)
     for a, b in pairs.values():
         undefined |= np.isnan(a) | np.isnan(b)
     if cross is not None:
         undefined |= np.isnan(cross)
-    undefined &= np.isfinite(np.broadcast_to(t, shape))
+    undefined &= np.isfinite(t)
     return off, ((off > LINEARITY_LIMIT) & (two_u > 0)) | undefined, undefined
 
 
@@ -417,7 +418,9 @@ def _check_linearity(
     size = int(np.prod(shape))
 
     def flat(x: NDArray[np.float64]) -> NDArray[np.float64]:
-        return x if x.ndim == 0 else np.broadcast_to(x, shape).ravel()  # a view where x has the readings' shape
+        if x.ndim == 0:
+            return x
+        return x.ravel() if x.shape == shape else np.broadcast_to(x, shape).ravel()
 
     ins = [flat(np.asarray(x, dtype=float)) for x in (t, eps, u_eps, gray, tau_eff, u_tau, log_meas, t_ind, u_ind, settings, u_bg, u)]
     bg = None if t_bg is None else flat(t_bg)
