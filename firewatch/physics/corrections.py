@@ -52,7 +52,11 @@ or where the model has no value within the probes, it warns with
 :class:`UncertaintyWarning` naming the cause. The
 remedy is the Monte Carlo propagation of JCGM 101:2008 [JCGM101]_ in
 :func:`firewatch.physics.montecarlo.monte_carlo_single_band`, which
-returns an asymmetric coverage interval.
+returns an asymmetric coverage interval. The probes run over slices of the
+readings (:data:`_SLICE`), which keeps their many temporaries in the
+cache. The band tables give numpy.interp's own doubles however they are
+read (:class:`firewatch.physics.bands._Knots`), so value and uncertainty do
+not depend on the way the tables were read.
 
 Input checking: emissivity and transmission settings outside (0, 1] and
 slopes <= 0 raise ``ValueError``; indicated temperatures outside the band
