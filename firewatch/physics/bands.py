@@ -70,6 +70,8 @@ _LOG_T = np.linspace(np.log(TABLE_T_MIN_K), np.log(TABLE_T_MAX_K), _TABLE_POINTS
 """The tables' ln T knots, shared by every band (so one search serves several bands)."""
 _SEARCH_BELOW = 512
 """Below this many arguments numpy.interp's own search is the cheaper (measured, benchmarks/bench_corrections.py)."""
+_MAX_BUCKETS = 1 << 20
+"""At most this many buckets (8 MB of indices) for one table; a table needing more is read by numpy.interp."""
 _SLICE = 1 << 15
 """Arguments read at a time: the temporaries of a slice stay in the cache (measured, benchmarks/bench_corrections.py)."""
 _SAMPLE_PAIRS = 256
@@ -106,8 +108,12 @@ class _Knots:
         self.xp = xp
         self.x_last = float(xp[-1])
         span = float(xp[-1] - xp[0])
+        self._near = _NEAR_KNOTS * span / (n - 1)
         m = int(np.ceil(span / float(np.min(np.diff(xp))))) + 1
         while True:  # narrower buckets until no two knots share one (rounding could put two in one)
+            if m > _MAX_BUCKETS:  # knots too unevenly spaced for buckets: numpy.interp reads this table always
+                self._near = np.inf
+                return
             self._a = m / span
             self._c = 1.5 - float(xp[0]) * self._a  # the first knot in bucket 1 (not at an edge); bucket 0 lies below
             bucket = self._bucket(xp)
@@ -119,7 +125,6 @@ class _Knots:
         self._lower = np.searchsorted(bucket, np.arange(self._top + 1), side="left").astype(np.intp)
         self._next = np.concatenate([xp, [np.inf]])  # the knot after J, i.e. xp[J]
         self._knot = np.concatenate([[xp[0]], xp, [xp[-1]]])  # xp[J - 1], finite at the ends
-        self._near = _NEAR_KNOTS * span / (n - 1)
 
     def _bucket(self, x: NDArray[np.float64]) -> NDArray[np.intp]:
         with np.errstate(invalid="ignore"):  # NaN and inf cast to some integer; the clip and the value keep them NaN
@@ -133,7 +138,7 @@ class _Knots:
         arguments in order (readings in time order) it hardly searches and beats the
         buckets' passes over the arrays; judged from a sample of neighbouring pairs.
         """
-        if x.size < _SEARCH_BELOW:
+        if x.size < _SEARCH_BELOW or self._near == np.inf:
             return True
         every = max(1, x.size // _SAMPLE_PAIRS)
         with np.errstate(invalid="ignore"):

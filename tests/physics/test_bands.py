@@ -178,3 +178,13 @@ def test_property_bucket_lookup_is_numpy_interp(edges: tuple[float, float], whic
     y = np.array(x + odd, dtype=float)
     got = knots.value(knots.place(y), *knots.slopes(fp))
     np.testing.assert_array_equal(got, np.interp(y, xp, fp, left=np.nan, right=np.nan))
+
+
+def test_knots_too_uneven_for_buckets_are_read_by_numpy_interp() -> None:
+    # two knots 1e-9 apart over a span of 1 would need 10^9 buckets: numpy.interp reads such a table instead
+    xp = np.array([0.0, 0.5, 0.5 + 1e-9, 1.0])
+    knots = _Knots(xp)
+    x = np.random.default_rng(5).uniform(-0.1, 1.1, 5000)
+    assert knots.searched(x)
+    fp = np.array([0.0, 1.0, 2.0, 4.0])
+    np.testing.assert_array_equal(knots.interp(x, knots.slopes(fp))[0], np.interp(x, xp, fp, left=np.nan, right=np.nan))
