@@ -12,7 +12,7 @@ Issue 12: the Monte Carlo propagation at 10^4 draws under 50 ms per reading,
 against first-order propagation over the same 10^4 values as a baseline.
 Issue 15: the uncertainty path (with and without the linearity check) at most
 4 x one numpy.interp; also shown with the tables read by numpy.interp's own
-search (the way before issue 15) and for time-ordered readings, where
+search (the lookups before issue 15) and for time-ordered readings, where
 numpy.interp's guess from the previous reading spares most of its search.
 """
 
@@ -88,11 +88,12 @@ def main() -> None:
     correct_ratio(indicated[:10], r1, r2, 1.0)
     t_unc, t_unc_lin, t_ratio = uncertainty_times(indicated)
     search_below = bands._SEARCH_BELOW
-    bands._SEARCH_BELOW = args.readings + 1  # every table read by numpy.interp's own search, as before issue 15
+    bands._SEARCH_BELOW = args.readings + 1  # every table read by numpy.interp's own search (the lookups before issue 15)
     t_unc_np, t_unc_lin_np, t_ratio_np = uncertainty_times(indicated)
     bands._SEARCH_BELOW = search_below
     ordered = np.sort(indicated)  # a firing's readings in time order
-    t_ord_interp = best_of(lambda: np.interp(np.sort(xs), log_s, log_t))
+    xs_ordered = np.sort(xs)
+    t_ord_interp = best_of(lambda: np.interp(xs_ordered, log_s, log_t))
     t_unc_ord, t_unc_lin_ord, t_ratio_ord = uncertainty_times(ordered)
 
     sample = indicated[: args.naive_sample]
