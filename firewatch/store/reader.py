@@ -5,8 +5,8 @@ from __future__ import annotations
 import contextlib
 import json
 import sqlite3
-from contextlib import AbstractContextManager
 from collections.abc import Iterable, Iterator
+from contextlib import AbstractContextManager
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -14,9 +14,9 @@ from typing import Any
 import numpy as np
 
 from firewatch.firing.pipeline import ChannelInfo
+from firewatch.store._common import SCHEMA_VERSION, STORAGE_CODES, LogDamaged, LogError, LogUnavailable, _connect, log_error, sqlite_code
 from firewatch.store.layout import MEASURED_KINDS, RAW_BLOCK_LINES, STEP_KIND, column, is_compact, unpack_raw
 from firewatch.transport.records import Status
-from firewatch.store._common import SCHEMA_VERSION, STORAGE_CODES, LogDamaged, LogError, LogUnavailable, _connect, log_error, sqlite_code
 
 __all__ = ["Block", "Series", "LogReader", "open_reader"]
 

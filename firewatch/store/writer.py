@@ -51,7 +51,6 @@ import numpy as np
 from firewatch import __version__
 from firewatch.firing.pipeline import Batch, ChannelInfo
 from firewatch.settings.timefmt import duration
-from firewatch.store.layout import MEASURED_KINDS, RAW_BLOCK_LINES, STEP_KIND, STEP_S, column, is_compact, pack_raw, status_runs, write_views
 from firewatch.store._common import (
     SCHEMA_VERSION,
     STORAGE_CODES,
@@ -62,6 +61,7 @@ from firewatch.store._common import (
     schema_sql,
     sqlite_code,
 )
+from firewatch.store.layout import MEASURED_KINDS, RAW_BLOCK_LINES, STEP_KIND, STEP_S, column, is_compact, pack_raw, status_runs, write_views
 
 __all__ = [
     "LogWriter", "BriefWrite", "take_lock", "release_lock", "BRIEF_HOLDER", "BRIEF_WAIT_S", "Outage", "HOLD_S", "HOLD_RATE_HZ",

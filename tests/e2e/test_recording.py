@@ -13,7 +13,7 @@ import pytest
 from firewatch.store.reader import LogReader
 from firewatch.transport.native import encode
 from firewatch.transport.records import Value
-from tests.e2e.helpers import firewatch, free_port, inspect, run, samples, start_sim_tcp, stop, wait_for
+from tests.e2e.helpers import RAW_BAD, RAW_LINES, firewatch, free_port, inspect, run, samples, start_sim_tcp, stop, wait_for
 from tests.e2e.kills import CHANNEL, LOSS_LIMIT_S, LineServer, campaign
 
 
@@ -190,7 +190,7 @@ def test_garbage_lines_are_all_counted(tmp_path: Path) -> None:
     assert rec.returncode == 0, rec.stderr
     con = sqlite3.connect(log)
     raw, bad, good, events = con.execute(
-        "SELECT (SELECT count(*) FROM raw_line), (SELECT count(*) FROM raw_line WHERE ok = 0), "
+        f"SELECT {RAW_LINES}, {RAW_BAD}, "
         "(SELECT count(*) FROM sample), (SELECT count(*) FROM event WHERE kind = 'malformed')"
     ).fetchone()
     assert bad > 50 and raw == bad + good and events == bad

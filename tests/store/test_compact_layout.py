@@ -22,7 +22,6 @@ from firewatch.simulator.scenario import load_scenario, parse_fault
 from firewatch.store.layout import RAW_BLOCK_LINES, STEP_S, pack_raw, unpack_raw
 from firewatch.store.reader import LogReader
 from firewatch.store.record import load_record
-from firewatch.store.upgrade import upgrade_log
 from firewatch.store.view import FiringView
 from firewatch.store.writer import LogWriter
 from firewatch.transport.native import NativeParser

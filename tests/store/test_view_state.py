@@ -19,7 +19,6 @@ from firewatch.store.view import (
     RECORDER_STOPPED,
     FiringView,
 )
-from firewatch.store.writer import LogWriter
 from tests.store.conftest import T0, Bench, Clock
 
 
