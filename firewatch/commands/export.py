@@ -63,7 +63,7 @@ def export_csv(reader, out) -> int:
             continue
         derived = derived_block(reader, a, b)
         n = block.ids.size
-        columns: list[list[str]] = [[iso(t) for t in block.t.tolist()]]
+        columns: list[list[str]] = [[iso(t) or "" for t in block.t.tolist()]]
         columns.append(["" if start is None else f"{x:.3f}" for x in (block.t - (start or 0.0)).tolist()])
         flags = [""] * n
         for cid, name, _, _ in channels:

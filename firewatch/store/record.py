@@ -92,7 +92,7 @@ def _read_record(reader: LogReader, site: SiteProfile | None, schedule: Schedule
         lo, hi = span
         parts = [reader.block(a, min(a + CHUNK - 1, hi)) for a in range(lo, hi + 1, CHUNK)]
         times = np.concatenate([p.t for p in parts])
-        ids = np.concatenate([p.ids for p in parts])
+        sample_ids = np.concatenate([p.ids for p in parts])
         for name in measured:
             values[name] = np.concatenate([p.values[name] for p in parts])
             status = np.concatenate([p.status[name] for p in parts])
@@ -106,7 +106,7 @@ def _read_record(reader: LogReader, site: SiteProfile | None, schedule: Schedule
             values.update({n: got.values[n] for n in wanted if n in got.values})
         for name in derived:
             if name in other and other[name][1] == STEP_KIND:
-                values[name] = _steps_filled(reader, other[name][0], ids, fill=name == "plan.segment")
+                values[name] = _steps_filled(reader, other[name][0], sample_ids, fill=name == "plan.segment")
     envelopes: dict[str, tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
     reference = site.reference.name if site is not None and site.reference is not None else None
     for name in ([reference] if reference is not None else []) + [f"{py.name}.reconciled" for py in (site.pyrometers if site is not None else ())]:
