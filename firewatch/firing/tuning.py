@@ -84,8 +84,9 @@ TOP_HOLD_BAND_C = 15.0
 """A hold within this of the firing's highest reference temperature is the hold at the top."""
 RAMP_PIECE_C = 100.0
 """A slow ramp is listed in pieces spanning at most this much of the reference's temperature."""
-READ_WINDOW_S = 4 * 3600.0
-"""The log is read this much of the firing at a time (issue 15), so that what tuning holds is what it keeps."""
+READ_WINDOW_S = 6 * 3600.0
+"""The log is read this much of the firing at a time (issue 15), so that what tuning holds is what it keeps: at
+1 Hz a window's read holds a few MB for a moment; shorter windows mean more queries for the same rows."""
 FIT_POINTS = 10_000
 """The ware's fit uses at most this many valid readings, evenly spaced (neighbours a second apart add nothing
 independent; the interval counts ten-minute blocks either way)."""
