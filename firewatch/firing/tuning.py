@@ -256,15 +256,17 @@ def load_data(reader: FiringSource, site: SiteProfile, channel: str | None = Non
         lo, hi = first_ok - site.alarms.rate_window_s, last_ok
     else:
         lo, hi = start, last_t
+    # a pyrometer that never read leaves no stretch to keep: the reference is still read, for its own refusals
+    keep = not math.isnan(first_ok)
     # at most this many aligned readings: the pyrometer's in the first pass's windows that meet the span
-    room = sum(n for a, b, n in counts if (a is None or a <= hi) and (b is None or b >= lo))
+    room = sum(n for a, b, n in counts if (a is None or a <= hi) and (b is None or b >= lo)) if keep else 0
     buf = _Buffers(room, background=isinstance(py.background, (str, float)))
     faults = [(alarm["raised_t"], alarm["cleared_t"] if alarm["cleared_t"] is not None else math.inf)
               for alarm in reader.alarms() if alarm["kind"] == "sensor-fault" and alarm["channel"] in (py.name, tc.name)]
     # the reference's rate as the recorder computes it (the same trailing slope over the site's window),
     # from the readings already read rather than another series from the log
     slope = TrailingSlope(site.alarms.rate_window_s)
-    any_ref = False
+    any_ref = any_ok_ref = False
     # pass 2: the pyrometer, its reference and its background over the span, a window at a time
     for a, b, closed in _windows(lo, hi, lo, hi, window_s):
         ind_t, ind_v, ind_s = _read(reader, py.name, a, b, closed)
@@ -290,11 +292,13 @@ def load_data(reader: FiringSource, site: SiteProfile, channel: str | None = Non
         faulted = np.zeros(n, dtype=bool)
         for raised, cleared in faults:
             faulted |= (t >= raised) & (t <= cleared)
-        buf.add(t, ind_value, ref_value, background, rate, ok_py, ok_ref, slow, faulted)
+        any_ok_ref = any_ok_ref or bool(ok_ref.any())
+        if keep:
+            buf.add(t, ind_value, ref_value, background, rate, ok_py, ok_ref, slow, faulted)
     if not any_ref:
         raise TuneError(f"the log holds no readings of the reference thermocouple {tc.name} while {py.name} read")
     t, ind_value, ref_value, background, rate_c_per_h, ok_py, ok_ref, slow, faulted = buf.arrays()
-    if not ok_ref.any():
+    if not any_ok_ref:
         raise TuneError(f"the reference thermocouple {tc.name} gave no reading while {py.name} read, so no stretch is usable")
     valid = ok_ref & ok_py & slow & ~faulted
     for a_, b_ in _runs(valid):  # a stretch shorter than two minutes is noise at a threshold, not a hold

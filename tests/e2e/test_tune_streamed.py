@@ -11,7 +11,7 @@ from typing import Any
 import numpy as np
 import pytest
 
-from firewatch.firing.tuning import READ_WINDOW_S, TuneData, TuneResult, load_data, tune
+from firewatch.firing.tuning import READ_WINDOW_S, TuneData, TuneError, TuneResult, load_data, tune
 from firewatch.services.replay import profiles_from_log
 from firewatch.simulator import serve
 from firewatch.simulator.run import Simulation
@@ -126,3 +126,20 @@ def test_a_wrong_firing_record_changes_only_the_windows(logs: dict[str, Path], t
         con.execute("UPDATE firing SET started_t = ?, ended_t = ?", values)
     con.close()
     _assert_same(_both(logs["closed-kiln"], math.inf)[:2], _both(log, WINDOW_S)[:2])
+
+
+def test_a_pyrometer_that_never_read_is_refused_alike_and_nothing_is_kept(tmp_path: Path) -> None:
+    # issue 15: a firing that never reaches the pyrometer's range keeps no readings, and says what it said before
+    log = tmp_path / "cold.db"
+    serve.to_log(Simulation(load_scenario("closed-kiln").with_changes(duration_s=200 * 60.0)), log)
+    refusals = []
+    for window_s in (math.inf, WINDOW_S):
+        with LogReader(log) as r:
+            site, _ = profiles_from_log(r)
+            data = load_data(r, site, window_s=window_s)
+        with pytest.raises(TuneError) as refused:
+            tune(data)
+        refusals.append(str(refused.value))
+        kept = data.t.size
+    assert "never read in its range" in refusals[0] and refusals[0] == refusals[1]
+    assert kept == 0
