@@ -93,23 +93,21 @@ def bench(name: str, log: Path) -> None:
 IMPORTS = ("import numpy, scipy.optimize\n"
            "import firewatch.commands.tune, firewatch.firing.tuning, firewatch.services.replay, firewatch.store.reader\n")
 
-# The bare-sqlite3 baseline: the three channels' rows read whole into numpy arrays, the least a whole-series read
-# holds. It has to know the log's layout; the query is for schema 2's reading table, and a log without one says so.
+# The bare-sqlite3 baseline: the three channels' values and the sample times read whole into numpy arrays, the least
+# a whole-series read holds. It knows the compact layout (schema 3): a measured channel is the column m<id> of sample.
 BARE = IMPORTS + """
 import sqlite3, sys
 import numpy as np
 con = sqlite3.connect(f"file:{sys.argv[1]}?mode=ro", uri=True)
-if not con.execute("SELECT 1 FROM sqlite_master WHERE name = 'reading'").fetchone():
+if con.execute("SELECT type FROM sqlite_master WHERE name = 'reading'").fetchone() == ("table",):
     sys.exit(3)
-held = []
-for name in ("py1", "tc2", "tc1"):
-    cur = con.execute("SELECT r.t, r.value, r.status FROM reading r JOIN channel c ON c.id = r.channel_id "
-                      "WHERE c.name = ? ORDER BY r.sample_id", (name,))
-    parts = []
-    while rows := cur.fetchmany(50_000):
-        parts.append(np.array([(t, np.nan if v is None else v, s) for t, v, s in rows], dtype=float))
-    held.append(np.concatenate(parts))
-print(sum(h.shape[0] for h in held))
+cols = ", ".join("m%d" % con.execute("SELECT id FROM channel WHERE name = ?", (name,)).fetchone()[0] for name in ("py1", "tc2", "tc1"))
+cur = con.execute(f"SELECT t, {cols} FROM sample ORDER BY id")
+parts = []
+while rows := cur.fetchmany(50_000):
+    parts.append(np.array(rows, dtype=float))
+held = np.concatenate(parts)
+print(held.shape[0])
 """
 
 # the command itself, with each series read whole (one window), as before issue 15
@@ -142,7 +140,7 @@ def peak_mb(argv: list[str]) -> tuple[float, float]:
 
 def firing_log(minutes: int) -> Path:
     """The demo firing recorded for ``minutes``, made once and kept in the temporary directory."""
-    cache = Path(tempfile.gettempdir()) / "firewatch-bench-tune"
+    cache = Path(tempfile.gettempdir()) / "firewatch-bench-tune-v3"  # logs of the compact layout
     cache.mkdir(exist_ok=True)
     log, done = cache / f"demo-{minutes}min.db", cache / f"demo-{minutes}min.done"
     if not done.exists():  # a run stopped half-way leaves no .done: make it again
@@ -168,7 +166,7 @@ def memory() -> None:
         print(f"{minutes / 1440:g}-day demo firing ({log.stat().st_size / 1e6:.0f} MB log):")
         print(f"  imports alone (baseline):                 {base:6.1f} MB")
         if math.isnan(bare):
-            print("  bare sqlite3, the channels whole:         not measured (the log has no reading table: a new layout)")
+            print("  bare sqlite3, the channels whole:         not measured (a log of the earlier layout)")
         else:
             print(f"  bare sqlite3, the channels whole:         {bare:6.1f} MB  (+{bare - base:.1f} over the imports; {t_bare:.1f} s)")
         print(f"  tune reading each series whole (before):  {whole:6.1f} MB  (+{whole - base:.1f}; {t_whole:.1f} s)")
