@@ -95,7 +95,7 @@ def main() -> None:
         every.update({n: (derived.values[n], derived.status[n]) for n in derived.values})
         for name, (cid, kind) in reader._channels()[1].items():
             if kind == "progress":
-                steps = np.array(con.execute("SELECT sample_id, value FROM step WHERE channel_id = ? ORDER BY sample_id", (cid,)).fetchall(), dtype=float)
+                steps = np.array(con.execute(f"SELECT sample_id, p{cid} FROM step ORDER BY sample_id").fetchall(), dtype=float)
                 idx = np.searchsorted(steps[:, 0], block.ids, side="right") - 1
                 v = np.where(idx >= 0, steps[np.maximum(idx, 0), 1], np.nan)
                 every[name] = (v, np.where(np.isnan(v), 6, 0))

@@ -15,6 +15,7 @@ from firewatch.store.reader import LogReader
 from firewatch.store.writer import LogWriter
 from firewatch.transport.native import crc16
 from firewatch.transport.ports import PortEvent
+from tests.e2e.helpers import RAW_LINES, raw
 
 SITE = load_site()
 SCHEDULE = load_schedule(profiles_dir() / "demo-glaze.toml")
@@ -52,7 +53,7 @@ def test_sequence_number_beyond_sqlite_is_a_malformed_line(tmp_path: Path) -> No
     writer.close()
     assert ingest.malformed == 2 and ingest.failed_batches == 0
     assert rows(log, "SELECT count(*) FROM sample") == [(8,)]
-    reasons = [r[0] for r in rows(log, "SELECT reason FROM raw_line WHERE ok = 0")]
+    reasons = [r[2] for r in raw(log) if not r[1]]
     assert len(reasons) == 2 and all("bad sequence number" in r for r in reasons)
     assert rows(log, "SELECT count(*) FROM event WHERE kind = 'malformed'") == [(2,)]
 
@@ -100,7 +101,7 @@ def test_the_same_failure_is_reported_once_a_minute(tmp_path: Path) -> None:
     details = [r[0] for r in rows(log, "SELECT detail FROM event WHERE kind = 'error' ORDER BY id")]
     assert ingest.failed_batches == 10 and len(details) == 2
     assert "5 more failed batches since the last report" in details[1]
-    assert rows(log, "SELECT count(*) FROM raw_line") == [(100,)]
+    assert rows(log, f"SELECT {RAW_LINES}") == [(100,)]
 
 
 def test_database_errors_roll_the_batch_back_and_go_to_the_caller(tmp_path: Path) -> None:
@@ -116,7 +117,7 @@ def test_database_errors_roll_the_batch_back_and_go_to_the_caller(tmp_path: Path
     with pytest.raises(sqlite3.OperationalError):
         ingest.feed([(T0 + i, line(i, T0 + i)) for i in range(10, 20)])
     writer.close()
-    assert rows(log, "SELECT count(*) FROM raw_line") == [(10,)]
+    assert rows(log, f"SELECT {RAW_LINES}") == [(10,)]
 
 
 def test_flush_writes_the_lines_held_at_a_stop(tmp_path: Path) -> None:
@@ -126,8 +127,8 @@ def test_flush_writes_the_lines_held_at_a_stop(tmp_path: Path) -> None:
     assert len(ingest.pipeline.held_raw()) == 1  # the jump waits for the lines after it
     ingest.flush()
     writer.close()
-    raw = rows(log, "SELECT ok, reason FROM raw_line ORDER BY id")
-    assert len(raw) == 11 and raw[-1][0] == 0 and "not confirmed" in raw[-1][1]
+    raw_rows = [(r[1], r[2]) for r in raw(log)]
+    assert len(raw_rows) == 11 and raw_rows[-1][0] == 0 and "not confirmed" in raw_rows[-1][1]
     assert ingest.malformed == 1
 
 

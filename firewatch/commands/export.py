@@ -43,7 +43,7 @@ def export_csv(reader, out) -> int:
     import numpy as np
 
     from firewatch.store.derive import derived_block
-    from firewatch.store.layout import STEP_KIND
+    from firewatch.store.layout import STEP_KIND, step_column
     from firewatch.transport.records import Status
 
     channels = reader.query("SELECT id, name, unit, kind FROM channel ORDER BY id")
@@ -75,8 +75,8 @@ def export_csv(reader, out) -> int:
                     flags[i] = f"{flags[i]} {name}:{words.get(st, st)}" if flags[i] else f"{name}:{words.get(st, st)}"
             elif other[name][1] == STEP_KIND:
                 col = np.full(n, np.nan)
-                got = reader.query("SELECT sample_id, value FROM step WHERE channel_id = ? AND sample_id BETWEEN ? AND ? AND value IS NOT NULL",
-                                   (cid, a, b))
+                col_name = step_column(cid)
+                got = reader.query(f"SELECT sample_id, {col_name} FROM step WHERE sample_id BETWEEN ? AND ? AND {col_name} IS NOT NULL", (a, b))
                 if got:
                     arr = np.array(got, dtype=float)
                     col[np.searchsorted(block.ids, arr[:, 0].astype(np.int64))] = arr[:, 1]

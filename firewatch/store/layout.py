@@ -27,7 +27,7 @@ from collections.abc import Iterable
 import numpy as np
 
 __all__ = [
-    "COMPACT_VERSION", "MEASURED_KINDS", "STEP_KIND", "STEP_S", "RAW_BLOCK_LINES", "is_compact", "column", "write_views",
+    "COMPACT_VERSION", "MEASURED_KINDS", "STEP_KIND", "STEP_S", "RAW_BLOCK_LINES", "is_compact", "column", "step_column", "write_views",
     "pack_raw", "unpack_raw", "status_runs",
 ]
 
@@ -56,6 +56,11 @@ def column(channel_id: int) -> str:
     return f"m{int(channel_id)}"
 
 
+def step_column(channel_id: int) -> str:
+    """The ``step`` column holding a progress channel's values (NULL: not placed in the schedule, status missing)."""
+    return f"p{int(channel_id)}"
+
+
 def write_views(con: sqlite3.Connection) -> None:
     """(Re)write the views ``reading`` and ``readings`` from the channel table (inside the caller's transaction).
 
@@ -70,7 +75,10 @@ def write_views(con: sqlite3.Connection) -> None:
             f"coalesce((SELECT f.status FROM flag f WHERE f.channel_id = {cid} AND f.first_id <= s.id AND f.last_id >= s.id "
             f"ORDER BY f.first_id DESC LIMIT 1), 0) AS status FROM sample s WHERE s.id >= {int(first)}"
         )
-    arms.append("SELECT p.channel_id, p.sample_id, s.t, p.value, p.status FROM step p JOIN sample s ON s.id = p.sample_id")
+    for (cid,) in con.execute("SELECT id FROM channel WHERE kind = ? ORDER BY id", (STEP_KIND,)):
+        col = step_column(cid)
+        arms.append(f"SELECT {cid}, p.sample_id, s.t, p.{col}, CASE WHEN p.{col} IS NULL THEN 6 ELSE 0 END "
+                    f"FROM step p JOIN sample s ON s.id = p.sample_id")
     con.execute("DROP VIEW IF EXISTS main.readings")
     con.execute("DROP VIEW IF EXISTS main.reading")
     con.execute("CREATE VIEW main.reading AS\n    " + "\n    UNION ALL ".join(arms))

@@ -15,7 +15,7 @@ import numpy as np
 
 from firewatch.firing.pipeline import ChannelInfo
 from firewatch.store._common import SCHEMA_VERSION, STORAGE_CODES, LogDamaged, LogError, LogUnavailable, _connect, log_error, sqlite_code
-from firewatch.store.layout import MEASURED_KINDS, RAW_BLOCK_LINES, STEP_KIND, column, is_compact, unpack_raw
+from firewatch.store.layout import MEASURED_KINDS, RAW_BLOCK_LINES, STEP_KIND, column, is_compact, step_column, unpack_raw
 from firewatch.transport.records import Status
 
 __all__ = ["Block", "Series", "LogReader", "open_reader"]
@@ -269,10 +269,11 @@ class LogReader:
             return Series(*(np.concatenate([o[i] for o in out]) for i in range(3)))
         cid, kind = other[channel]
         if kind == STEP_KIND:
-            rows = self.query("SELECT s.t, p.value, p.status FROM step p JOIN sample s ON s.id = p.sample_id "
-                              "WHERE p.channel_id = ? AND p.sample_id BETWEEN ? AND ? ORDER BY p.sample_id", (cid, lo, hi))
-            arr = np.array(rows, dtype=float).reshape(len(rows), 3)
-            return Series(arr[:, 0].copy(), arr[:, 1].copy(), arr[:, 2].astype(np.int64))
+            col = step_column(cid)
+            rows = self.query(f"SELECT s.t, p.{col} FROM step p JOIN sample s ON s.id = p.sample_id "
+                              "WHERE p.sample_id BETWEEN ? AND ? ORDER BY p.sample_id", (lo, hi))
+            arr = np.array(rows, dtype=float).reshape(len(rows), 2)  # NULL becomes NaN: not placed, status missing
+            return Series(arr[:, 0].copy(), arr[:, 1].copy(), np.where(np.isnan(arr[:, 1]), int(Status.MISSING), int(Status.OK)))
         from firewatch.store.derive import derived_series
 
         return derived_series(self, channel, lo, hi)

@@ -25,7 +25,7 @@ from firewatch.settings.profile import SiteProfile, load_site
 from firewatch.settings.schedule import Schedule, load_schedule
 from firewatch.store._common import log_error
 from firewatch.store.derive import CHUNK, derived_block
-from firewatch.store.layout import STEP_KIND
+from firewatch.store.layout import STEP_KIND, step_column
 from firewatch.store.reader import LogReader
 
 __all__ = ["load_record", "profiles_from_log", "read_record"]
@@ -152,7 +152,7 @@ def _read_record(reader: LogReader, site: SiteProfile | None, schedule: Schedule
 def _steps_filled(reader: LogReader, cid: int, ids: np.ndarray, fill: bool) -> np.ndarray:
     """A progress channel kept at the step rate, aligned with the samples ``ids``: NaN between its steps, or with
     ``fill`` each step's value carried to the samples up to the next (a segment number)."""
-    rows = reader.query("SELECT sample_id, value FROM step WHERE channel_id = ? ORDER BY sample_id", (cid,))
+    rows = reader.query(f"SELECT sample_id, {step_column(cid)} FROM step ORDER BY sample_id")
     out = np.full(ids.size, np.nan)
     if not rows:
         return out

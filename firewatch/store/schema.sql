@@ -71,12 +71,8 @@ CREATE TABLE flag(
     PRIMARY KEY (channel_id, first_id)
 ) WITHOUT ROWID;
 CREATE TABLE step(
-    channel_id INTEGER NOT NULL,
-    sample_id INTEGER NOT NULL,
-    value REAL,
-    status INTEGER NOT NULL,
-    PRIMARY KEY (channel_id, sample_id)
-) WITHOUT ROWID;
+    sample_id INTEGER PRIMARY KEY
+);
 CREATE TABLE latest(
     channel_id INTEGER PRIMARY KEY,
     sample_id INTEGER NOT NULL,
@@ -119,10 +115,10 @@ CREATE TABLE alarm_state(
 );
 CREATE INDEX alarm_state_alarm ON alarm_state(alarm_id);
 CREATE TABLE trend_minute(
-    channel_id INTEGER NOT NULL,
     minute INTEGER NOT NULL,
+    channel_id INTEGER NOT NULL,
     lo REAL NOT NULL,
     hi REAL NOT NULL,
     n INTEGER NOT NULL,
-    PRIMARY KEY (channel_id, minute)
+    PRIMARY KEY (minute, channel_id)
 ) WITHOUT ROWID;

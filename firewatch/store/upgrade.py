@@ -18,7 +18,7 @@ import numpy as np
 
 from firewatch import __version__
 from firewatch.store._common import SCHEMA_VERSION, LogError, schema_sql
-from firewatch.store.layout import MEASURED_KINDS, RAW_BLOCK_LINES, STEP_KIND, STEP_S, column, is_compact, pack_raw, status_runs, write_views
+from firewatch.store.layout import MEASURED_KINDS, RAW_BLOCK_LINES, STEP_KIND, STEP_S, column, is_compact, pack_raw, status_runs, step_column, write_views
 
 __all__ = ["upgrade_log", "needs_upgrade", "upgraded_copy", "CHUNK"]
 
@@ -113,6 +113,7 @@ def _convert(src: sqlite3.Connection, dst: sqlite3.Connection, version: int) -> 
             derived.append(cid)
             if kind == STEP_KIND:
                 progress.add(cid)
+                dst.execute(f"ALTER TABLE step ADD COLUMN {step_column(cid)} REAL")
     write_views(dst)
 
     samples = 0
@@ -147,14 +148,17 @@ def _convert(src: sqlite3.Connection, dst: sqlite3.Connection, version: int) -> 
         slots = np.floor(times / STEP_S)
         steps = set(ids[slots != np.concatenate([[last_slot], slots[:-1]])].tolist())
         last_slot = float(slots[-1])
+        wide: dict[int, dict[int, float | None]] = {sid: {} for sid in sorted(steps)}
         for cid in derived:
-            keep = []
             for sid, t, value, st in src.execute("SELECT sample_id, t, value, status FROM reading WHERE channel_id = ? AND sample_id BETWEEN ? AND ?",
                                                  (cid, lo, hi)):
-                if sid in steps and cid in progress:
-                    keep.append((cid, sid, value, st))
+                if cid in progress and sid in wide:
+                    wide[sid][cid] = value
                 latest[cid] = (sid, t, value, st)
-            dst.executemany("INSERT INTO step(channel_id, sample_id, value, status) VALUES (?, ?, ?, ?)", keep)
+        order = sorted(progress)
+        if order:
+            dst.executemany(f"INSERT INTO step(sample_id{''.join(', ' + step_column(c) for c in order)}) VALUES (?{', ?' * len(order)})",
+                            [(sid, *(row.get(c) for c in order)) for sid, row in wide.items()])
         samples += ids.size
     for cid, (a, b, st) in open_runs.items():
         dst.execute("INSERT INTO flag(channel_id, first_id, last_id, status) VALUES (?, ?, ?, ?)", (cid, a, b, st))
@@ -180,7 +184,8 @@ def _convert(src: sqlite3.Connection, dst: sqlite3.Connection, version: int) -> 
     for table, cols in (("event", "id, t, kind, channel, detail"), ("gap", "id, start_t, end_t, reason"),
                         ("alarm", "id, kind, channel, cause, priority, raised_t, cleared_t, state, message, evidence"),
                         ("alarm_state", "id, alarm_id, t, state, detail"), ("trend_minute", "channel_id, minute, lo, hi, n")):
-        rows = src.execute(f"SELECT {cols} FROM {table}").fetchall()
+        order = " ORDER BY minute, channel_id" if table == "trend_minute" else " ORDER BY 1"
+        rows = src.execute(f"SELECT {cols} FROM {table}{order}").fetchall()
         dst.executemany(f"INSERT INTO {table}({cols}) VALUES ({', '.join('?' * len(cols.split(',')))})", rows)
     alarms = dst.execute("SELECT count(*) FROM alarm").fetchone()[0]
     return {"samples": samples, "lines": lines, "alarms": int(alarms)}

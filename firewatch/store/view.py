@@ -34,7 +34,7 @@ from firewatch.settings._tomlcheck import ProfileError
 from firewatch.settings.profile import AlarmSettings, SiteProfile, load_site
 from firewatch.settings.schedule import Schedule, load_schedule
 from firewatch.store.derive import DerivedBlock, derived_block
-from firewatch.store.layout import STEP_KIND, column
+from firewatch.store.layout import STEP_KIND, column, step_column
 from firewatch.store.reader import LogReader
 from firewatch.transport.records import Status
 
@@ -341,14 +341,16 @@ class FiringView:
         derived = self._derived(sid, sid)
         for name, values in derived.values.items():
             out[name] = (t, float(values[0]), int(derived.status[name][0]))
-        for name, (cid, kind) in reader._channels()[1].items():
-            if kind != STEP_KIND:
-                continue
-            row = reader.query("SELECT s.t, p.value, p.status FROM step p JOIN sample s ON s.id = p.sample_id "
-                               "WHERE p.channel_id = ? AND p.sample_id <= ? ORDER BY p.sample_id DESC LIMIT 1", (cid, sid))
+        progress = [(name, cid) for name, (cid, kind) in reader._channels()[1].items() if kind == STEP_KIND]
+        if progress:
+            cols = ", ".join(f"p.{step_column(cid)}" for _, cid in progress)
+            row = reader.query(f"SELECT s.t, {cols} FROM step p JOIN sample s ON s.id = p.sample_id "
+                               "WHERE p.sample_id <= ? ORDER BY p.sample_id DESC LIMIT 1", (sid,))
             if row:
-                rt, value, status = row[0]
-                out[name] = (float(rt), math.nan if value is None else float(value), int(status))
+                rt = float(row[0][0])
+                for (name, _), value in zip(progress, row[0][1:]):
+                    missing = value is None  # not placed in the schedule
+                    out[name] = (rt, math.nan if missing else float(value), int(Status.MISSING) if missing else int(Status.OK))
         return out
 
     def _events(self, where: str, params: tuple[Any, ...], limit: int) -> list[dict[str, Any]]:
@@ -451,10 +453,11 @@ class FiringView:
                 (t0, width, lo_id, hi_id),
             )
         elif other[name][1] == STEP_KIND:
+            col = f"p.{step_column(cid)}"
             rows = self.reader.query(
-                "SELECT CAST((s.t - ?) / ? AS INTEGER) AS b, avg(s.t), min(p.value), max(p.value) FROM step p JOIN sample s ON s.id = p.sample_id "
-                "WHERE p.channel_id = ? AND p.sample_id BETWEEN ? AND ? AND p.value IS NOT NULL GROUP BY b ORDER BY b",
-                (t0, width, cid, lo_id, hi_id),
+                f"SELECT CAST((s.t - ?) / ? AS INTEGER) AS b, avg(s.t), min({col}), max({col}) FROM step p JOIN sample s ON s.id = p.sample_id "
+                f"WHERE p.sample_id BETWEEN ? AND ? AND {col} IS NOT NULL GROUP BY b ORDER BY b",
+                (t0, width, lo_id, hi_id),
             )
         elif hi_id - lo_id >= _DERIVED_CACHE:  # too many to recompute for a chart: the per-minute envelope
             rows = self.reader.query(

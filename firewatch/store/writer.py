@@ -61,7 +61,7 @@ from firewatch.store._common import (
     schema_sql,
     sqlite_code,
 )
-from firewatch.store.layout import MEASURED_KINDS, RAW_BLOCK_LINES, STEP_KIND, STEP_S, column, is_compact, pack_raw, status_runs, write_views
+from firewatch.store.layout import MEASURED_KINDS, RAW_BLOCK_LINES, STEP_KIND, STEP_S, column, is_compact, pack_raw, status_runs, step_column, write_views
 
 __all__ = [
     "LogWriter", "BriefWrite", "take_lock", "release_lock", "BRIEF_HOLDER", "BRIEF_WAIT_S", "Outage", "HOLD_S", "HOLD_RATE_HZ",
@@ -444,6 +444,9 @@ class LogWriter:
                     # a column of its own: ALTER TABLE ADD COLUMN changes the schema only, never rewrites the rows
                     self.con.execute(f"ALTER TABLE sample ADD COLUMN {column(cid)} REAL")
                     added = True
+                elif ch.kind == STEP_KIND:
+                    self.con.execute(f"ALTER TABLE step ADD COLUMN {step_column(cid)} REAL")
+                    added = True
         if added or new:
             write_views(self.con)
         self._measured = {name: cid for name, cid in self._channel_ids.items() if kinds[name] in MEASURED_KINDS}
@@ -513,11 +516,12 @@ class LogWriter:
             for name, cid in measured:
                 self._insert_flags(cid, first_sample, batch.status[name])
             derived = [(name, cid) for name, cid in self._derived.items() if name in batch.values]
-            if op.steps:
+            progress = [(name, cid) for name, cid in derived if name in self._progress]
+            if op.steps and progress:
+                names = "".join(f", {step_column(cid)}" for _, cid in progress)
                 con.executemany(
-                    "INSERT INTO step(channel_id, sample_id, value, status) VALUES (?, ?, ?, ?)",
-                    [(cid, first_sample + i, _real(batch.values[name][i]), int(batch.status[name][i]))
-                     for name, cid in derived if name in self._progress for i in op.steps],
+                    f"INSERT INTO step(sample_id{names}) VALUES (?{', ?' * len(progress)})",
+                    [(first_sample + i, *(_real(batch.values[name][i]) for name, _ in progress)) for i in op.steps],
                 )
             last = first_sample + n - 1
             con.executemany(
@@ -580,9 +584,10 @@ class LogWriter:
             hi = np.maximum.reduceat(np.where(ok, values, -np.inf), starts)
             n = np.add.reduceat(ok.astype(np.int64), starts)
             rows.extend((cid, k, float(a), float(b), int(c)) for k, a, b, c in zip(keys, lo, hi, n) if c > 0)
+        rows.sort(key=lambda r: (r[1], r[0]))  # in key order: a minute's rows append, pages fill
         self.con.executemany(
             "INSERT INTO trend_minute(channel_id, minute, lo, hi, n) VALUES (?, ?, ?, ?, ?) "
-            "ON CONFLICT(channel_id, minute) DO UPDATE SET lo = min(lo, excluded.lo), hi = max(hi, excluded.hi), n = n + excluded.n",
+            "ON CONFLICT(minute, channel_id) DO UPDATE SET lo = min(lo, excluded.lo), hi = max(hi, excluded.hi), n = n + excluded.n",
             rows,
         )
 

@@ -100,7 +100,7 @@ SAME = [
     "SELECT channel_id, sample_id, t, value, status FROM reading ORDER BY channel_id, sample_id",
     "SELECT * FROM sample ORDER BY id",
     "SELECT * FROM flag ORDER BY channel_id, first_id",
-    "SELECT * FROM step ORDER BY channel_id, sample_id",
+    "SELECT * FROM step ORDER BY sample_id",
     "SELECT * FROM latest ORDER BY channel_id",
     "SELECT id, last_id, n, bad, received, ok, lengths, size, lines, reasons FROM raw_block ORDER BY id",
     "SELECT id, received_utc, line, ok FROM raw_line ORDER BY id",
