@@ -27,7 +27,7 @@ from collections.abc import Iterable
 import numpy as np
 
 __all__ = [
-    "COMPACT_VERSION", "MEASURED_KINDS", "STEP_KIND", "STEP_S", "RAW_BLOCK_LINES", "is_compact", "column", "step_column", "write_views",
+    "CHARTED_SUFFIX", "COMPACT_VERSION", "MEASURED_KINDS", "STEP_KIND", "STEP_S", "RAW_BLOCK_LINES", "is_compact", "column", "step_column", "write_views",
     "pack_raw", "unpack_raw", "status_runs",
 ]
 
@@ -40,6 +40,9 @@ STEP_S = 10.0
 STEP_KIND = "progress"
 """The kind of channel kept at the step rate: the schedule's progress, which only a pass from the firing's start could
 recompute (the rates and the pyrometers' derived channels are recomputed on read from the measured values)."""
+CHARTED_SUFFIX = ".reconciled"
+"""Derived channels whose per-minute envelope is kept in ``trend_minute`` beside every measured channel's: the
+pyrometers' reconciled temperatures, which the charts and the report draw."""
 RAW_BLOCK_LINES = 1024
 """Raw lines are compressed together once this many wait (zlib gains on many similar lines: 83-byte demo lines
 take 18.5 bytes each in blocks of 512 to 8,192, against 40 alone in blocks of 16)."""

@@ -18,7 +18,19 @@ import numpy as np
 
 from firewatch import __version__
 from firewatch.store._common import SCHEMA_VERSION, LogError, schema_sql
-from firewatch.store.layout import MEASURED_KINDS, RAW_BLOCK_LINES, STEP_KIND, STEP_S, column, is_compact, pack_raw, status_runs, step_column, write_views
+from firewatch.store.layout import (
+    CHARTED_SUFFIX,
+    MEASURED_KINDS,
+    RAW_BLOCK_LINES,
+    STEP_KIND,
+    STEP_S,
+    column,
+    is_compact,
+    pack_raw,
+    status_runs,
+    step_column,
+    write_views,
+)
 
 __all__ = ["upgrade_log", "needs_upgrade", "upgraded_copy", "CHUNK"]
 
@@ -184,8 +196,12 @@ def _convert(src: sqlite3.Connection, dst: sqlite3.Connection, version: int) -> 
     for table, cols in (("event", "id, t, kind, channel, detail"), ("gap", "id, start_t, end_t, reason"),
                         ("alarm", "id, kind, channel, cause, priority, raised_t, cleared_t, state, message, evidence"),
                         ("alarm_state", "id, alarm_id, t, state, detail"), ("trend_minute", "channel_id, minute, lo, hi, n")):
-        order = " ORDER BY minute, channel_id" if table == "trend_minute" else " ORDER BY 1"
-        rows = src.execute(f"SELECT {cols} FROM {table}{order}").fetchall()
+        where, order = "", " ORDER BY 1"
+        if table == "trend_minute":  # the charted channels only, as the writer keeps them
+            where = (f" WHERE channel_id IN (SELECT id FROM channel WHERE kind IN ('thermocouple', 'cold_junction', 'pyrometer') "
+                     f"OR name LIKE '%{CHARTED_SUFFIX}')")
+            order = " ORDER BY minute, channel_id"
+        rows = src.execute(f"SELECT {cols} FROM {table}{where}{order}").fetchall()
         dst.executemany(f"INSERT INTO {table}({cols}) VALUES ({', '.join('?' * len(cols.split(',')))})", rows)
     alarms = dst.execute("SELECT count(*) FROM alarm").fetchone()[0]
     return {"samples": samples, "lines": lines, "alarms": int(alarms)}

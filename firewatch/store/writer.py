@@ -61,7 +61,19 @@ from firewatch.store._common import (
     schema_sql,
     sqlite_code,
 )
-from firewatch.store.layout import MEASURED_KINDS, RAW_BLOCK_LINES, STEP_KIND, STEP_S, column, is_compact, pack_raw, status_runs, step_column, write_views
+from firewatch.store.layout import (
+    CHARTED_SUFFIX,
+    MEASURED_KINDS,
+    RAW_BLOCK_LINES,
+    STEP_KIND,
+    STEP_S,
+    column,
+    is_compact,
+    pack_raw,
+    status_runs,
+    step_column,
+    write_views,
+)
 
 __all__ = [
     "LogWriter", "BriefWrite", "take_lock", "release_lock", "BRIEF_HOLDER", "BRIEF_WAIT_S", "Outage", "HOLD_S", "HOLD_RATE_HZ",
@@ -452,6 +464,7 @@ class LogWriter:
         self._measured = {name: cid for name, cid in self._channel_ids.items() if kinds[name] in MEASURED_KINDS}
         self._derived = {name: cid for name, cid in self._channel_ids.items() if kinds[name] not in MEASURED_KINDS}
         self._progress = frozenset(name for name in self._derived if kinds[name] == STEP_KIND)
+        self._charted = {name: cid for name, cid in self._channel_ids.items() if name in self._measured or name.endswith(CHARTED_SUFFIX)}
         # lines a killed recorder left waiting are compressed now, before this session's join them
         self._pack_raw(1)
         cur = self.con.execute(
@@ -568,13 +581,13 @@ class LogWriter:
         self.con.execute("DELETE FROM raw_line WHERE id <= ?", (rows[-1][0],))
 
     def _write_minutes(self, times: np.ndarray, batch: Batch) -> None:
-        """Keep the per-minute min and max of every channel, so that viewers draw long firings at once."""
+        """Keep the per-minute min and max of the charted channels, so that viewers draw long firings at once."""
         minutes = np.floor(times / 60.0).astype(np.int64)
         starts = np.concatenate([[0], np.flatnonzero(np.diff(minutes)) + 1])
         keys = minutes[starts].tolist()
         rows: list[tuple[int, int, float, float, int]] = []
         for name, values in batch.values.items():
-            cid = self._channel_ids.get(name)
+            cid = self._charted.get(name)
             if cid is None:
                 continue
             ok = np.isfinite(values)
