@@ -119,17 +119,23 @@ class LogReader:
         arr = np.array([(r[0], np.nan if r[1] is None else r[1], r[2]) for r in rows], dtype=float)
         return Series(arr[:, 0], arr[:, 1], arr[:, 2].astype(np.int64))
 
-    def raw_lines(self, batch_size: int = 5000) -> Iterator[list[tuple[float, bytes, int]]]:
-        """All raw lines in order, in batches: ``(received_utc, line, session_id)``."""
-        last = 0
+    def raw_lines(self, lo: int | None = None, hi: int | None = None, batch_size: int = 5000) -> Iterator[list[tuple[float, bytes, int]]]:
+        """Raw lines ``lo < id <= hi`` (all when None) in order, in batches: ``(received_utc, line, session_id)``."""
+        last = 0 if lo is None else lo
+        end = (1 << 63) - 1 if hi is None else hi
         while True:
             rows = self.query(
-                "SELECT id, received_utc, line, session_id FROM raw_line WHERE id > ? ORDER BY id LIMIT ?", (last, batch_size)
+                "SELECT id, received_utc, line, session_id FROM raw_line WHERE id > ? AND id <= ? ORDER BY id LIMIT ?",
+                (last, end, batch_size),
             )
             if not rows:
                 return
             last = rows[-1][0]
             yield [(r[1], bytes(r[2]), r[3]) for r in rows]
+
+    def raw_span(self) -> tuple[int, int]:
+        """``(lo, hi)`` such that :meth:`raw_lines` ``(lo, hi)`` gives every raw line (``(0, 0)`` for none)."""
+        return self.query("SELECT coalesce(min(id), 1) - 1, coalesce(max(id), 0) FROM raw_line")[0]  # type: ignore[return-value]
 
     def gaps(self) -> list[dict[str, Any]]:
         return [
