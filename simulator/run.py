@@ -134,6 +134,17 @@ class Simulation:
                 return f
         return None
 
+    def _windows(self, kind: str, t: np.ndarray) -> list[Fault | None]:
+        """:meth:`_window` for each of the times ``t``: the first fault of ``kind`` open at each."""
+        faults = self._faults(kind)
+        if not faults:
+            return [None] * t.size
+        first = np.full(t.size, -1)
+        for j in range(len(faults) - 1, -1, -1):  # the earliest in the list wins, as in _window
+            f = faults[j]
+            first[(f.at_s <= t) & (t < f.at_s + float(f.param("seconds")))] = j
+        return [None if j < 0 else faults[j] for j in first.tolist()]
+
     # -- stepping -------------------------------------------------------------------
     @property
     def done(self) -> bool:
@@ -230,6 +241,7 @@ class Simulation:
         templates = self._templates
         all_ok = tuple([int(Status.OK)] * len(columns))
         start_utc = self.scenario.start_utc
+        dropouts, garbages = self._windows("dropout", times), self._windows("garbage", times)
         for i, t in enumerate(times.tolist()):
             key = tuple(status_rows[i].tolist()) if abnormal[i] else all_ok
             template = templates.get(key)
@@ -238,8 +250,7 @@ class Simulation:
             body = (template % (self.seq, start_utc + t, *value_rows[i])).encode("ascii")
             data = body + b" *%04X\r\n" % crc16(body)
             self.seq += 1
-            dropout = self._window("dropout", t)
-            garbage = self._window("garbage", t)
+            dropout, garbage = dropouts[i], garbages[i]
             if garbage is not None and garbage_draw[i] < float(garbage.param("fraction")):
                 data = _spoil(data, int(garbage_kind[i]), float(garbage_pos[i]), rng)
             # a dropout that starts within this reading may also drop the connection
