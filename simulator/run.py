@@ -3,14 +3,16 @@
 from __future__ import annotations
 
 import math
+from collections import deque
 from collections.abc import Iterator
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
 from firewatch.physics.bands import Band
 from firewatch.physics.thermocouples import seebeck
-from firewatch.simulator.instruments import band_of, pyrometer_reading, thermocouple_emf
+from firewatch.simulator.instruments import band_of, pyrometer_shown, pyrometer_status, thermocouple_clean_emf
 from firewatch.simulator.kiln import Controller, KilnModel
 from firewatch.simulator.scenario import Fault, Scenario
 from firewatch.transport.native import crc16
@@ -19,7 +21,11 @@ from firewatch.transport.records import Status
 __all__ = ["Line", "Simulation"]
 
 CHUNK = 60
-"""Steps simulated before the instruments are evaluated together (fixed, so a seed gives the same run in every mode)."""
+"""Steps simulated before the instruments' noise is drawn (fixed, so a seed gives the same run in every mode)."""
+AHEAD = 10
+"""Chunks the kiln is stepped ahead so that the instruments' physics runs over them at once (its per-call
+cost, not its per-reading cost, dominated at 60 readings); noise is still drawn chunk by chunk in the
+same order, and :attr:`Simulation.t`, ``done`` and ``state`` answer for the last chunk handed out."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -81,6 +87,12 @@ class Simulation:
             if fault.kind == "loop-break" and channel is not None and self.site.pyrometer(channel) is None:
                 raise ValueError(f"fault {fault.kind}: no pyrometer channel {channel!r} in the site profile")
         self.duration_s = scenario.duration_s
+        self._step_t = 0.0
+        """Simulated seconds the kiln has been stepped to (ahead of :attr:`t` by the chunks not yet handed out)."""
+        self._ahead: deque[tuple[dict[str, Any], int, int, bool, dict[str, float]]] = deque()
+        """Chunks stepped ahead, not yet handed out: truth, its slice, and done and state after the chunk."""
+        self._after: tuple[bool, dict[str, float]] | None = None
+        """Done and state after the last chunk handed out (None before the first)."""
         self._templates: dict[tuple[int, ...], str] = {}
         """Line templates by the pattern of statuses in a line (see :func:`_template`)."""
 
@@ -148,21 +160,53 @@ class Simulation:
     # -- stepping -------------------------------------------------------------------
     @property
     def done(self) -> bool:
+        """Whether the run is over, as of the last chunk handed out (the kiln itself may be stepped ahead)."""
+        if self.endless:
+            return False
+        if self._after is not None:
+            return self._after[0]
+        return self._done_now()
+
+    def _done_now(self) -> bool:
+        """Whether the run is over at the stepping clock (see :data:`AHEAD`)."""
         if self.endless:
             return False
         if self.duration_s is not None:
-            return self.t >= self.duration_s
+            return self._step_t >= self.duration_s
         cap = 3.0 * self.scenario.schedule.planned_duration_s + 4 * 3600.0
-        return (self.controller.finished and self.kiln.wall_c < self.scenario.cool_end_c) or self.t >= cap
+        return (self.controller.finished and self.kiln.wall_c < self.scenario.cool_end_c) or self._step_t >= cap
 
     def chunks(self) -> Iterator[list[Line]]:
         while not self.done:
-            yield self._chunk()
+            if not self._ahead:
+                self._step_ahead()
+            yield self._emit(self._ahead.popleft())
 
-    def _chunk(self) -> list[Line]:
+    def _step_ahead(self) -> None:
+        """Step the kiln up to :data:`AHEAD` chunks, and evaluate their instruments' noise-free truth at once."""
+        sizes: list[tuple[int, bool, dict[str, float]]] = []
+        parts: list[tuple[np.ndarray, np.ndarray, np.ndarray, dict[str, np.ndarray]]] = []
+        for _ in range(AHEAD):
+            parts.append(self._step_chunk())
+            done = self._done_now()
+            sizes.append((parts[-1][0].size, done, self._state_now()))
+            if done:
+                break
+        times = np.concatenate([q[0] for q in parts])
+        wall = np.concatenate([q[1] for q in parts])
+        ware = np.concatenate([q[2] for q in parts])
+        lags = {tc.name: np.concatenate([q[3][tc.name] for q in parts]) for tc in self.tcs}
+        truth = self._truth(times, wall, lags, ware)
+        lo = 0
+        for n, done, state in sizes:
+            self._ahead.append((truth, lo, lo + n, done, state))
+            lo += n
+
+    def _step_chunk(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, dict[str, np.ndarray]]:
+        """Step the kiln and controller through one chunk: times, wall, ware and each thermocouple's lagged junction."""
         n = CHUNK
         if self.duration_s is not None and not self.endless:
-            n = max(1, min(n, int(math.ceil((self.duration_s - self.t) / self.dt))))
+            n = max(1, min(n, int(math.ceil((self.duration_s - self._step_t) / self.dt))))
         times = np.empty(n)
         wall = np.empty(n)
         ware = np.empty(n)
@@ -177,47 +221,42 @@ class Simulation:
             if control is not None:
                 drift = 0.0
                 for at_s, rate in drifts:  # as _drift_c, for one time
-                    drift += max(self.t - at_s, 0.0) / 3600.0 * rate
+                    drift += max(self._step_t - at_s, 0.0) / 3600.0 * rate
                 measured = lag[control] + self._offset[control] + drift
             else:
                 measured = kiln.wall_c
-            power = self.controller.power(measured, self.t, self.dt)
+            power = self.controller.power(measured, self._step_t, self.dt)
             kiln.step(power, self.dt)
-            self.t += self.dt
+            self._step_t += self.dt
             wall_c = kiln.wall_c
             for name, a in smoothing:
                 lag[name] += a * (wall_c - lag[name])
                 lags[name][i] = lag[name]
-            times[i] = self.t
+            times[i] = self._step_t
             wall[i] = wall_c
             ware[i] = kiln.ware_c
-        return self._emit(times, wall, ware, lags)
+        return times, wall, ware, lags
 
-    def _emit(self, times: np.ndarray, wall: np.ndarray, ware: np.ndarray, lags: dict[str, np.ndarray]) -> list[Line]:
+    def _truth(self, times: np.ndarray, wall: np.ndarray, lags: dict[str, np.ndarray], ware: np.ndarray) -> dict[str, Any]:
+        """What each instrument would read without noise, and its status, over several chunks at once
+        (element by element, so the same as chunk by chunk)."""
         n = times.size
-        rng = self.rng
         ambient = self.scenario.kiln.ambient_c
         cold_true = ambient + 6.0 * np.clip((wall - ambient) / 1250.0, 0.0, 1.0)
-        columns: list[tuple[str, np.ndarray, str, np.ndarray]] = []
-        for cj in self.site.cold_junctions:
-            columns.append((cj, cold_true + rng.normal(0.0, 0.05, n), "C", np.full(n, Status.OK)))
+        truth: dict[str, Any] = {"times": times, "wall": wall, "cold": cold_true}
         for tc in self.tcs:
             junction = lags[tc.name] + self._offset[tc.name] + self._drift_c(tc.name, times)
             cold = cold_true if isinstance(tc.cold_junction, str) else np.full(n, float(tc.cold_junction))
-            noise_uv = self.scenario.instruments.get(tc.name, {}).get("noise_uv", 2.0)
             if tc.unit == "mV":
-                value, status = thermocouple_emf(tc, junction, cold, rng.normal(0.0, noise_uv * 1e-3, n))
-            else:  # a bridge that converts: degC with noise of the same size
-                sens = float(seebeck(np.clip(np.median(junction), 0, 1000), tc.type))
-                value = junction + rng.normal(0.0, noise_uv * 1e-3 / max(sens, 1e-3), n)
-                status = np.full(n, Status.OK)
-            status = np.where(self._open(tc.name, times), Status.OPEN, status)
-            columns.append((tc.name, value, tc.unit, status))
+                emf, status = thermocouple_clean_emf(tc, junction, cold)
+                truth[tc.name] = (emf, status)
+            else:
+                truth[tc.name] = (junction, np.full(n, Status.OK))
+            truth["open " + tc.name] = self._open(tc.name, times)
         eps, slope = self._emissivity(times)
         fouling = self._fouling(times)
         for py in self.site.pyrometers:
             band, band2 = self.bands[py.name]
-            noise = self.scenario.instruments.get(py.name, {}).get("noise_c", 1.0 if py.kind == "ratio" else 0.3)
             # what the ware reflects: the walls, a fixed cold surround (a sight tube, an open door), or nothing
             if isinstance(py.background, float):
                 surround = np.full(n, py.background)
@@ -225,8 +264,37 @@ class Simulation:
                 surround = None
             else:
                 surround = wall
-            value, status = pyrometer_reading(py, band, band2, ware, surround, eps, slope, fouling, rng.normal(0.0, noise, n))
-            status = np.where(self._loop_broken(py.name, times), Status.ERROR, status)
+            truth[py.name] = pyrometer_shown(py, band, band2, ware, surround, eps, slope, fouling)
+            truth["broken " + py.name] = self._loop_broken(py.name, times)
+        return truth
+
+    def _emit(self, ahead: tuple[dict[str, Any], int, int, bool, dict[str, float]]) -> list[Line]:
+        """The lines of one chunk stepped ahead: its noise drawn (in the same order as ever), its lines made."""
+        truth, lo, hi, done, state = ahead
+        times = truth["times"][lo:hi]
+        self.t = float(times[-1])
+        self._after = (done, state)
+        n = times.size
+        rng = self.rng
+        columns: list[tuple[str, np.ndarray, str, np.ndarray]] = []
+        for cj in self.site.cold_junctions:
+            columns.append((cj, truth["cold"][lo:hi] + rng.normal(0.0, 0.05, n), "C", np.full(n, Status.OK)))
+        for tc in self.tcs:
+            clean, status = truth[tc.name]
+            clean, status = clean[lo:hi], status[lo:hi]
+            noise_uv = self.scenario.instruments.get(tc.name, {}).get("noise_uv", 2.0)
+            if tc.unit == "mV":
+                value = clean + rng.normal(0.0, noise_uv * 1e-3, n)
+            else:  # a bridge that converts: degC with noise of the same size (clean is the junction)
+                sens = float(seebeck(np.clip(np.median(clean), 0, 1000), tc.type))
+                value = clean + rng.normal(0.0, noise_uv * 1e-3 / max(sens, 1e-3), n)
+            status = np.where(truth["open " + tc.name][lo:hi], Status.OPEN, status)
+            columns.append((tc.name, value, tc.unit, status))
+        for py in self.site.pyrometers:
+            noise = self.scenario.instruments.get(py.name, {}).get("noise_c", 1.0 if py.kind == "ratio" else 0.3)
+            value = truth[py.name][lo:hi] + rng.normal(0.0, noise, n)
+            status = pyrometer_status(py, value)
+            status = np.where(truth["broken " + py.name][lo:hi], Status.ERROR, status)
             columns.append((py.name, value, "C", status))
         garbage_draw = rng.random(n)
         garbage_kind = rng.integers(0, 3, n)
@@ -261,7 +329,11 @@ class Simulation:
     # -- truth for tests ------------------------------------------------------------
     @property
     def state(self) -> dict[str, float]:
-        return {"t": self.t, "wall_c": self.kiln.wall_c, "ware_c": self.kiln.ware_c, "segment": self.controller.segment}
+        """The kiln as of the last chunk handed out."""
+        return self._after[1] if self._after is not None else self._state_now()
+
+    def _state_now(self) -> dict[str, float]:
+        return {"t": self._step_t, "wall_c": self.kiln.wall_c, "ware_c": self.kiln.ware_c, "segment": self.controller.segment}
 
 
 _WORDS = {int(Status.OPEN): "OPEN", int(Status.UNDER): "UNDER", int(Status.OVER): "OVER"}
