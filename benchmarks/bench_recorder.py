@@ -187,7 +187,8 @@ def to_log_stages(tmp: Path) -> None:
 
         setattr(owner, attr, wrapper)
 
-    timed(sim_run.Simulation, "_chunk", "simulation")
+    timed(sim_run.Simulation, "_step_ahead", "simulation")
+    timed(sim_run.Simulation, "_emit", "simulation")
     timed(NativeParser, "parse_batch", "parsing")
     timed(Pipeline, "process_columns", "pipeline (with progress)")
     timed(ProgressTracker, "update", "progress")
