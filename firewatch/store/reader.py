@@ -135,7 +135,7 @@ class LogReader:
 
     def raw_span(self) -> tuple[int, int]:
         """``(lo, hi)`` such that :meth:`raw_lines` ``(lo, hi)`` gives every raw line (``(0, 0)`` for none)."""
-        return self.query("SELECT coalesce(min(id), 1) - 1, coalesce(max(id), 0) FROM raw_line")[0]  # type: ignore[return-value]
+        return self.query("SELECT coalesce(min(id), 1) - 1, coalesce(max(id), 0) FROM raw_line")[0]
 
     def gaps(self) -> list[dict[str, Any]]:
         return [
