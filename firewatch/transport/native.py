@@ -94,8 +94,8 @@ class NativeParser:
         self._names: dict[bytes, str] = {}
         """Channel names already checked, bytes to str."""
         self._shapes: list[_Shape] = []
-        """Compiled shapes of lines seen, the most recently matched first."""
-        self._known: set[tuple[tuple[str, str], ...]] = set()
+        """Compiled shapes of lines seen, the most recently matched first (at most :data:`MAX_SHAPES`)."""
+        self._by_key: dict[tuple[tuple[str, str], ...], _Shape] = {}
 
     def parse_batch(self, lines: Sequence[tuple[float, bytes]], channels: Sequence[str], clock: str) -> Columns:
         """Parse a batch of ``(received, line)`` into :class:`~firewatch.transport.batch.Columns`.
@@ -153,9 +153,14 @@ class NativeParser:
         g.item(item)
         if isinstance(item, ReadingSet):
             key = tuple((v.channel, v.unit if v.status == _OK else _WORDS[v.status].decode()) for v in item.values)
-            if key not in self._known and len(self._known) < MAX_SHAPES:
-                self._known.add(key)
-                self._shapes.insert(0, _Shape(key))
+            shape = self._by_key.get(key)
+            if shape is not None:  # known but beyond the shapes tried: bring it forward
+                self._shapes.remove(shape)
+            else:
+                if len(self._shapes) >= MAX_SHAPES:  # forget the one matched longest ago
+                    del self._by_key[self._shapes.pop().key]
+                shape = self._by_key[key] = _Shape(key)
+            self._shapes.insert(0, shape)
 
     def parse(self, line: bytes, received: float) -> ReadingSet | Malformed:
         line = line.rstrip(b"\r\n")
@@ -240,6 +245,7 @@ class _Shape:
             else:
                 parts.append(name + b"=" + form.encode("ascii"))
                 words[channel] = int(_STATUS_WORDS[form.encode("ascii")])
+        self.key = key
         self.match = re.compile(b" ".join(parts)).fullmatch
         self.numbers = tuple(numbers)
         self.words = words

@@ -133,6 +133,24 @@ def test_native_shapes_are_bounded() -> None:
     assert len(parser._shapes) == MAX_SHAPES
 
 
+def test_native_shapes_beyond_the_tried_come_forward() -> None:
+    """Shapes alternating among more than are tried first still reach the fast path once parsed again."""
+    parser = NativeParser()
+    calls = []
+    slow = parser.parse
+    parser.parse = lambda line, received: calls.append(line) or slow(line, received)  # type: ignore[method-assign]
+    shapes = [encode([Value(f"c{k}", 1.0, "C")], 1, 1.0) for k in range(8)]
+    lines = [(float(i), shapes[i % 8]) for i in range(80)]
+    # eight shapes in turn: each has fallen beyond the four tried by the time it comes again, so all go through parse
+    cols = parser.parse_batch(lines, ("c0",), "wall")
+    assert len(calls) == 80 and len(cols.samples) == 80
+    assert_same(cols, reference(NativeParser().parse, lines, ("c0",), "wall"))
+    calls.clear()
+    again = [(float(i), shapes[0]) for i in range(10)]
+    parser.parse_batch(again, ("c0",), "wall")
+    assert len(calls) == 1  # the eighth shape back: parsed once and brought forward, then fast
+
+
 _NAMES = st.sampled_from(["cj", "tc1", "tc2", "py1", "extra", "tc 1", "", "a=b"])
 _NUMBERS = st.one_of(
     st.floats(allow_nan=True, allow_infinity=True).map(lambda x: repr(x)),
