@@ -62,7 +62,6 @@ class Gatherer:
         self.raw: list[tuple[float, bytes, bool, str]] = []
         self.samples: list[tuple[int, float, float, float | None, int | None]] = []
         self.device = clock == "device"
-        self.wanted = frozenset(channels)
         self._names = tuple(channels)
         self._single: list[tuple[int, ReadingSet]] = []
         """Samples parsed one by one: their index and record."""
