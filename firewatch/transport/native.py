@@ -52,9 +52,11 @@ _WORDS = {status: word for word, status in _STATUS_WORDS.items()}
 # checks cannot fail: a sequence number of at most 18 digits is below SEQ_MAX, a device time of at
 # most 10 integer digits within TIME_LIMIT_S, a value of at most 9 within VALUE_LIMIT. Anything
 # else (a sign, an exponent, more digits) goes through ``parse``.
-_SEQ = rb"(-|\d{1,18})"
-_TIME = rb"(-|-?\d{1,10}(?:\.\d{1,9})?)"
-_NUMBER = rb"(-?\d{1,9}(?:\.\d{1,12})?)"
+# Possessive quantifiers (``{m,n}+``, ``?+``): what follows a run of digits is never a digit, so
+# giving digits back can never help a match; not trying halves the time of a wide line's match.
+_SEQ = rb"(-|\d{1,18}+)"
+_TIME = rb"(-|-?\d{1,10}+(?:\.\d{1,9}+)?+)"
+_NUMBER = rb"(-?\d{1,9}+(?:\.\d{1,12}+)?+)"
 MAX_SHAPES = 64
 """Line shapes (channels in order, each with its unit or status word) a parser keeps compiled."""
 _TRIED = 4
