@@ -53,9 +53,10 @@ from firewatch.physics.tolerances import tolerance_uncertainty
 from firewatch.physics.windows import Window
 from firewatch.settings.profile import Pyrometer, SiteProfile
 from firewatch.settings.schedule import Schedule
+from firewatch.transport.batch import Columns, Gatherer
 from firewatch.transport.records import Malformed, ReadingSet, Status
 
-__all__ = ["Batch", "Pipeline", "ChannelInfo", "channel_table", "JUMP_S", "CONFIRM"]
+__all__ = ["Batch", "from_columns", "to_columns", "Pipeline", "ChannelInfo", "channel_table", "JUMP_S", "CONFIRM"]
 
 JUMP_S = 10.0
 """How far a line's time may run ahead of the last accepted line's beyond the wall-clock time between
@@ -124,38 +125,24 @@ class Batch:
 
 
 def to_columns(items: list[ReadingSet | Malformed], channels: tuple[str, ...], clock: str) -> Batch:
-    """Gather parsed lines into a :class:`Batch` of raw lines, samples and per-channel arrays.
+    """Gather lines parsed one by one into a :class:`Batch` of raw lines, samples and per-channel arrays.
 
-    Stateless, so that it can run in another process (replay does); the
-    pipeline then places the lines on the time line, reports the malformed
-    ones and computes everything else.
+    Stateless, so that it can run in another process; a parser's
+    ``parse_batch`` gives the same columns from the lines themselves, faster.
+    The pipeline then places the lines on the time line, reports the
+    malformed ones and computes everything else.
     """
-    batch = Batch()
-    raw, samples = batch.raw, batch.samples
-    device = clock == "device"
-    wanted = set(channels)
-    sets: list[ReadingSet] = []
+    g = Gatherer(channels, clock)
     for item in items:
-        if isinstance(item, Malformed):
-            raw.append((item.received, item.raw, False, item.reason))
-            continue
-        received, device_time = item.received, item.device_time
-        t = device_time if device and device_time is not None else received
-        raw.append((received, item.raw, True, ""))
-        samples.append((len(raw) - 1, t, received, device_time, item.seq))
-        sets.append(item)
-    n = len(sets)
-    vals: dict[str, list[float]] = {name: [math.nan] * n for name in wanted}
-    stats: dict[str, list[int]] = {name: [int(Status.MISSING)] * n for name in wanted}
-    for i, s in enumerate(sets):
-        for v in s.values:
-            col = vals.get(v.channel)
-            if col is not None:
-                col[i] = v.value
-                stats[v.channel][i] = v.status
-    batch.values = {name: np.array(vals[name], dtype=float) for name in wanted}
-    batch.status = {name: np.array(stats[name], dtype=np.int64) for name in wanted}
-    return batch
+        g.item(item)
+    return from_columns(g.columns())
+
+
+def from_columns(cols: Columns | Batch) -> Batch:
+    """A parser's :class:`~firewatch.transport.batch.Columns` as a :class:`Batch` (no copy)."""
+    if isinstance(cols, Batch):
+        return cols
+    return Batch(raw=cols.raw, samples=cols.samples, values=cols.values, status=cols.status)
 
 
 def _join(a: Batch, b: Batch) -> Batch:
@@ -232,14 +219,15 @@ class Pipeline:
         """Convert and reconcile one batch of parsed lines."""
         return self.process_columns(to_columns(items, self.site.channel_names, self.clock))
 
-    def process_columns(self, cols: Batch, final: bool = False) -> Batch:
-        """Like :meth:`process`, from lines already gathered into columns by :func:`to_columns`
-        (which may run in another process).
+    def process_columns(self, cols: Batch | Columns, final: bool = False) -> Batch:
+        """Like :meth:`process`, from lines already gathered into columns: by a parser's
+        ``parse_batch`` or by :func:`to_columns` (either may run in another process).
 
         Lines out of step on the time line are held back to the next call;
         ``final`` decides them with what is known (see :meth:`flush`).
         """
         # the lines held stay held until this batch is through, so that a failure loses none
+        cols = from_columns(cols)
         batch = cols if self._held is None else _join(self._held, cols)
         held = None
         shift = 0.0 if self._anchor is None else self._anchor[2] - self._anchor[1]

@@ -210,7 +210,8 @@ class Ingest:
         (``sqlite3.OperationalError``: a full disk, an I/O error) are left
         to the caller's commit handling, after the batch is rolled back.
         """
-        batch = self._guarded(lines, lambda: self.pipeline.process([self.parser.parse(line, received) for received, line in lines]))
+        pipeline = self.pipeline
+        batch = self._guarded(lines, lambda: pipeline.process_columns(self.parser.parse_batch(lines, pipeline.site.channel_names, pipeline.clock)))
         self.lines += len(lines)
         return batch
 

@@ -65,21 +65,17 @@ _LINES_PER_JOB = 24_000
 
 
 def _parse_job(job: tuple[str, SiteProfile, str, int, int]) -> list:
-    """In a worker process: read raw lines ``lo < id <= hi`` and gather them into column batches."""
+    """In a worker process: read raw lines ``lo < id <= hi`` and parse them into column batches."""
     path, site, clock, lo, hi = job
-    from firewatch.firing.pipeline import to_columns
-
-    with LogReader(path) as reader:
-        rows = [(r[0], r[1]) for part in reader.raw_lines(lo, hi) for r in part]
     parser = make_parser(site, clock)
     names = site.channel_names
     gc.disable()
     out = []
-    for i in range(0, len(rows), _LINES_PER_BATCH):
-        items = [parser.parse(bytes(line), received) for received, line in rows[i : i + _LINES_PER_BATCH]]
-        batch = to_columns(items, names, clock)
-        batch.raw = [(r[0], b"", r[2], r[3]) for r in batch.raw]  # the bytes are not needed back here
-        out.append(batch)
+    with LogReader(path) as reader:
+        for rows in reader.raw_lines(lo, hi, batch_size=_LINES_PER_BATCH):
+            cols = parser.parse_batch([(received, line) for received, line, _ in rows], names, clock)
+            raw = [(r[0], b"", r[2], r[3]) for r in cols.raw]  # the bytes are not needed back here
+            out.append(cols._replace(raw=raw))
     return out
 
 
@@ -88,7 +84,8 @@ def _batches(reader: LogReader, site: SiteProfile, clock: str):
     import multiprocessing
 
     lo, hi = reader.raw_span()
-    jobs = [(str(reader.data_path.resolve()), site, clock, a, min(a + _LINES_PER_JOB, hi)) for a in range(lo, hi, _LINES_PER_JOB)]
+    path = reader.readings_path()  # an old log's converted copy is made here, not in each worker
+    jobs = [(str(path.resolve()), site, clock, a, min(a + _LINES_PER_JOB, hi)) for a in range(lo, hi, _LINES_PER_JOB)]
     if len(jobs) <= 1:
         for job in jobs:
             yield from _parse_job(job)

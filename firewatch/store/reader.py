@@ -90,6 +90,11 @@ class LogReader:
         self.lock: AbstractContextManager[Any] = contextlib.nullcontext()
         """Held around reads that bypass :meth:`query` (a viewer sharing the connection between threads sets its own)."""
 
+    def readings_path(self) -> Path:
+        """The file the readings are read from (converting an old log first, see :attr:`data_path`)."""
+        self.con.execute("SELECT 1")
+        return self.data_path
+
     @property
     def con(self) -> sqlite3.Connection:
         """The connection the readings are read through (an old log is converted on first use)."""

@@ -196,12 +196,12 @@ def _convert(src: sqlite3.Connection, dst: sqlite3.Connection, version: int) -> 
     for table, cols in (("event", "id, t, kind, channel, detail"), ("gap", "id, start_t, end_t, reason"),
                         ("alarm", "id, kind, channel, cause, priority, raised_t, cleared_t, state, message, evidence"),
                         ("alarm_state", "id, alarm_id, t, state, detail"), ("trend_minute", "channel_id, minute, lo, hi, n")):
-        where, order = "", " ORDER BY 1"
+        where, order_by = "", " ORDER BY 1"
         if table == "trend_minute":  # the charted channels only, as the writer keeps them
             where = (f" WHERE channel_id IN (SELECT id FROM channel WHERE kind IN ('thermocouple', 'cold_junction', 'pyrometer') "
                      f"OR name LIKE '%{CHARTED_SUFFIX}')")
-            order = " ORDER BY minute, channel_id"
-        rows = src.execute(f"SELECT {cols} FROM {table}{where}{order}").fetchall()
+            order_by = " ORDER BY minute, channel_id"
+        rows = src.execute(f"SELECT {cols} FROM {table}{where}{order_by}").fetchall()
         dst.executemany(f"INSERT INTO {table}({cols}) VALUES ({', '.join('?' * len(cols.split(',')))})", rows)
     alarms = dst.execute("SELECT count(*) FROM alarm").fetchone()[0]
     return {"samples": samples, "lines": lines, "alarms": int(alarms)}
