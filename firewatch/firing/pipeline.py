@@ -56,7 +56,7 @@ from firewatch.settings.schedule import Schedule
 from firewatch.transport.batch import Columns, Gatherer
 from firewatch.transport.records import Malformed, ReadingSet, Status
 
-__all__ = ["Batch", "from_columns", "to_columns", "Pipeline", "ChannelInfo", "channel_table", "JUMP_S", "CONFIRM"]
+__all__ = ["Batch", "from_columns", "to_columns", "Pipeline", "ChannelInfo", "channel_table", "measurement_key", "JUMP_S", "CONFIRM"]
 
 JUMP_S = 10.0
 """How far a line's time may run ahead of the last accepted line's beyond the wall-clock time between
@@ -96,6 +96,16 @@ def channel_table(site: SiteProfile, schedule: Schedule | None = None) -> list[C
         for name, unit, description in PLAN_CHANNELS:
             out.append(ChannelInfo(name, "progress", unit, site.control.name, description))
     return out
+
+
+def measurement_key(site: SiteProfile) -> str:
+    """Everything that decides how a site turns lines into the measured values a log keeps (the input, its channels,
+    each thermocouple's type, unit and cold junction): two sites with the same key convert any line alike."""
+    return repr((
+        site.input, tuple(site.channel_names), tuple(site.cold_junctions),
+        tuple((tc.name, tc.type, tc.unit, tc.cold_junction) for tc in site.thermocouples),
+        tuple(py.name for py in site.pyrometers),
+    ))
 
 
 @dataclass
@@ -390,15 +400,34 @@ class Pipeline:
     def _compute_arrays(self, times: np.ndarray, batch: Batch) -> None:
         self._measure(times, batch)
         self._derive(times, batch.values, batch.status, batch.events)
+        self._progress(times, batch.values, batch.status)
+
+    def _progress(self, times: np.ndarray, out_v: dict[str, np.ndarray], out_s: dict[str, np.ndarray]) -> None:
         if self.progress is not None:
             # a tracker is made only for a site with a control thermocouple (__init__)
             assert self.site.control is not None
             ctl = self.site.control.name
-            out_v, out_s = batch.values, batch.status
             plan = self.progress.update(times, out_v[ctl], out_v[f"{ctl}.rate"])
             for name, values in plan.items():
                 out_v[name] = values
                 out_s[name] = np.where(np.isfinite(values), int(Status.OK), int(Status.MISSING))
+
+    def continue_measured(self, times: np.ndarray, values: dict[str, np.ndarray], status: dict[str, np.ndarray]
+                          ) -> tuple[dict[str, np.ndarray], dict[str, np.ndarray]]:
+        """Every channel of measured readings as a log keeps them (in time order, batch after batch), derived and
+        progress ones computed on from this pipeline's state, as :meth:`process_columns` would have from the lines.
+
+        For a replay whose site converts lines as the recorder's did: the log's
+        measured values are then exactly what parsing and converting its raw lines
+        again would give, so they are taken as kept.
+        """
+        out_v = {name: values[name] for name in self.site.channel_names if name in values}
+        out_s = {name: status[name] for name in out_v}
+        self._derive(times, out_v, out_s, [])
+        self._progress(times, out_v, out_s)
+        if times.size:
+            self._last_t = float(times[-1])
+        return out_v, out_s
 
     def _measure(self, times: np.ndarray, batch: Batch) -> None:
         """The measured channels as the log keeps them: cold junctions as reported, thermocouples converted, pyrometers as shown."""

@@ -1,8 +1,16 @@
 """Re-evaluating a recorded firing: conversion, reconciliation and alarms again, with other settings.
 
-The firing log is opened read-only and never changed: the raw lines are
-parsed again and run through a fresh :class:`~firewatch.firing.pipeline.Pipeline`
-and :class:`~firewatch.firing.alarms.AlarmEngine` in memory.
+The firing log is opened read-only and never changed. When the replay's
+site converts lines as every session of the log did (the same input,
+channels, thermocouple types and cold junctions: :func:`as_recorded`), the
+measured values the log keeps are exactly what parsing and converting its raw
+lines again would give, so they are read as kept, a block at a time, and a
+fresh :class:`~firewatch.firing.pipeline.Pipeline` computes the derived
+channels and progress on from them for a fresh
+:class:`~firewatch.firing.alarms.AlarmEngine`. Otherwise the raw lines are
+parsed again (in a second process) and run through both, placed on the time
+line anew. The two give the same alarms on a log replayed with its own site
+(tests/services/test_replay_paths.py).
 """
 
 from __future__ import annotations
@@ -14,8 +22,9 @@ from typing import Any
 import numpy as np
 
 from firewatch.firing.alarms import AlarmEngine, Transition
-from firewatch.firing.pipeline import Pipeline
+from firewatch.firing.pipeline import Pipeline, measurement_key
 from firewatch.services.recorder import GAP_S, make_parser
+from firewatch.settings._tomlcheck import ProfileError
 from firewatch.settings.profile import SiteProfile, load_site
 from firewatch.settings.schedule import Schedule, load_schedule
 from firewatch.store.reader import LogReader
@@ -95,7 +104,69 @@ def _batches(reader: LogReader, site: SiteProfile, clock: str):
             yield from batches
 
 
+def as_recorded(reader: LogReader, site: SiteProfile) -> bool:
+    """True when every session of the log converted its lines as ``site`` does (:func:`measurement_key`), so that the
+    measured values it keeps are what parsing its raw lines again would give."""
+    key = measurement_key(site)
+    fallback = reader.firing().get("site_profile") or ""
+    texts = {text or fallback for (text,) in reader.query("SELECT site_profile FROM session")}
+    for text in texts:
+        try:
+            if measurement_key(load_site(f"{reader.path} (site profile in the log)", text=text)) != key:
+                return False
+        except ProfileError:
+            return False
+    return bool(texts)
+
+
 def _reevaluate(reader: LogReader, site: SiteProfile, schedule: Schedule | None) -> Reevaluation:
+    if as_recorded(reader, site):
+        return _from_kept(reader, site, schedule)
+    return _from_raw(reader, site, schedule)
+
+
+_SAMPLES_PER_BATCH = 20_000
+
+
+def _from_kept(reader: LogReader, site: SiteProfile, schedule: Schedule | None) -> Reevaluation:
+    """Re-evaluate from the measured values as kept: derived channels, progress and alarms computed again."""
+    clock = reader.firing().get("clock") or "wall"
+    pipeline = Pipeline(site, schedule, clock)
+    engine = AlarmEngine(site, schedule)
+    result = Reevaluation(engine, None, None)
+    result.lines, result.malformed = reader.raw_counts()
+    # rejected lines are placed on the time line as the recorder logged them
+    malformed = np.array([t for (t,) in reader.query("SELECT t FROM event WHERE kind = 'malformed' ORDER BY t")], dtype=float)
+    span = reader.sample_span()
+    taken = 0
+    if span is not None:
+        lo, hi = span
+        for a in range(lo, hi + 1, _SAMPLES_PER_BATCH):
+            block = reader.block(a, min(a + _SAMPLES_PER_BATCH - 1, hi))
+            if not block.ids.size:
+                continue
+            times = block.t
+            values, status = pipeline.continue_measured(times, block.values, block.status)
+            upto = int(np.searchsorted(malformed, times[-1], side="right")) if a + _SAMPLES_PER_BATCH <= hi else malformed.size
+            engine.evaluate(times, values, status, malformed[taken:upto].tolist())
+            taken = upto
+            result.samples += int(times.size)
+            result.start_t = float(times[0]) if result.start_t is None else result.start_t
+            result.end_t = float(times[-1])
+            for name, v in values.items():
+                ok = np.flatnonzero(np.isfinite(v))
+                if ok.size:
+                    result.last[name] = float(v[ok[-1]])
+    if taken < malformed.size:
+        engine.evaluate(np.empty(0), {}, {}, malformed[taken:].tolist())
+    if result.end_t is not None:
+        engine.tick(result.end_t + GAP_S)
+    result.transitions = list(engine.transitions)
+    return result
+
+
+def _from_raw(reader: LogReader, site: SiteProfile, schedule: Schedule | None) -> Reevaluation:
+    """Re-evaluate from the raw lines: parsed, converted and placed on the time line again (another site's settings)."""
     clock = reader.firing().get("clock") or "wall"
     pipeline = Pipeline(site, schedule, clock)
     engine = AlarmEngine(site, schedule)

@@ -56,7 +56,7 @@ def rerun(log: Path, lines_per_batch: int = 3000) -> tuple[np.ndarray, dict[str,
         times: list[np.ndarray] = []
         plan: dict[str, list[np.ndarray]] = {name: [] for name in PLAN}
         batches = [pipeline.process([parser.parse(bytes(line), received) for received, line, _ in rows])
-                   for rows in r.raw_lines(lines_per_batch)]
+                   for rows in r.raw_lines(batch_size=lines_per_batch)]
     batches.append(pipeline.flush())
     last = None
     for batch in batches:
