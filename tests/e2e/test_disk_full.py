@@ -209,10 +209,11 @@ def _limit_file_size(limit: int):
 
 def test_file_size_limit_then_raised_loses_nothing(tmp_path: Path) -> None:
     """Issue 10, without root: the log meets a file-size limit (ulimit -f), which is raised later; nothing is lost."""
-    sim, port = start_sim_tcp("--speed", "300")
+    # the compact log grows about 80 bytes a line: at 600 lines a second it meets 1.5 MiB in about half a minute
+    sim, port = start_sim_tcp("--speed", "600")
     log = tmp_path / "k.db"
     rec = firewatch("record", "--port", f"socket://127.0.0.1:{port}", "--log", str(log), "--clock", "device",
-                    preexec_fn=_limit_file_size(2 << 20))
+                    preexec_fn=_limit_file_size(3 << 19))
     err = Stderr(rec)
     try:
         wait_for(lambda: err.has("cannot write"), timeout=90)
@@ -229,7 +230,7 @@ def test_file_size_limit_then_raised_loses_nothing(tmp_path: Path) -> None:
     assert rec.returncode == 0 and "Traceback" not in text, text
     (said,) = [line for line in text.splitlines() if "cannot write" in line]
     assert said.split(" WARNING firewatch.services.recorder: ", 1)[1].startswith(
-        f"cannot write to {log}: the file size limit (ulimit -f) of 2.0 MiB is reached")
+        f"cannot write to {log}: the file size limit (ulimit -f) of 1.5 MiB is reached")
     check_nothing_lost(log, text)
 
 
