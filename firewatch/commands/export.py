@@ -4,17 +4,32 @@ from __future__ import annotations
 
 import argparse
 import csv
+import multiprocessing
+import os
 import sys
+from collections import deque
+from multiprocessing.pool import AsyncResult
+from typing import TYPE_CHECKING, TextIO
 
 import numpy as np
 
 from firewatch.commands._args import UsageError
-from firewatch.commands._common import iso, open_log
+from firewatch.commands._common import open_log
+
+if TYPE_CHECKING:
+    from firewatch.store.derive import Deriver
+    from firewatch.store.reader import LogReader
 
 __all__ = ["add_parser", "run", "export_csv"]
 
 PAGE = 20_000
 """Samples read, recomputed and written at a time (bounded memory whatever the log's length)."""
+
+TASK = 4 * PAGE
+"""Samples a worker process turns into text at a time (its derived channels read from the rate window before)."""
+
+WORKERS = 2
+"""Worker processes at most: reading, recomputing and formatting share out evenly, and the writing is light."""
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -38,6 +53,22 @@ def _times(t: np.ndarray) -> list[str]:
     return np.datetime_as_string(secs.astype("datetime64[s]"), unit="s").tolist()
 
 
+def _combos(codes: np.ndarray) -> tuple[list[tuple[int, ...]], np.ndarray]:
+    """The distinct rows of a small non-negative integer matrix, and which one each row is.
+
+    Each row is folded into one integer first: numpy's ``unique`` over rows
+    sorts them as records, about fifty times slower than over integers.
+    """
+    n, k = codes.shape
+    base = int(codes.max(initial=0)) + 1
+    if k == 0 or base ** k >= 2**63:  # too many columns to fold into an int64: rows as records
+        combos, which = np.unique(codes, axis=0, return_inverse=True)
+        return [tuple(c) for c in combos.tolist()], which.ravel()
+    folded = codes.astype(np.int64) @ (base ** np.arange(k, dtype=np.int64))
+    keys, first, which = np.unique(folded, return_index=True, return_inverse=True)
+    return [tuple(c) for c in codes[first].tolist()], which.ravel()
+
+
 def _flags(statuses: list[tuple[str, np.ndarray]], words: dict[int, str], n: int) -> list[str]:
     """Each sample's measured statuses other than ok, ``name:status`` joined by spaces ("" for none).
 
@@ -46,10 +77,9 @@ def _flags(statuses: list[tuple[str, np.ndarray]], words: dict[int, str], n: int
     """
     if not statuses:
         return [""] * n
-    codes = np.stack([st for _, st in statuses], axis=1)
-    combos, which = np.unique(codes, axis=0, return_inverse=True)
-    texts = [" ".join(f"{name}:{words.get(c, c)}" for (name, _), c in zip(statuses, combo) if c) for combo in combos.tolist()]
-    return np.array(texts, dtype=object)[which.ravel()].tolist()
+    combos, which = _combos(np.stack([st for _, st in statuses], axis=1))
+    texts = [" ".join(f"{name}:{words.get(c, c)}" for (name, _), c in zip(statuses, combo) if c) for combo in combos]
+    return np.array(texts, dtype=object)[which].tolist()
 
 
 def _rows(columns: list[np.ndarray | list[str]], kinds: str) -> str:
@@ -58,75 +88,141 @@ def _rows(columns: list[np.ndarray | list[str]], kinds: str) -> str:
     ``kinds`` has a letter per column: ``s`` text as it is, ``z`` a UTC time followed by Z, ``r`` a float as
     Python's shortest repr (it reads back to the same float64), ``g`` a float to
     6 significant digits, ``f`` a float to 3 decimals; a NaN float is an empty field.
+    Each distinct pattern of empty fields in the page gets its row format (a
+    handful: a pyrometer below its range, progress every 10 s), so an empty
+    field costs nothing and no text is searched afterwards.
     """
-    n = len(columns[0])
-    grid = np.empty((n, len(columns)), dtype=object)
+    n, k = len(columns[0]), len(columns)
+    spec = {"z": "%sZ", "s": "%s", "r": "%r", "g": "%.6g", "f": "%.3f"}
+    empty = np.zeros((n, k), dtype=np.int8)
+    grid = np.empty((n, k), dtype=object)
     for j, col in enumerate(columns):
         grid[:, j] = col
-    spec = {"z": "%sZ", "s": "%s", "r": "%r", "g": "%.6g", "f": "%.3f"}
-    row = ",".join(spec[k] for k in kinds) + "\r\n"
-    text = (row * n) % tuple(grid.ravel().tolist())
-    # a NaN came out as "nan"; no other field can be exactly that (the flags come last and are name:status)
-    return text.replace(",nan,", ",,").replace(",nan,", ",,")
+        if isinstance(col, np.ndarray) and col.dtype.kind == "f":
+            empty[:, j] = np.isnan(col)
+    patterns, which = _combos(empty)
+    formats = [",".join("" if e else spec[kind] for e, kind in zip(pattern, kinds)) + "\r\n" for pattern in patterns]
+    return "".join(np.array(formats, dtype=object)[which].tolist()) % tuple(grid[empty == 0].tolist())
 
 
-def export_csv(reader, out) -> int:
+class _Layout:
+    """What every page needs to know of the log: its channels, the firing's start, how each column is written."""
+
+    def __init__(self, reader: LogReader) -> None:
+        from firewatch.store.layout import STEP_KIND, step_column
+        from firewatch.transport.records import Status
+
+        self.channels = [(int(r[0]), str(r[1]), str(r[2])) for r in reader.query("SELECT id, name, unit FROM channel ORDER BY id")]
+        measured, other = reader._channels()
+        self.measured = set(measured)
+        self.start: float | None = reader.firing().get("started_t")
+        self.words = {int(s): Status(s).name.lower() for s in Status}
+        self.progress = [name for _, name, _ in self.channels if name not in measured and other[name][1] == STEP_KIND]
+        self.steps = ", ".join(step_column(other[name][0]) for name in self.progress)
+        self.kinds = ("z" + ("s" if self.start is None else "f") + "".join("r" if name in measured else "g" for _, name, _ in self.channels)
+                      + "s")
+
+
+def _page(reader: LogReader, deriver: Deriver, layout: _Layout, a: int, b: int) -> tuple[str, int]:
+    """Samples ``a`` to ``b`` as CSV rows, and how many."""
+    block = reader.block(a, b)
+    n = block.ids.size
+    if not n:
+        return "", 0
+    derived = deriver.derive(a, b, block)
+    start = layout.start
+    columns: list[np.ndarray | list[str]] = [_times(block.t), [""] * n if start is None else block.t - start]
+    bad: list[tuple[str, np.ndarray]] = []
+    placed: dict[str, np.ndarray] = {}
+    if layout.progress:
+        got = reader.query(f"SELECT sample_id, {layout.steps} FROM step WHERE sample_id BETWEEN ? AND ?", (a, b))
+        if got:
+            arr = np.array(got, dtype=float).reshape(len(got), len(layout.progress) + 1)  # NULL becomes NaN
+            at = np.searchsorted(block.ids, arr[:, 0].astype(np.int64))
+            for k, name in enumerate(layout.progress):
+                col = np.full(n, np.nan)
+                col[at] = arr[:, k + 1]
+                placed[name] = col
+    for _, name, _ in layout.channels:
+        if name in layout.measured:
+            has = block.has[name]
+            columns.append(np.where(has, block.values[name], np.nan))
+            bad.append((name, np.where(has, block.status[name], 0)))
+        elif name in placed:
+            columns.append(placed[name])
+        else:
+            got_v = derived.values.get(name)
+            columns.append(got_v if got_v is not None and got_v.size == n else np.full(n, np.nan))
+    columns.append(_flags(bad, layout.words, n))
+    return _rows(columns, layout.kinds), n
+
+
+_worker: tuple[LogReader, _Layout] | None = None
+"""A worker process's own reader (SQLite connections are not shared across a fork) and the layout."""
+
+
+def _worker_start(path: str, layout: _Layout) -> None:
+    from firewatch.store.reader import LogReader
+
+    global _worker
+    _worker = (LogReader(path), layout)
+
+
+def _worker_pages(a: int, b: int) -> tuple[str, int]:
+    assert _worker is not None
+    return _task(*_worker, a, b)
+
+
+def _task(reader: LogReader, layout: _Layout, a: int, b: int) -> tuple[str, int]:
+    """Samples ``a`` to ``b`` (at most :data:`TASK`), a page at a time, as CSV rows, and how many."""
+    from firewatch.store.derive import Deriver
+
+    # a deriver of its own per task (its rates from the window before it), in a worker or not:
+    # the text does not depend on how many workers there were or how the tasks fell to them
+    deriver = Deriver(reader)
+    texts, rows = [], 0
+    for x in range(a, b + 1, PAGE):
+        text, n = _page(reader, deriver, layout, x, min(x + PAGE - 1, b))
+        texts.append(text)
+        rows += n
+    return "".join(texts), rows
+
+
+def export_csv(reader: LogReader, out: TextIO, workers: int | None = None) -> int:
     """Write the CSV; return the number of rows.
 
     Streams :data:`PAGE` samples at a time: the measured readings are read once
     a page, the derived channels recomputed from them (:class:`~firewatch.store.derive.Deriver`
-    carries the rate history from page to page), and the page is formatted in one go.
+    carries the rate history from page to page within a task of :data:`TASK` samples), and the
+    page is formatted in one go. A log of more than :data:`TASK` samples is shared out to ``workers`` processes
+    (by default one per core, at most :data:`WORKERS`), :data:`TASK` samples at a time
+    and at most two tasks ahead per worker; the rows are written in order as they come back.
     """
-    from firewatch.store.derive import Deriver
-    from firewatch.store.layout import STEP_KIND, step_column
-    from firewatch.transport.records import Status
-
-    channels = reader.query("SELECT id, name, unit, kind FROM channel ORDER BY id")
-    measured, other = reader._channels()
-    start = reader.firing().get("started_t")
-    csv.writer(out).writerow(["time_utc", "elapsed_s"] + [f"{name} [{unit}]" for _, name, unit, _ in channels] + ["flags"])
+    layout = _Layout(reader)
+    csv.writer(out).writerow(["time_utc", "elapsed_s"] + [f"{name} [{unit}]" for _, name, unit in layout.channels] + ["flags"])
     span = reader.sample_span()
     if span is None:
         return 0
-    words = {int(s): Status(s).name.lower() for s in Status}
-    progress = [(cid, name) for cid, name, _, _ in channels if name not in measured and other[name][1] == STEP_KIND]
-    steps = ", ".join(step_column(cid) for cid, _ in progress)
-    kinds = "z" + ("s" if start is None else "f") + "".join("r" if name in measured else "g" for _, name, _, _ in channels) + "s"
-    deriver = Deriver(reader)
-    rows = 0
     lo, hi = span
-    for a in range(lo, hi + 1, PAGE):
-        b = min(a + PAGE - 1, hi)
-        block = reader.block(a, b)
-        if not block.ids.size:
-            continue
-        derived = deriver.derive(a, b, block)
-        n = block.ids.size
-        columns: list[np.ndarray | list[str]] = [_times(block.t), [""] * n if start is None else block.t - start]
-        bad: list[tuple[str, np.ndarray]] = []
-        placed: dict[str, np.ndarray] = {}
-        if progress:
-            got = reader.query(f"SELECT sample_id, {steps} FROM step WHERE sample_id BETWEEN ? AND ?", (a, b))
-            if got:
-                arr = np.array(got, dtype=float).reshape(len(got), len(progress) + 1)  # NULL becomes NaN
-                at = np.searchsorted(block.ids, arr[:, 0].astype(np.int64))
-                for k, (_, name) in enumerate(progress):
-                    col = np.full(n, np.nan)
-                    col[at] = arr[:, k + 1]
-                    placed[name] = col
-        for cid, name, _, _ in channels:
-            if name in measured:
-                has = block.has[name]
-                columns.append(np.where(has, block.values[name], np.nan))
-                bad.append((name, np.where(has, block.status[name], 0)))
-            elif name in placed:
-                columns.append(placed[name])
-            else:
-                got_v = derived.values.get(name)
-                columns.append(got_v if got_v is not None and got_v.size == n else np.full(n, np.nan))
-        columns.append(_flags(bad, words, n))
-        out.write(_rows(columns, kinds))
-        rows += n
+    workers = min(WORKERS, os.cpu_count() or 1) if workers is None else workers
+    tasks = deque((a, min(a + TASK - 1, hi)) for a in range(lo, hi + 1, TASK))
+    if workers < 2 or len(tasks) < 2 or "fork" not in multiprocessing.get_all_start_methods():
+        rows = 0
+        for a, b in tasks:
+            text, n = _task(reader, layout, a, b)
+            out.write(text)
+            rows += n
+        return rows
+    # fork: the workers start at once with what is imported; the log's path is that of the file actually read
+    with multiprocessing.get_context("fork").Pool(workers, _worker_start, (str(reader.readings_path()), layout)) as pool:
+        pending: deque[AsyncResult[tuple[str, int]]] = deque()
+        rows = 0
+        while tasks or pending:
+            while tasks and len(pending) < 2 * workers:  # bounded: at most this many tasks' text held at once
+                pending.append(pool.apply_async(_worker_pages, tasks.popleft()))
+            text, n = pending.popleft().get()
+            out.write(text)
+            rows += n
     return rows
 
 

@@ -75,3 +75,13 @@ def test_a_page_formats_as_per_value_formatting_nan_empty_even_side_by_side() ->
                    for a, b, c, d, e, f, g in zip(*(c.tolist() if isinstance(c, np.ndarray) else c for c in cols)))
     assert text == want
     assert text.split("\r\n")[1].split(",")[2] == "0.30000000000000004"  # shortest repr, not rounded (Python float repr)
+
+
+def test_worker_processes_give_the_same_text_as_one_process(log: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    # the tasks fall to forked workers in whatever order they finish; each recomputes its rates from the window before it
+    monkeypatch.setattr(export, "PAGE", 300)
+    monkeypatch.setattr(export, "TASK", 900)
+    with LogReader(log) as reader:
+        one, two = io.StringIO(newline=""), io.StringIO(newline="")
+        assert export.export_csv(reader, one, workers=1) == export.export_csv(reader, two, workers=2) == 45 * 60
+    assert one.getvalue() == two.getvalue()
