@@ -8,8 +8,9 @@ import multiprocessing
 import os
 import sys
 from collections import deque
+from collections.abc import Callable
 from multiprocessing.pool import AsyncResult
-from typing import TYPE_CHECKING, TextIO
+from typing import TYPE_CHECKING, Protocol, TextIO
 
 import numpy as np
 
@@ -65,7 +66,7 @@ def _combos(codes: np.ndarray) -> tuple[list[tuple[int, ...]], np.ndarray]:
         combos, which = np.unique(codes, axis=0, return_inverse=True)
         return [tuple(c) for c in combos.tolist()], which.ravel()
     folded = codes.astype(np.int64) @ (base ** np.arange(k, dtype=np.int64))
-    keys, first, which = np.unique(folded, return_index=True, return_inverse=True)
+    _, first, which = np.unique(folded, return_index=True, return_inverse=True)
     return [tuple(c) for c in codes[first].tolist()], which.ravel()
 
 
@@ -103,6 +104,10 @@ def _rows(columns: list[np.ndarray | list[str]], kinds: str) -> str:
     patterns, which = _combos(empty)
     formats = [",".join("" if e else spec[kind] for e, kind in zip(pattern, kinds)) + "\r\n" for pattern in patterns]
     return "".join(np.array(formats, dtype=object)[which].tolist()) % tuple(grid[empty == 0].tolist())
+
+
+class _Sink(Protocol):
+    def write(self, text: str, /) -> int: ...
 
 
 class _Layout:
@@ -188,7 +193,7 @@ def _task(reader: LogReader, layout: _Layout, a: int, b: int) -> tuple[str, int]
     return "".join(texts), rows
 
 
-def export_csv(reader: LogReader, out: TextIO, workers: int | None = None) -> int:
+def export_csv(reader: LogReader, out: _Sink, workers: int | None = None, ready: Callable[[], None] | None = None) -> int:
     """Write the CSV; return the number of rows.
 
     Streams :data:`PAGE` samples at a time: the measured readings are read once
@@ -197,16 +202,19 @@ def export_csv(reader: LogReader, out: TextIO, workers: int | None = None) -> in
     page is formatted in one go. A log of more than :data:`TASK` samples is shared out to ``workers`` processes
     (by default one per core, at most :data:`WORKERS`), :data:`TASK` samples at a time
     and at most two tasks ahead per worker; the rows are written in order as they come back.
+    ``ready`` runs before anything is written (the integrity check: it may raise), while the
+    workers have begun.
     """
     layout = _Layout(reader)
-    csv.writer(out).writerow(["time_utc", "elapsed_s"] + [f"{name} [{unit}]" for _, name, unit in layout.channels] + ["flags"])
+    header = ["time_utc", "elapsed_s"] + [f"{name} [{unit}]" for _, name, unit in layout.channels] + ["flags"]
     span = reader.sample_span()
-    if span is None:
-        return 0
-    lo, hi = span
+    lo, hi = span if span is not None else (1, 0)
     workers = min(WORKERS, os.cpu_count() or 1) if workers is None else workers
     tasks = deque((a, min(a + TASK - 1, hi)) for a in range(lo, hi + 1, TASK))
     if workers < 2 or len(tasks) < 2 or "fork" not in multiprocessing.get_all_start_methods():
+        if ready is not None:
+            ready()
+        csv.writer(out).writerow(header)
         rows = 0
         for a, b in tasks:
             text, n = _task(reader, layout, a, b)
@@ -216,6 +224,11 @@ def export_csv(reader: LogReader, out: TextIO, workers: int | None = None) -> in
     # fork: the workers start at once with what is imported; the log's path is that of the file actually read
     with multiprocessing.get_context("fork").Pool(workers, _worker_start, (str(reader.readings_path()), layout)) as pool:
         pending: deque[AsyncResult[tuple[str, int]]] = deque()
+        while tasks and len(pending) < 2 * workers:
+            pending.append(pool.apply_async(_worker_pages, tasks.popleft()))
+        if ready is not None:
+            ready()  # here, on a core the workers leave free while they start
+        csv.writer(out).writerow(header)
         rows = 0
         while tasks or pending:
             while tasks and len(pending) < 2 * workers:  # bounded: at most this many tasks' text held at once
@@ -226,14 +239,43 @@ def export_csv(reader: LogReader, out: TextIO, workers: int | None = None) -> in
     return rows
 
 
+class _Output:
+    """The output file, created at the first write: a log refused by its integrity check leaves none."""
+
+    def __init__(self, path: str) -> None:
+        self.path = path
+        self._file: TextIO | None = None
+
+    def write(self, text: str) -> int:
+        if self._file is None:
+            self._file = open(self.path, "w", newline="", encoding="utf-8")
+        return self._file.write(text)
+
+    def close(self) -> None:
+        if self._file is not None:
+            self._file.close()
+
+
 def run(args: argparse.Namespace) -> int:
-    with open_log(args.log) as reader:
+    from firewatch.store._common import damage_error
+
+    # the integrity check (open_log's) runs while the workers begin, and before anything is written
+    with open_log(args.log, check=False) as reader:
+
+        def ready() -> None:
+            problems = reader.integrity(limit=20)
+            if problems:
+                raise damage_error(args.log, problems)
+
         if args.csv == "-":
-            export_csv(reader, sys.stdout)
+            export_csv(reader, sys.stdout, ready=ready)
             return 0
+        out = _Output(args.csv)
         try:
-            with open(args.csv, "w", newline="", encoding="utf-8") as out:
-                rows = export_csv(reader, out)
+            try:
+                rows = export_csv(reader, out, ready=ready)
+            finally:
+                out.close()
         except OSError as exc:
             raise UsageError(f"--csv: cannot write {args.csv!r}: {exc.strerror}") from None
     print(f"firewatch export: {rows} rows to {args.csv}", file=sys.stderr)
