@@ -70,40 +70,43 @@ def _combos(codes: np.ndarray) -> tuple[list[tuple[int, ...]], np.ndarray]:
     return [tuple(c) for c in codes[first].tolist()], which.ravel()
 
 
-def _flags(statuses: list[tuple[str, np.ndarray]], words: dict[int, str], n: int) -> list[str]:
-    """Each sample's measured statuses other than ok, ``name:status`` joined by spaces ("" for none).
+def _flags(statuses: list[tuple[str, np.ndarray]], words: dict[int, str], n: int) -> tuple[list[str], np.ndarray]:
+    """Each sample's measured statuses other than ok, ``name:status`` joined by spaces ("" for none),
+    as the distinct texts in the page and which one each sample has.
 
     Built once per distinct combination of statuses in the page (a handful:
     a status lasts), not once per sample.
     """
     if not statuses:
-        return [""] * n
+        return [""], np.zeros(n, dtype=np.int64)
     combos, which = _combos(np.stack([st for _, st in statuses], axis=1))
-    texts = [" ".join(f"{name}:{words.get(c, c)}" for (name, _), c in zip(statuses, combo) if c) for combo in combos]
-    return np.array(texts, dtype=object)[which].tolist()
+    return [" ".join(f"{name}:{words.get(c, c)}" for (name, _), c in zip(statuses, combo) if c) for combo in combos], which
 
 
-def _rows(columns: list[np.ndarray | list[str]], kinds: str) -> str:
-    """The rows of a page as CSV text: one ``%`` formatting of the page, in C.
+def _rows(times: list[str], values: np.ndarray, kinds: str, flags: tuple[list[str], np.ndarray]) -> str:
+    """The rows of a page as CSV text: the time, a field per column of ``values``, the flags.
 
-    ``kinds`` has a letter per column: ``s`` text as it is, ``z`` a UTC time followed by Z, ``r`` a float as
-    Python's shortest repr (it reads back to the same float64), ``g`` a float to
-    6 significant digits, ``f`` a float to 3 decimals; a NaN float is an empty field.
-    Each distinct pattern of empty fields in the page gets its row format (a
-    handful: a pyrometer below its range, progress every 10 s), so an empty
-    field costs nothing and no text is searched afterwards.
+    ``kinds`` has a letter per column of ``values``: ``r`` Python's shortest repr
+    (it reads back to the same float64), ``g`` 6 significant digits, ``f`` 3
+    decimals; NaN is an empty field. Formatting is one ``%`` of the page, in C
+    (per-value Python formatting took most of the export's time): each distinct
+    pattern of empty fields in the page gets its row format (a handful: a
+    pyrometer below its range, progress every 10 s), the time and the flags go
+    into the format as text, and the values are the arguments.
     """
-    n, k = len(columns[0]), len(columns)
-    spec = {"z": "%sZ", "s": "%s", "r": "%r", "g": "%.6g", "f": "%.3f"}
-    empty = np.zeros((n, k), dtype=np.int8)
-    grid = np.empty((n, k), dtype=object)
-    for j, col in enumerate(columns):
-        grid[:, j] = col
-        if isinstance(col, np.ndarray) and col.dtype.kind == "f":
-            empty[:, j] = np.isnan(col)
-    patterns, which = _combos(empty)
-    formats = [",".join("" if e else spec[kind] for e, kind in zip(pattern, kinds)) + "\r\n" for pattern in patterns]
-    return "".join(np.array(formats, dtype=object)[which].tolist()) % tuple(grid[empty == 0].tolist())
+    spec = {"r": "%r", "g": "%.6g", "f": "%.3f"}
+    empty = np.isnan(values)
+    patterns, which = _combos(empty.view(np.int8))
+    middle = np.array(["," + ",".join("" if e else spec[kind] for e, kind in zip(pattern, kinds)) + ","
+                       for pattern in patterns], dtype=object)
+    texts, flag_of = flags
+    # "%" in a flag (a channel's name) must not be read as a conversion
+    ends = np.array([t.replace("%", "%%") + "\r\n" for t in texts], dtype=object)
+    pieces = np.empty((len(times), 3), dtype=object)
+    pieces[:, 0] = [f"{t}Z" for t in times]
+    pieces[:, 1] = middle[which]
+    pieces[:, 2] = ends[flag_of]
+    return "".join(pieces.ravel().tolist()) % tuple(values[~empty].tolist())
 
 
 class _Sink(Protocol):
@@ -124,8 +127,8 @@ class _Layout:
         self.words = {int(s): Status(s).name.lower() for s in Status}
         self.progress = [name for _, name, _ in self.channels if name not in measured and other[name][1] == STEP_KIND]
         self.steps = ", ".join(step_column(other[name][0]) for name in self.progress)
-        self.kinds = ("z" + ("s" if self.start is None else "f") + "".join("r" if name in measured else "g" for _, name, _ in self.channels)
-                      + "s")
+        self.kinds = "f" + "".join("r" if name in measured else "g" for _, name, _ in self.channels)
+        """How each value column is written (:func:`_rows`): the elapsed time, then every channel."""
 
 
 def _page(reader: LogReader, deriver: Deriver, layout: _Layout, a: int, b: int) -> tuple[str, int]:
@@ -136,7 +139,8 @@ def _page(reader: LogReader, deriver: Deriver, layout: _Layout, a: int, b: int) 
         return "", 0
     derived = deriver.derive(a, b, block)
     start = layout.start
-    columns: list[np.ndarray | list[str]] = [_times(block.t), [""] * n if start is None else block.t - start]
+    values = np.empty((n, len(layout.channels) + 1))
+    values[:, 0] = np.nan if start is None else block.t - start
     bad: list[tuple[str, np.ndarray]] = []
     placed: dict[str, np.ndarray] = {}
     if layout.progress:
@@ -148,18 +152,17 @@ def _page(reader: LogReader, deriver: Deriver, layout: _Layout, a: int, b: int) 
                 col = np.full(n, np.nan)
                 col[at] = arr[:, k + 1]
                 placed[name] = col
-    for _, name, _ in layout.channels:
+    for j, (_, name, _) in enumerate(layout.channels, start=1):
         if name in layout.measured:
             has = block.has[name]
-            columns.append(np.where(has, block.values[name], np.nan))
+            values[:, j] = np.where(has, block.values[name], np.nan)
             bad.append((name, np.where(has, block.status[name], 0)))
         elif name in placed:
-            columns.append(placed[name])
+            values[:, j] = placed[name]
         else:
             got_v = derived.values.get(name)
-            columns.append(got_v if got_v is not None and got_v.size == n else np.full(n, np.nan))
-    columns.append(_flags(bad, layout.words, n))
-    return _rows(columns, layout.kinds), n
+            values[:, j] = got_v if got_v is not None and got_v.size == n else np.nan
+    return _rows(_times(block.t), values, layout.kinds, _flags(bad, layout.words, n)), n
 
 
 _worker: tuple[LogReader, _Layout] | None = None

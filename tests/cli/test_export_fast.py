@@ -67,14 +67,16 @@ def test_times_a_page_at_once_are_iso_per_value(whole: float, frac: float) -> No
 
 def test_a_page_formats_as_per_value_formatting_nan_empty_even_side_by_side() -> None:
     nan = math.nan
-    cols = [["2026-03-14T05:00:01", "2026-03-14T05:00:02"], np.array([0.0, 1.0]), np.array([nan, 0.1 + 0.2]),
-            np.array([nan, nan]), np.array([nan, 123456.789]), np.array([1e-7, nan]), ["tc2:open", ""]]
-    text = export._rows(cols, "zfrggrs")
-    want = "".join(",".join([f"{a}Z", f"{b:.3f}", "" if c != c else repr(c), "" if d != d else f"{d:.6g}",
-                             "" if e != e else f"{e:.6g}", "" if f != f else repr(f), g]) + "\r\n"
-                   for a, b, c, d, e, f, g in zip(*(c.tolist() if isinstance(c, np.ndarray) else c for c in cols)))
+    times = ["2026-03-14T05:00:01", "2026-03-14T05:00:02", "2026-03-14T05:00:03"]
+    values = np.array([[0.0, nan, nan, nan, 1e-7], [1.0, 0.1 + 0.2, nan, 123456.789, nan], [2.5, -0.0, 5e-324, nan, 1e300]])
+    flags = (["", "tc2:open", "odd%sname:under"], np.array([1, 0, 2]))
+    text = export._rows(times, values, "frggr", flags)
+    want = "".join(",".join([f"{t}Z", f"{a:.3f}", "" if b != b else repr(b), "" if c != c else f"{c:.6g}",
+                             "" if d != d else f"{d:.6g}", "" if e != e else repr(e), flags[0][k]]) + "\r\n"
+                   for t, (a, b, c, d, e), k in zip(times, values.tolist(), flags[1].tolist()))
     assert text == want
     assert text.split("\r\n")[1].split(",")[2] == "0.30000000000000004"  # shortest repr, not rounded (Python float repr)
+    assert text.split("\r\n")[2].endswith(",odd%sname:under")  # a "%" in a name is text, not a conversion
 
 
 def test_worker_processes_give_the_same_text_as_one_process(log: Path, monkeypatch: pytest.MonkeyPatch) -> None:
