@@ -10,7 +10,7 @@ import sys
 from collections import deque
 from collections.abc import Callable
 from multiprocessing.pool import AsyncResult
-from typing import TYPE_CHECKING, Protocol, TextIO
+from typing import TYPE_CHECKING, BinaryIO, Protocol
 
 import numpy as np
 
@@ -176,9 +176,10 @@ def _worker_start(path: str, layout: _Layout) -> None:
     _worker = (LogReader(path), layout)
 
 
-def _worker_pages(a: int, b: int) -> tuple[str, int]:
+def _worker_pages(a: int, b: int) -> tuple[bytes, int]:
     assert _worker is not None
-    return _task(*_worker, a, b)
+    text, rows = _task(*_worker, a, b)
+    return text.encode("utf-8"), rows  # bytes cross the pipe as they are; a str would be encoded twice over
 
 
 def _task(reader: LogReader, layout: _Layout, a: int, b: int) -> tuple[str, int]:
@@ -226,7 +227,7 @@ def export_csv(reader: LogReader, out: _Sink, workers: int | None = None, ready:
         return rows
     # fork: the workers start at once with what is imported; the log's path is that of the file actually read
     with multiprocessing.get_context("fork").Pool(workers, _worker_start, (str(reader.readings_path()), layout)) as pool:
-        pending: deque[AsyncResult[tuple[str, int]]] = deque()
+        pending: deque[AsyncResult[tuple[bytes, int]]] = deque()
         while tasks and len(pending) < 2 * workers:
             pending.append(pool.apply_async(_worker_pages, tasks.popleft()))
         if ready is not None:
@@ -236,23 +237,29 @@ def export_csv(reader: LogReader, out: _Sink, workers: int | None = None, ready:
         while tasks or pending:
             while tasks and len(pending) < 2 * workers:  # bounded: at most this many tasks' text held at once
                 pending.append(pool.apply_async(_worker_pages, tasks.popleft()))
-            text, n = pending.popleft().get()
-            out.write(text)
+            data, n = pending.popleft().get()
+            if isinstance(out, _Output):
+                out.write_bytes(data)
+            else:
+                out.write(data.decode("utf-8"))
             rows += n
     return rows
 
 
 class _Output:
-    """The output file, created at the first write: a log refused by its integrity check leaves none."""
+    """The output file in UTF-8, created at the first write: a log refused by its integrity check leaves none."""
 
     def __init__(self, path: str) -> None:
         self.path = path
-        self._file: TextIO | None = None
+        self._file: BinaryIO | None = None
+
+    def write_bytes(self, data: bytes) -> int:
+        if self._file is None:
+            self._file = open(self.path, "wb")
+        return self._file.write(data)
 
     def write(self, text: str) -> int:
-        if self._file is None:
-            self._file = open(self.path, "w", newline="", encoding="utf-8")
-        return self._file.write(text)
+        return self.write_bytes(text.encode("utf-8"))
 
     def close(self) -> None:
         if self._file is not None:

@@ -87,3 +87,26 @@ def test_worker_processes_give_the_same_text_as_one_process(log: Path, monkeypat
         one, two = io.StringIO(newline=""), io.StringIO(newline="")
         assert export.export_csv(reader, one, workers=1) == export.export_csv(reader, two, workers=2) == 45 * 60
     assert one.getvalue() == two.getvalue()
+
+
+def test_the_command_with_workers_writes_the_same_file_and_a_damaged_log_leaves_none(log: Path, tmp_path: Path,
+                                                                                     monkeypatch: pytest.MonkeyPatch) -> None:
+    import argparse
+
+    from firewatch.store._common import LogDamaged
+    from tests.damage import overwrite_middle
+
+    monkeypatch.setattr(export, "PAGE", 300)
+    monkeypatch.setattr(export, "TASK", 900)
+    monkeypatch.setattr(export.os, "cpu_count", lambda: 2)  # the workers' path whatever the machine
+    out = tmp_path / "out.csv"
+    assert export.run(argparse.Namespace(log=str(log), csv=str(out))) == 0
+    with LogReader(log) as reader:
+        one = io.StringIO(newline="")
+        export.export_csv(reader, one, workers=1)
+    assert out.read_bytes() == one.getvalue().encode("utf-8")
+    # the integrity check runs while the workers begin: its refusal still comes before any output (issue 10)
+    bad = overwrite_middle(log, tmp_path / "bad.db")
+    with pytest.raises(LogDamaged, match="damaged"):
+        export.run(argparse.Namespace(log=str(bad), csv=str(tmp_path / "bad.csv")))
+    assert not (tmp_path / "bad.csv").exists()
