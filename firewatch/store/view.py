@@ -33,7 +33,7 @@ from firewatch.firing.alarms.causes import CauseStep, cause_label, cause_steps, 
 from firewatch.settings._tomlcheck import ProfileError
 from firewatch.settings.profile import AlarmSettings, SiteProfile, load_site
 from firewatch.settings.schedule import Schedule, load_schedule
-from firewatch.store.derive import DerivedBlock, derived_block
+from firewatch.store.derive import DerivedBlock, Deriver, derived_block
 from firewatch.store.layout import STEP_KIND, column, step_column
 from firewatch.store.reader import LogReader
 from firewatch.transport.records import Status
@@ -197,6 +197,7 @@ class FiringView:
         self._latest: tuple[int, dict[str, tuple[float, float, int]]] = (-1, {})
         self._derived_cache: DerivedBlock | None = None
         self.refresh_bounds()
+        Deriver(self.reader).prepare()  # the band tables, built once here rather than by the first seek
 
     @property
     def no_data_s(self) -> float:
