@@ -44,7 +44,7 @@ from pathlib import Path
 import numpy as np
 
 from firewatch.firing.progress import PLAN_CHANNELS, ProgressTracker
-from firewatch.firing.rates import TrailingSlope
+from firewatch.firing.rates import TrailingSlopes
 from firewatch.physics._warnings import FirewatchWarning
 from firewatch.physics.bands import Band
 from firewatch.physics.corrections import correct_ratio, correct_single_band
@@ -204,7 +204,8 @@ class Pipeline:
                 band = Band(*py.band_um)
             band2 = Band(*py.band2_um) if py.kind == "ratio" and py.band2_um else None
             self._bands[py.name] = (band, band2)
-        self._rates = {tc.name: TrailingSlope(site.alarms.rate_window_s) for tc in site.thermocouples}
+        # every thermocouple's rate in one call a batch (issue 15)
+        self._rates = TrailingSlopes(site.alarms.rate_window_s, len(site.thermocouples))
         self._last_t = -math.inf
         self._fallback_noted: set[str] = set()
         self._anchor: tuple[float, float, float] | None = None
@@ -465,10 +466,12 @@ class Pipeline:
         site = self.site
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", FirewatchWarning)  # out-of-range becomes a status below
-            for tc in site.thermocouples:
-                rate = self._rates[tc.name].update(times, out_v[tc.name]) * 3600.0
-                out_v[f"{tc.name}.rate"] = rate
-                out_s[f"{tc.name}.rate"] = np.where(np.isnan(rate), int(Status.MISSING), int(Status.OK))
+            tcs = site.thermocouples
+            if tcs:
+                rates = self._rates.update(times, np.stack([out_v[tc.name] for tc in tcs])) * 3600.0
+                statuses = np.where(np.isnan(rates), int(Status.MISSING), int(Status.OK))
+                for tc, rate, status in zip(tcs, rates, statuses):
+                    out_v[f"{tc.name}.rate"], out_s[f"{tc.name}.rate"] = rate, status
             for py in site.pyrometers:
                 self._pyrometer(py, times, out_v, out_s, events)
 
@@ -484,9 +487,11 @@ class Pipeline:
             self._anchor = (float(own), float(received), float(t))
             self._offset = float(t) - float(own)
         rates: dict[str, np.ndarray] = {}
-        for tc in self.site.thermocouples:
-            if tc.name in values:
-                rates[tc.name] = self._rates[tc.name].update(times, values[tc.name]) * 3600.0
+        tcs = self.site.thermocouples
+        if tcs and times.size:
+            # a thermocouple the log has no readings of goes through as missing readings
+            stacked = np.stack([np.asarray(values[tc.name], dtype=float) if tc.name in values else np.full(times.size, np.nan) for tc in tcs])
+            rates = {tc.name: rate for tc, rate in zip(tcs, self._rates.update(times, stacked) * 3600.0) if tc.name in values}
         if self.progress is not None and self.site.control is not None:
             ctl = self.site.control.name
             if ctl in values:

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from firewatch.firing.rates import TrailingSlope
+from firewatch.firing.rates import TrailingSlope, TrailingSlopes
 
 
 class _WholeWindow:
@@ -95,3 +95,38 @@ def test_empty_and_all_missing_batches() -> None:
     out = s.update(np.arange(5.0, 20.0), np.arange(5.0, 20.0) * 2.0)
     assert np.isnan(out[:3]).all()  # 5..7 s: under a third of the window since the first reading at 5 s
     np.testing.assert_allclose(out[4:], 2.0, rtol=1e-12)
+
+
+def test_channels_together_as_each_alone() -> None:
+    # issue 15: the pipeline takes every thermocouple's rate in one call; each channel's slopes must be those
+    # of the channel alone: one with readings missing here and there and a dropout, one that never reads,
+    # one that stops reading, one missing every third reading
+    t, y0 = _stream(11, 60_000)
+    rng = np.random.default_rng(11)
+    ys = np.stack([y0, np.full(t.size, np.nan), np.where(np.arange(t.size) < t.size // 3, y0 + 5.0, np.nan),
+                   np.where(np.arange(t.size) % 3 == 0, np.nan, 2.0 * y0)])
+    together = TrailingSlopes(300.0, ys.shape[0])
+    alone = [_WholeWindow(300.0) for _ in ys]
+    i = 0
+    while i < t.size:
+        m = int(rng.integers(1, 300))
+        got = together.update(t[i : i + m], ys[:, i : i + m])
+        for r, (row, ref) in enumerate(zip(got, alone)):
+            want = ref.update(t[i : i + m], ys[r, i : i + m])
+            assert np.array_equal(np.isnan(row), np.isnan(want)), i
+            np.testing.assert_allclose(row, want, rtol=1e-9, atol=1e-12)
+        i += m
+    assert np.isnan(got[1]).all() and np.isnan(got[2]).all() and np.isfinite(got[0]).any() and np.isfinite(got[3]).any()
+
+
+def test_readings_without_a_time_are_skipped() -> None:
+    # a reading whose time is NaN has no place in any window: NaN itself, and the others as without it
+    t = np.arange(0.0, 200.0)
+    y = 0.5 * t
+    t_bad = t.copy()
+    t_bad[150] = np.nan
+    a = TrailingSlope(60.0).update(t, np.where(np.arange(t.size) == 150, np.nan, y))
+    b = TrailingSlope(60.0).update(t_bad, y)
+    assert np.isnan(b[150])
+    keep = np.arange(t.size) != 150
+    np.testing.assert_allclose(b[keep], a[keep], rtol=1e-12)
