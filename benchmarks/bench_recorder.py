@@ -149,6 +149,66 @@ def ingest_share(site_path: Path, seconds: float) -> None:
     print(f"  parsing per line: {old_parse / RATE_HZ * 1e6:.1f} us per-line, {new_parse / RATE_HZ * 1e6:.1f} us batch")
 
 
+def recorder_stages(site_path: Path, tmp: Path, seconds: float, fill_s: float) -> None:
+    """The recorder's work in-process, stage by stage (CPU per second of stream): parsing, the pipeline, the
+    alarm hook, the writer's write and commit, on half-second batches as the recorder takes them, after
+    ``fill_s`` of stream has filled the rates' window (whose cost once grew with it, issue 15)."""
+    from firewatch.firing.alarms.engine import AlarmEngine
+    from firewatch.firing.pipeline import Pipeline, channel_table
+    from firewatch.services.recorder import Ingest, attach_alarms, make_parser
+    from firewatch.settings.profile import load_site
+    from firewatch.store.writer import LogWriter
+
+    site = load_site(site_path)
+    writer = LogWriter(tmp / "stages.db", channel_table(site, None), site_name=site.name, kiln=site.kiln, site_text=site.text,
+                       schedule_name="", schedule_text="", clock="wall", port="bench", hold_lines=None)
+    pipeline = Pipeline(site, None, "wall")
+    ingest = Ingest(pipeline, writer, make_parser(site, "wall"))
+    attach_alarms(ingest, site, None)
+    t0 = 1_770_000_000.0
+    per_commit = RATE_HZ // 2
+    total = int((fill_s + seconds) * RATE_HZ)
+    spent: dict[str, float] = {}
+    measuring = False
+
+    def timed(owner: object, attr: str, label: str) -> None:
+        inner = getattr(owner, attr)
+
+        def wrapper(*a, **k):
+            c = time.process_time()
+            try:
+                return inner(*a, **k)
+            finally:
+                if measuring:
+                    spent[label] = spent.get(label, 0.0) + time.process_time() - c
+
+        setattr(owner, attr, wrapper)
+
+    parser = ingest.parser
+    timed(parser, "parse_batch", "parsing")
+    timed(pipeline, "process_columns", "pipeline")
+    timed(AlarmEngine, "evaluate", "alarms")
+    timed(writer, "write", "writer: write")
+    timed(writer, "commit", "writer: commit")
+    whole = 0.0
+    for start in range(0, total, per_commit):
+        measuring = start >= fill_s * RATE_HZ
+        part = [(t0 + i / RATE_HZ, line(i)) for i in range(start, min(start + per_commit, total))]
+        c = time.process_time()
+        ingest.feed(part)
+        writer.commit(part[-1][0])
+        if measuring:
+            whole += time.process_time() - c
+    writer.close()
+    print(f"recorder in-process, stage by stage, after {fill_s:g} s of stream filled the rates' window "
+          f"({seconds:g} s measured, CPU per second of stream):")
+    for label, s in spent.items():
+        print(f"  {label:<16} {s / seconds * 100:5.2f} % of one core")
+    rest = whole - sum(spent.values())
+    print(f"  {'the rest':<16} {rest / seconds * 100:5.2f} %")
+    print(f"  {'total':<16} {whole / seconds * 100:5.2f} % of one core (no port, no line queue)")
+
+
 def to_log_stages(tmp: Path) -> None:
     """``sim --to-log`` of the 24-hour demo: the simulator alone (baseline), then the whole, split into stages."""
     from firewatch.firing.alarms.engine import AlarmEngine
@@ -217,6 +277,7 @@ def main() -> None:
     parser.add_argument("--seconds", type=float, default=30.0)
     parser.add_argument("--channels", type=int, default=16, help="measured channels in the feed: 1 cold junction, 3 pyrometers, the rest thermocouples")
     parser.add_argument("--only", choices=("recorder", "ingest", "to-log"), help="run one part")
+    parser.add_argument("--fill", type=float, default=330.0, help="seconds of stream fed in-process before the stages are measured (the rates' window is 300 s)")
     args = parser.parse_args()
     if args.channels < 5:
         parser.error("--channels: at least 5 (a cold junction, a thermocouple, 3 pyrometers)")
@@ -227,6 +288,7 @@ def main() -> None:
     log = tmp / "bench.db"
     if args.only in (None, "ingest"):
         ingest_share(site, min(args.seconds, 60.0))
+        recorder_stages(site, tmp, min(args.seconds, 60.0), args.fill)
     if args.only in (None, "to-log"):
         to_log_stages(tmp)
     if args.only not in (None, "recorder"):

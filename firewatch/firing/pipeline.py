@@ -44,7 +44,7 @@ from pathlib import Path
 import numpy as np
 
 from firewatch.firing.progress import PLAN_CHANNELS, ProgressTracker
-from firewatch.firing.rates import TrailingSlope
+from firewatch.firing.rates import TrailingSlopes
 from firewatch.physics._warnings import FirewatchWarning
 from firewatch.physics.bands import Band
 from firewatch.physics.corrections import correct_ratio, correct_single_band
@@ -214,7 +214,8 @@ class Pipeline:
                 band = Band(*py.band_um)
             band2 = Band(*py.band2_um) if py.kind == "ratio" and py.band2_um else None
             self._bands[py.name] = (band, band2)
-        self._rates = {tc.name: TrailingSlope(site.alarms.rate_window_s) for tc in site.thermocouples}
+        # every thermocouple's rate in one call a batch (issue 15)
+        self._rates = TrailingSlopes(site.alarms.rate_window_s, len(site.thermocouples))
         self._last_t = -math.inf
         self._fallback_noted: set[str] = set()
         self._anchor: tuple[float, float, float] | None = None
@@ -436,23 +437,39 @@ class Pipeline:
         out_v, out_s = batch.values, batch.status
         for cj in site.cold_junctions:
             out_v[cj], out_s[cj] = self._column(cj)
+        ok = int(Status.OK)
+        # the thermocouples reading mV, by type: each type converted in one call over its channels stacked
+        # (issue 15: a call per channel per batch cost twenty times the conversion itself)
+        by_type: dict[str, list[tuple[str, np.ndarray, np.ndarray, np.ndarray]]] = {}
+        for tc in site.thermocouples:
+            raw, status = self._column(tc.name)
+            if tc.unit == "mV":
+                if isinstance(tc.cold_junction, str):
+                    cold = out_v.get(tc.cold_junction, np.full(n, np.nan))
+                    cold_ok = out_s.get(tc.cold_junction, np.zeros(n, dtype=np.int64)) == Status.OK
+                    status = np.where((status == Status.OK) & ~cold_ok, int(Status.ERROR), status)
+                else:
+                    cold = np.full(n, float(tc.cold_junction))
+                by_type.setdefault(tc.type, []).append((tc.name, raw, status, cold))
+            else:
+                temp = np.where(status == Status.OK, raw, np.nan)
+                bad = (status == Status.OK) & np.isnan(temp)
+                out_v[tc.name], out_s[tc.name] = temp, np.where(bad, int(Status.OUT_OF_RANGE), status)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", FirewatchWarning)  # out-of-range becomes a status below
-            for tc in site.thermocouples:
-                raw, status = self._column(tc.name)
-                if tc.unit == "mV":
-                    if isinstance(tc.cold_junction, str):
-                        cold = out_v.get(tc.cold_junction, np.full(n, np.nan))
-                        cold_ok = out_s.get(tc.cold_junction, np.zeros(n, dtype=np.int64)) == Status.OK
-                        status = np.where((status == Status.OK) & ~cold_ok, int(Status.ERROR), status)
-                    else:
-                        cold = np.full(n, float(tc.cold_junction))
-                    temp = emf_to_temperature(np.where(status == Status.OK, raw, np.nan), tc.type, np.nan_to_num(cold, nan=0.0))
-                else:
-                    temp = np.where(status == Status.OK, raw, np.nan)
-                bad = (status == Status.OK) & np.isnan(temp)
-                status = np.where(bad, int(Status.OUT_OF_RANGE), status)
-                out_v[tc.name], out_s[tc.name] = temp, status
+            for tc_type, group in by_type.items():
+                raws = np.stack([g[1] for g in group])
+                statuses = np.stack([g[2] for g in group])
+                colds = np.stack([g[3] for g in group])
+                good = statuses == ok
+                temps = emf_to_temperature(np.where(good, raws, np.nan), tc_type, np.nan_to_num(colds, nan=0.0))
+                statuses = np.where(good & np.isnan(temps), int(Status.OUT_OF_RANGE), statuses)
+                for (name, *_), temp, status in zip(group, temps, statuses):
+                    out_v[name], out_s[name] = temp, status
+        # the thermocouples in the site's order, as before (the writer and readers follow the dict's order)
+        for tc in site.thermocouples:
+            out_v[tc.name] = out_v.pop(tc.name)
+            out_s[tc.name] = out_s.pop(tc.name)
         for py in site.pyrometers:
             shown, status = self._column(py.name)
             # below absolute zero no radiance exists to invert: out of range, not a numpy warning
@@ -478,10 +495,12 @@ class Pipeline:
         site = self.site
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", FirewatchWarning)  # out-of-range becomes a status below
-            for tc in site.thermocouples:
-                rate = self._rates[tc.name].update(times, out_v[tc.name]) * 3600.0
-                out_v[f"{tc.name}.rate"] = rate
-                out_s[f"{tc.name}.rate"] = np.where(np.isnan(rate), int(Status.MISSING), int(Status.OK))
+            tcs = site.thermocouples
+            if tcs:
+                rates = self._rates.update(times, np.stack([out_v[tc.name] for tc in tcs])) * 3600.0
+                statuses = np.where(np.isnan(rates), int(Status.MISSING), int(Status.OK))
+                for tc, rate, status in zip(tcs, rates, statuses):
+                    out_v[f"{tc.name}.rate"], out_s[f"{tc.name}.rate"] = rate, status
             for py in site.pyrometers:
                 self._pyrometer(py, times, out_v, out_s, events)
 
@@ -497,9 +516,11 @@ class Pipeline:
             self._anchor = (float(own), float(received), float(t))
             self._offset = float(t) - float(own)
         rates: dict[str, np.ndarray] = {}
-        for tc in self.site.thermocouples:
-            if tc.name in values:
-                rates[tc.name] = self._rates[tc.name].update(times, values[tc.name]) * 3600.0
+        tcs = self.site.thermocouples
+        if tcs and times.size:
+            # a thermocouple the log has no readings of goes through as missing readings
+            stacked = np.stack([np.asarray(values[tc.name], dtype=float) if tc.name in values else np.full(times.size, np.nan) for tc in tcs])
+            rates = {tc.name: rate for tc, rate in zip(tcs, self._rates.update(times, stacked) * 3600.0) if tc.name in values}
         if self.progress is not None and self.site.control is not None:
             ctl = self.site.control.name
             if ctl in values:

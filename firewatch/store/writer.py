@@ -519,14 +519,24 @@ class LogWriter:
             ids = range(first_sample, first_sample + n)
             t_list = batch.times.tolist()
             measured = [(name, cid) for name, cid in self._measured.items() if name in batch.values]
-            # NaN is stored as NULL; one row per sample, the time once
-            columns = [[None if v != v else v for v in batch.values[name].tolist()] for name, _ in measured]
+            # NaN is stored as NULL; one row per sample, the time once. The channels go to Python lists in one
+            # call over them stacked, and only a channel with a NaN is looked through (issue 15)
+            columns: list[list[float | None]] = []
+            flagged: list[int] = []
+            if measured:
+                stacked = np.stack([batch.values[name] for name, _ in measured])
+                nan_rows = np.isnan(stacked).any(axis=1).tolist()
+                columns = [[None if v != v else v for v in row] if has_nan else row
+                           for row, has_nan in zip(stacked.tolist(), nan_rows)]
+                # statuses other than OK (0) are kept as runs: only the channels that have any
+                flagged = np.flatnonzero(np.stack([batch.status[name] for name, _ in measured]).any(axis=1)).tolist()
             names = "".join(f", {column(cid)}" for _, cid in measured)
             con.executemany(
                 f"INSERT INTO sample(id, session_id, t{names}) VALUES (?, ?, ?{', ?' * len(measured)})",
                 zip(ids, itertools.repeat(self.session_id, n), t_list, *columns),
             )
-            for name, cid in measured:
+            for k in flagged:
+                name, cid = measured[k]
                 self._insert_flags(cid, first_sample, batch.status[name])
             derived = [(name, cid) for name, cid in self._derived.items() if name in batch.values]
             progress = [(name, cid) for name, cid in derived if name in self._progress]
@@ -585,19 +595,22 @@ class LogWriter:
         minutes = np.floor(times / 60.0).astype(np.int64)
         starts = np.concatenate([[0], np.flatnonzero(np.diff(minutes)) + 1])
         keys = minutes[starts].tolist()
-        rows: list[tuple[int, int, float, float, int]] = []
-        for name, values in batch.values.items():
-            cid = self._charted.get(name)
-            if cid is None:
-                continue
-            ok = np.isfinite(values)
-            if not ok.any():
-                continue
-            lo = np.minimum.reduceat(np.where(ok, values, np.inf), starts)
-            hi = np.maximum.reduceat(np.where(ok, values, -np.inf), starts)
-            n = np.add.reduceat(ok.astype(np.int64), starts)
-            rows.extend((cid, k, float(a), float(b), int(c)) for k, a, b, c in zip(keys, lo, hi, n) if c > 0)
-        rows.sort(key=lambda r: (r[1], r[0]))  # in key order: a minute's rows append, pages fill
+        charted = [(cid, values) for name, values in batch.values.items() if (cid := self._charted.get(name)) is not None]
+        if not charted:
+            return
+        # every charted channel at once, stacked (issue 15: three reductions per channel per batch before)
+        values = np.stack([v for _, v in charted])
+        ok = np.isfinite(values)
+        lo = np.minimum.reduceat(np.where(ok, values, np.inf), starts, axis=1)
+        hi = np.maximum.reduceat(np.where(ok, values, -np.inf), starts, axis=1)
+        count = np.add.reduceat(ok.astype(np.int64), starts, axis=1)
+        # in key order, minute then channel: a minute's rows append, pages fill
+        order = sorted(range(len(charted)), key=lambda i: charted[i][0])
+        cids = [charted[i][0] for i in order]
+        lo_l, hi_l, count_l = lo[order].T.tolist(), hi[order].T.tolist(), count[order].T.tolist()
+        rows = [(cid, key, a, b, c)
+                for key, los, his, counts in zip(keys, lo_l, hi_l, count_l)
+                for cid, a, b, c in zip(cids, los, his, counts) if c > 0]
         self.con.executemany(
             "INSERT INTO trend_minute(channel_id, minute, lo, hi, n) VALUES (?, ?, ?, ?, ?) "
             "ON CONFLICT(minute, channel_id) DO UPDATE SET lo = min(lo, excluded.lo), hi = max(hi, excluded.hi), n = n + excluded.n",
