@@ -225,6 +225,17 @@ class Pipeline:
         self._held: Batch | None = None
         """Trailing lines out of step, waiting for the lines after them to decide."""
 
+    def fresh(self) -> Pipeline:
+        """A pipeline for the same site and schedule with no history, sharing this one's band tables (their lookups
+        stay cached); for a reader that recomputes stretch after stretch of a log."""
+        out = Pipeline.__new__(Pipeline)
+        out.__dict__.update(self.__dict__)
+        out._rates = TrailingSlopes(self.site.alarms.rate_window_s, len(self.site.thermocouples))
+        out.progress = ProgressTracker(self.schedule) if self.progress is not None and self.schedule is not None else None
+        out._fallback_noted = set()
+        out._last_t, out._anchor, out._offset, out._held = -math.inf, None, 0.0, None
+        return out
+
     # -- parsing to arrays ------------------------------------------------------------
     def process(self, items: list[ReadingSet | Malformed]) -> Batch:
         """Convert and reconcile one batch of parsed lines."""

@@ -12,7 +12,6 @@ first rates have their whole window; stretches read one after another
 
 from __future__ import annotations
 
-import copy
 import functools
 from typing import TYPE_CHECKING
 
@@ -57,20 +56,11 @@ def _template(text: str, where: str) -> Pipeline | None:
 
 
 def _fresh(text: str, where: str) -> Pipeline | None:
-    """A pipeline for a profile with empty rate history, sharing the template's bands.
-
-    A shallow copy keeps the same band objects, whose tables (and the ratio
-    lookups keyed by them) stay cached; only the state ``derive`` changes is
-    new: the trailing rates (copied from the template, which is never fed) and
-    the fallback notes.
-    """
+    """A pipeline for a profile with empty rate history, sharing the template's bands (``Pipeline.fresh``): the
+    band objects, whose tables (and the ratio lookups keyed by them) stay cached, are the template's; the state
+    ``derive`` changes (the trailing rates, the fallback notes) is new."""
     template = _template(text, where)
-    if template is None:
-        return None
-    pipe = copy.copy(template)
-    pipe._rates = {name: copy.deepcopy(rate) for name, rate in template._rates.items()}
-    pipe._fallback_noted = set()
-    return pipe
+    return None if template is None else template.fresh()
 
 
 def _profiles(reader: LogReader) -> dict[int, str]:
