@@ -101,6 +101,10 @@ class Debounce:
         edges: list[tuple[float, bool]] = []
         if t.size == 0:
             return edges
+        if not (clear if self.active else bad).any():
+            # the usual batch: nothing that could start the change (the loop below would forget any start, no edge)
+            self._since = None
+            return edges
         code = bad.astype(np.int8) * 2 + clear.astype(np.int8)
         starts = np.concatenate([[0], np.flatnonzero(np.diff(code)) + 1])
         ends = np.concatenate([starts[1:], [t.size]])
