@@ -225,7 +225,11 @@ def export_csv(reader: LogReader, out: _Sink, workers: int | None = None, ready:
             out.write(text)
             rows += n
         return rows
-    # fork: the workers start at once with what is imported; the log's path is that of the file actually read
+    # fork: the workers start at once with what is imported, and the band tables built here (each worker would
+    # build its own otherwise); the log's path is that of the file actually read
+    from firewatch.store.derive import Deriver
+
+    Deriver(reader).prepare()
     with multiprocessing.get_context("fork").Pool(workers, _worker_start, (str(reader.readings_path()), layout)) as pool:
         pending: deque[AsyncResult[tuple[bytes, int]]] = deque()
         while tasks and len(pending) < 2 * workers:
