@@ -170,7 +170,8 @@ class TrailingSlopes:
         first = np.clip(before + np.rint(s_begin[0]).astype(np.int64), 0, last_valid)
         last = np.clip(before + np.rint(s_end[0]).astype(np.int64) - 1, 0, last_valid)
         ch = np.arange(k)[:, None]
-        span = np.where(n > 0, self._valid_t[ch, last] - self._valid_t[ch, first], 0.0)
+        with np.errstate(invalid="ignore"):  # a channel with no valid reading yet holds NaN times: its span is not used
+            span = np.where(n > 0, self._valid_t[ch, last] - self._valid_t[ch, first], 0.0)
         ok = (n >= self.min_points) & (span >= self.window_s / 3.0) & (denom > 0)
         return np.where(ok, slope, np.nan)
 

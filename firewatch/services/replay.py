@@ -16,6 +16,7 @@ line anew. The two give the same alarms on a log replayed with its own site
 from __future__ import annotations
 
 import gc
+import threading
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -95,7 +96,9 @@ def _batches(reader: LogReader, site: SiteProfile, clock: str):
     lo, hi = reader.raw_span()
     path = reader.readings_path()  # an old log's converted copy is made here, not in each worker
     jobs = [(str(path.resolve()), site, clock, a, min(a + _LINES_PER_JOB, hi)) for a in range(lo, hi, _LINES_PER_JOB)]
-    if len(jobs) <= 1:
+    # a second process only when forking is safe: from a process with one thread (a child forked while another
+    # thread holds a lock waits on it for ever; the dashboard and a test runner have threads)
+    if len(jobs) <= 1 or threading.active_count() > 1:
         for job in jobs:
             yield from _parse_job(job)
         return

@@ -12,7 +12,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from firewatch.commands import export
+from firewatch.commands import _export_csv as pages
 from firewatch.commands._common import iso
 from firewatch.store.reader import LogReader
 from firewatch.transport.records import Status
@@ -29,10 +29,10 @@ def log(tmp_path_factory: pytest.TempPathFactory) -> Path:
 
 
 def test_every_measured_value_reads_back_exactly_and_times_and_flags_are_as_per_value(log: Path, monkeypatch: pytest.MonkeyPatch) -> None:
-    monkeypatch.setattr(export, "PAGE", 700)  # several pages, so the rate history crosses page boundaries
+    monkeypatch.setattr(pages, "PAGE", 700)  # several pages, so the rate history crosses page boundaries
     with LogReader(log) as reader:
         buf = io.StringIO(newline="")
-        rows = export.export_csv(reader, buf)
+        rows = pages.export_csv(reader, buf)
         measured = list(reader._channels()[0])
         span = reader.sample_span()
         assert span is not None
@@ -62,7 +62,7 @@ def test_every_measured_value_reads_back_exactly_and_times_and_flags_are_as_per_
 def test_times_a_page_at_once_are_iso_per_value(whole: float, frac: float) -> None:
     # datetime.fromtimestamp rounds to the microsecond, half to even (Python documentation, datetime): near a whole second too
     t = math.floor(whole) + frac
-    assert export._times(np.array([t, whole])) == [iso(t)[:-1], iso(whole)[:-1]]
+    assert pages._times(np.array([t, whole])) == [iso(t)[:-1], iso(whole)[:-1]]
 
 
 def test_a_page_formats_as_per_value_formatting_nan_empty_even_side_by_side() -> None:
@@ -70,7 +70,7 @@ def test_a_page_formats_as_per_value_formatting_nan_empty_even_side_by_side() ->
     times = ["2026-03-14T05:00:01", "2026-03-14T05:00:02", "2026-03-14T05:00:03"]
     values = np.array([[0.0, nan, nan, nan, 1e-7], [1.0, 0.1 + 0.2, nan, 123456.789, nan], [2.5, -0.0, 5e-324, nan, 1e300]])
     flags = (["", "tc2:open", "odd%sname:under"], np.array([1, 0, 2]))
-    text = export._rows(times, values, "frggr", flags)
+    text = pages._rows(times, values, "frggr", flags)
     want = "".join(",".join([f"{t}Z", f"{a:.3f}", "" if b != b else repr(b), "" if c != c else f"{c:.6g}",
                              "" if d != d else f"{d:.6g}", "" if e != e else repr(e), flags[0][k]]) + "\r\n"
                    for t, (a, b, c, d, e), k in zip(times, values.tolist(), flags[1].tolist()))
@@ -79,34 +79,44 @@ def test_a_page_formats_as_per_value_formatting_nan_empty_even_side_by_side() ->
     assert text.split("\r\n")[2].endswith(",odd%sname:under")  # a "%" in a name is text, not a conversion
 
 
-def test_worker_processes_give_the_same_text_as_one_process(log: Path, monkeypatch: pytest.MonkeyPatch) -> None:
-    # the tasks fall to forked workers in whatever order they finish; each recomputes its rates from the window before it
-    monkeypatch.setattr(export, "PAGE", 300)
-    monkeypatch.setattr(export, "TASK", 900)
-    with LogReader(log) as reader:
-        one, two = io.StringIO(newline=""), io.StringIO(newline="")
-        assert export.export_csv(reader, one, workers=1) == export.export_csv(reader, two, workers=2) == 45 * 60
-    assert one.getvalue() == two.getvalue()
+WORKERS_RUN = """
+import sys
+from firewatch.commands import _export_csv as pages
+from firewatch.cli import main
+pages.PAGE, pages.TASK = 300, 900
+made = []
+real = pages.multiprocessing.get_context
+pages.multiprocessing.get_context = lambda how: made.append(how) or real(how)
+pages.os.cpu_count = lambda: 2  # the workers' path whatever the machine
+status = main(["export", sys.argv[1], "--csv", sys.argv[2], "-q"])
+print(made)
+sys.exit(status)
+"""
 
 
-def test_the_command_with_workers_writes_the_same_file_and_a_damaged_log_leaves_none(log: Path, tmp_path: Path,
-                                                                                     monkeypatch: pytest.MonkeyPatch) -> None:
-    import argparse
+def test_forked_workers_write_the_same_file_as_one_process(log: Path, tmp_path: Path) -> None:
+    """In a command's own process (one thread, where forking is safe) the pages go to two forked workers, in
+    whatever order they finish, each recomputing its rates from the window before it: the file is the one a
+    single process writes (issue 15). A test runner's process has threads: there the export stays in process."""
+    import subprocess
+    import sys
 
-    from firewatch.store._common import LogDamaged
-    from tests.damage import overwrite_middle
+    from tests.e2e.helpers import env
 
-    monkeypatch.setattr(export, "PAGE", 300)
-    monkeypatch.setattr(export, "TASK", 900)
-    monkeypatch.setattr(export.os, "cpu_count", lambda: 2)  # the workers' path whatever the machine
     out = tmp_path / "out.csv"
-    assert export.run(argparse.Namespace(log=str(log), csv=str(out))) == 0
+    proc = subprocess.run([sys.executable, "-c", WORKERS_RUN, str(log), str(out)], capture_output=True, text=True, env=env(), timeout=120)
+    assert proc.returncode == 0, proc.stderr
+    assert proc.stdout.strip() == "['fork']"  # the workers' path was taken
     with LogReader(log) as reader:
         one = io.StringIO(newline="")
-        export.export_csv(reader, one, workers=1)
+        assert pages.export_csv(reader, one, workers=1) == 45 * 60
     assert out.read_bytes() == one.getvalue().encode("utf-8")
-    # the integrity check runs while the workers begin: its refusal still comes before any output (issue 10)
+
+
+def test_a_damaged_log_is_refused_before_any_output(log: Path, tmp_path: Path) -> None:
+    from tests.damage import overwrite_middle
+
     bad = overwrite_middle(log, tmp_path / "bad.db")
-    with pytest.raises(LogDamaged, match="damaged"):
-        export.run(argparse.Namespace(log=str(bad), csv=str(tmp_path / "bad.csv")))
-    assert not (tmp_path / "bad.csv").exists()
+    proc = run("export", str(bad), "--csv", str(tmp_path / "bad.csv"))
+    assert proc.returncode == 2 and "damaged" in proc.stderr and proc.stderr.count("\n") == 1
+    assert not (tmp_path / "bad.csv").exists()  # the integrity check comes before any worker starts (issue 10)
