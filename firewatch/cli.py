@@ -34,6 +34,7 @@ COMMANDS: dict[str, str] = {
     "plant": "plant",
     "report": "report",
     "probe": "probe",
+    "upgrade-log": "upgrade_log",
 }
 
 CAUTION = (

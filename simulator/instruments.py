@@ -21,7 +21,7 @@ from firewatch.physics.windows import Window
 from firewatch.settings.profile import Pyrometer, Thermocouple
 from firewatch.transport.records import Status
 
-__all__ = ["thermocouple_emf", "pyrometer_reading", "band_of"]
+__all__ = ["thermocouple_emf", "thermocouple_clean_emf", "pyrometer_reading", "pyrometer_shown", "pyrometer_status", "band_of"]
 
 
 def band_of(py: Pyrometer, base: Path | None = None) -> Band:
@@ -38,12 +38,18 @@ def thermocouple_emf(
     tc: Thermocouple, junction_c: np.ndarray, cold_c: np.ndarray, noise_mv: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray]:
     """EMF (mV) that the bridge sees, and the status per reading (OVER/UNDER outside the type's range)."""
+    emf, status = thermocouple_clean_emf(tc, junction_c, cold_c)
+    return emf + noise_mv, status
+
+
+def thermocouple_clean_emf(tc: Thermocouple, junction_c: np.ndarray, cold_c: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """EMF (mV) before the bridge's noise, and the status per reading (OVER/UNDER outside the type's range)."""
     lo, hi = temperature_range(tc.type)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", OutOfRangeWarning)
         emf = temperature_to_emf(np.clip(junction_c, lo, hi), tc.type) - temperature_to_emf(cold_c, tc.type)
     status = np.where(junction_c > hi, Status.OVER, np.where(junction_c < lo, Status.UNDER, Status.OK))
-    return emf + noise_mv, status
+    return emf, status
 
 
 def pyrometer_reading(
@@ -58,6 +64,21 @@ def pyrometer_reading(
     noise_c: np.ndarray,
 ) -> tuple[np.ndarray, np.ndarray]:
     """What the instrument shows (degC) and its status (UNDER/OVER outside its measuring range)."""
+    shown = pyrometer_shown(py, band, band2, ware_c, wall_c, emissivity, slope, fouling) + noise_c
+    return shown, pyrometer_status(py, shown)
+
+
+def pyrometer_shown(
+    py: Pyrometer,
+    band: Band,
+    band2: Band | None,
+    ware_c: np.ndarray,
+    wall_c: np.ndarray | None,
+    emissivity: np.ndarray,
+    slope: np.ndarray,
+    fouling: np.ndarray,
+) -> np.ndarray:
+    """What the instrument shows before its noise (degC), reading by reading."""
     if py.window is not None:
         path: float | np.ndarray | Window = Window(py.window, fouling=fouling)
     else:
@@ -66,16 +87,17 @@ def pyrometer_reading(
         warnings.simplefilter("ignore", OutOfRangeWarning)
         if py.kind == "ratio":
             assert band2 is not None
-            shown = indicated_ratio(
+            return indicated_ratio(
                 ware_c, band, band2, slope, py.set_slope, emissivity=emissivity, transmission=path, background_c=wall_c
             )
-        else:
-            shown = indicated_single_band(
-                ware_c, band, emissivity, path, py.set_emissivity, py.set_transmission, background_c=wall_c
-            )
-    shown = shown + noise_c
+        return indicated_single_band(
+            ware_c, band, emissivity, path, py.set_emissivity, py.set_transmission, background_c=wall_c
+        )
+
+
+def pyrometer_status(py: Pyrometer, shown: np.ndarray) -> np.ndarray:
+    """UNDER/OVER where what the instrument shows is outside its measuring range, else OK."""
     lo, hi = py.range_c
     if not math.isfinite(lo):
         lo = -73.0  # the band table's floor
-    status = np.where(~(shown >= lo), Status.UNDER, np.where(shown > hi, Status.OVER, Status.OK))
-    return shown, status
+    return np.where(~(shown >= lo), Status.UNDER, np.where(shown > hi, Status.OVER, Status.OK))

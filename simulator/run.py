@@ -3,23 +3,29 @@
 from __future__ import annotations
 
 import math
+from collections import deque
 from collections.abc import Iterator
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
 from firewatch.physics.bands import Band
 from firewatch.physics.thermocouples import seebeck
-from firewatch.simulator.instruments import band_of, pyrometer_reading, thermocouple_emf
+from firewatch.simulator.instruments import band_of, pyrometer_shown, pyrometer_status, thermocouple_clean_emf
 from firewatch.simulator.kiln import Controller, KilnModel
 from firewatch.simulator.scenario import Fault, Scenario
-from firewatch.transport.native import encode
-from firewatch.transport.records import Status, Value
+from firewatch.transport.native import crc16
+from firewatch.transport.records import Status
 
 __all__ = ["Line", "Simulation"]
 
 CHUNK = 60
-"""Steps simulated before the instruments are evaluated together (fixed, so a seed gives the same run in every mode)."""
+"""Steps simulated before the instruments' noise is drawn (fixed, so a seed gives the same run in every mode)."""
+AHEAD = 10
+"""Chunks the kiln is stepped ahead so that the instruments' physics runs over them at once (its per-call
+cost, not its per-reading cost, dominated at 60 readings); noise is still drawn chunk by chunk in the
+same order, and :attr:`Simulation.t`, ``done`` and ``state`` answer for the last chunk handed out."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -81,6 +87,14 @@ class Simulation:
             if fault.kind == "loop-break" and channel is not None and self.site.pyrometer(channel) is None:
                 raise ValueError(f"fault {fault.kind}: no pyrometer channel {channel!r} in the site profile")
         self.duration_s = scenario.duration_s
+        self._step_t = 0.0
+        """Simulated seconds the kiln has been stepped to (ahead of :attr:`t` by the chunks not yet handed out)."""
+        self._ahead: deque[tuple[dict[str, Any], int, int, bool, dict[str, float]]] = deque()
+        """Chunks stepped ahead, not yet handed out: truth, its slice, and done and state after the chunk."""
+        self._after: tuple[bool, dict[str, float]] | None = None
+        """Done and state after the last chunk handed out (None before the first)."""
+        self._templates: dict[tuple[int, ...], str] = {}
+        """Line templates by the pattern of statuses in a line (see :func:`_template`)."""
 
     # -- truth as functions of time -------------------------------------------------
     def _faults(self, kind: str) -> list[Fault]:
@@ -132,73 +146,117 @@ class Simulation:
                 return f
         return None
 
+    def _windows(self, kind: str, t: np.ndarray) -> list[Fault | None]:
+        """:meth:`_window` for each of the times ``t``: the first fault of ``kind`` open at each."""
+        faults = self._faults(kind)
+        if not faults:
+            return [None] * t.size
+        first = np.full(t.size, -1)
+        for j in range(len(faults) - 1, -1, -1):  # the earliest in the list wins, as in _window
+            f = faults[j]
+            first[(f.at_s <= t) & (t < f.at_s + float(f.param("seconds")))] = j
+        return [None if j < 0 else faults[j] for j in first.tolist()]
+
     # -- stepping -------------------------------------------------------------------
     @property
     def done(self) -> bool:
+        """Whether the run is over, as of the last chunk handed out (the kiln itself may be stepped ahead)."""
+        if self.endless:
+            return False
+        if self._after is not None:
+            return self._after[0]
+        return self._done_now()
+
+    def _done_now(self) -> bool:
+        """Whether the run is over at the stepping clock (see :data:`AHEAD`)."""
         if self.endless:
             return False
         if self.duration_s is not None:
-            return self.t >= self.duration_s
+            return self._step_t >= self.duration_s
         cap = 3.0 * self.scenario.schedule.planned_duration_s + 4 * 3600.0
-        return (self.controller.finished and self.kiln.wall_c < self.scenario.cool_end_c) or self.t >= cap
+        return (self.controller.finished and self.kiln.wall_c < self.scenario.cool_end_c) or self._step_t >= cap
 
     def chunks(self) -> Iterator[list[Line]]:
         while not self.done:
-            yield self._chunk()
+            if not self._ahead:
+                self._step_ahead()
+            yield self._emit(self._ahead.popleft())
 
-    def _chunk(self) -> list[Line]:
+    def _step_ahead(self) -> None:
+        """Step the kiln up to :data:`AHEAD` chunks, and evaluate their instruments' noise-free truth at once."""
+        sizes: list[tuple[int, bool, dict[str, float]]] = []
+        parts: list[tuple[np.ndarray, np.ndarray, np.ndarray, dict[str, np.ndarray]]] = []
+        for _ in range(AHEAD):
+            parts.append(self._step_chunk())
+            done = self._done_now()
+            sizes.append((parts[-1][0].size, done, self._state_now()))
+            if done:
+                break
+        times = np.concatenate([q[0] for q in parts])
+        wall = np.concatenate([q[1] for q in parts])
+        ware = np.concatenate([q[2] for q in parts])
+        lags = {tc.name: np.concatenate([q[3][tc.name] for q in parts]) for tc in self.tcs}
+        truth = self._truth(times, wall, lags, ware)
+        lo = 0
+        for n, done, state in sizes:
+            self._ahead.append((truth, lo, lo + n, done, state))
+            lo += n
+
+    def _step_chunk(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, dict[str, np.ndarray]]:
+        """Step the kiln and controller through one chunk: times, wall, ware and each thermocouple's lagged junction."""
         n = CHUNK
         if self.duration_s is not None and not self.endless:
-            n = max(1, min(n, int(math.ceil((self.duration_s - self.t) / self.dt))))
+            n = max(1, min(n, int(math.ceil((self.duration_s - self._step_t) / self.dt))))
         times = np.empty(n)
         wall = np.empty(n)
         ware = np.empty(n)
         lags = {tc.name: np.empty(n) for tc in self.tcs}
         control = self.control.name if self.control else None
+        # the step is sequential (the controller answers the kiln), so it stays a loop; what does
+        # not change within a chunk is computed once
+        smoothing = [(tc.name, 1.0 - math.exp(-self.dt / self._tau[tc.name]) if self._tau[tc.name] > 0 else 1.0) for tc in self.tcs]
+        drifts = [(f.at_s, float(f.param("rate"))) for f in self._faults("tc-drift") if (f.param("channel") or self._default_tc) == control]
+        lag, kiln = self._lag, self.kiln
         for i in range(n):
             if control is not None:
-                drift = float(self._drift_c(control, np.array([self.t]))[0])
-                measured = self._lag[control] + self._offset[control] + drift
+                drift = 0.0
+                for at_s, rate in drifts:  # as _drift_c, for one time
+                    drift += max(self._step_t - at_s, 0.0) / 3600.0 * rate
+                measured = lag[control] + self._offset[control] + drift
             else:
-                measured = self.kiln.wall_c
-            power = self.controller.power(measured, self.t, self.dt)
-            self.kiln.step(power, self.dt)
-            self.t += self.dt
-            for tc in self.tcs:
-                tau = self._tau[tc.name]
-                a = 1.0 - math.exp(-self.dt / tau) if tau > 0 else 1.0
-                self._lag[tc.name] += a * (self.kiln.wall_c - self._lag[tc.name])
-                lags[tc.name][i] = self._lag[tc.name]
-            times[i] = self.t
-            wall[i] = self.kiln.wall_c
-            ware[i] = self.kiln.ware_c
-        return self._emit(times, wall, ware, lags)
+                measured = kiln.wall_c
+            power = self.controller.power(measured, self._step_t, self.dt)
+            kiln.step(power, self.dt)
+            self._step_t += self.dt
+            wall_c = kiln.wall_c
+            for name, a in smoothing:
+                lag[name] += a * (wall_c - lag[name])
+                lags[name][i] = lag[name]
+            times[i] = self._step_t
+            wall[i] = wall_c
+            ware[i] = kiln.ware_c
+        return times, wall, ware, lags
 
-    def _emit(self, times: np.ndarray, wall: np.ndarray, ware: np.ndarray, lags: dict[str, np.ndarray]) -> list[Line]:
+    def _truth(self, times: np.ndarray, wall: np.ndarray, lags: dict[str, np.ndarray], ware: np.ndarray) -> dict[str, Any]:
+        """What each instrument would read without noise, and its status, over several chunks at once
+        (element by element, so the same as chunk by chunk)."""
         n = times.size
-        rng = self.rng
         ambient = self.scenario.kiln.ambient_c
         cold_true = ambient + 6.0 * np.clip((wall - ambient) / 1250.0, 0.0, 1.0)
-        columns: list[tuple[str, np.ndarray, str, np.ndarray]] = []
-        for cj in self.site.cold_junctions:
-            columns.append((cj, cold_true + rng.normal(0.0, 0.05, n), "C", np.full(n, Status.OK)))
+        truth: dict[str, Any] = {"times": times, "wall": wall, "cold": cold_true}
         for tc in self.tcs:
             junction = lags[tc.name] + self._offset[tc.name] + self._drift_c(tc.name, times)
             cold = cold_true if isinstance(tc.cold_junction, str) else np.full(n, float(tc.cold_junction))
-            noise_uv = self.scenario.instruments.get(tc.name, {}).get("noise_uv", 2.0)
             if tc.unit == "mV":
-                value, status = thermocouple_emf(tc, junction, cold, rng.normal(0.0, noise_uv * 1e-3, n))
-            else:  # a bridge that converts: degC with noise of the same size
-                sens = float(seebeck(np.clip(np.median(junction), 0, 1000), tc.type))
-                value = junction + rng.normal(0.0, noise_uv * 1e-3 / max(sens, 1e-3), n)
-                status = np.full(n, Status.OK)
-            status = np.where(self._open(tc.name, times), Status.OPEN, status)
-            columns.append((tc.name, value, tc.unit, status))
+                emf, status = thermocouple_clean_emf(tc, junction, cold)
+                truth[tc.name] = (emf, status)
+            else:
+                truth[tc.name] = (junction, np.full(n, Status.OK))
+            truth["open " + tc.name] = self._open(tc.name, times)
         eps, slope = self._emissivity(times)
         fouling = self._fouling(times)
         for py in self.site.pyrometers:
             band, band2 = self.bands[py.name]
-            noise = self.scenario.instruments.get(py.name, {}).get("noise_c", 1.0 if py.kind == "ratio" else 0.3)
             # what the ware reflects: the walls, a fixed cold surround (a sight tube, an open door), or nothing
             if isinstance(py.background, float):
                 surround = np.full(n, py.background)
@@ -206,25 +264,61 @@ class Simulation:
                 surround = None
             else:
                 surround = wall
-            value, status = pyrometer_reading(py, band, band2, ware, surround, eps, slope, fouling, rng.normal(0.0, noise, n))
-            status = np.where(self._loop_broken(py.name, times), Status.ERROR, status)
+            truth[py.name] = pyrometer_shown(py, band, band2, ware, surround, eps, slope, fouling)
+            truth["broken " + py.name] = self._loop_broken(py.name, times)
+        return truth
+
+    def _emit(self, ahead: tuple[dict[str, Any], int, int, bool, dict[str, float]]) -> list[Line]:
+        """The lines of one chunk stepped ahead: its noise drawn (in the same order as ever), its lines made."""
+        truth, lo, hi, done, state = ahead
+        times = truth["times"][lo:hi]
+        self.t = float(times[-1])
+        self._after = (done, state)
+        n = times.size
+        rng = self.rng
+        columns: list[tuple[str, np.ndarray, str, np.ndarray]] = []
+        for cj in self.site.cold_junctions:
+            columns.append((cj, truth["cold"][lo:hi] + rng.normal(0.0, 0.05, n), "C", np.full(n, Status.OK)))
+        for tc in self.tcs:
+            clean, status = truth[tc.name]
+            clean, status = clean[lo:hi], status[lo:hi]
+            noise_uv = self.scenario.instruments.get(tc.name, {}).get("noise_uv", 2.0)
+            if tc.unit == "mV":
+                value = clean + rng.normal(0.0, noise_uv * 1e-3, n)
+            else:  # a bridge that converts: degC with noise of the same size (clean is the junction)
+                sens = float(seebeck(np.clip(np.median(clean), 0, 1000), tc.type))
+                value = clean + rng.normal(0.0, noise_uv * 1e-3 / max(sens, 1e-3), n)
+            status = np.where(truth["open " + tc.name][lo:hi], Status.OPEN, status)
+            columns.append((tc.name, value, tc.unit, status))
+        for py in self.site.pyrometers:
+            noise = self.scenario.instruments.get(py.name, {}).get("noise_c", 1.0 if py.kind == "ratio" else 0.3)
+            value = truth[py.name][lo:hi] + rng.normal(0.0, noise, n)
+            status = pyrometer_status(py, value)
+            status = np.where(truth["broken " + py.name][lo:hi], Status.ERROR, status)
             columns.append((py.name, value, "C", status))
         garbage_draw = rng.random(n)
         garbage_kind = rng.integers(0, 3, n)
         garbage_pos = rng.random(n)
         lines: list[Line] = []
-        for i in range(n):
-            values = [
-                Value(name, float(col[i]), unit, Status(int(st[i])))
-                if st[i] == Status.OK
-                else Value(name, math.nan, unit, Status(int(st[i])))
-                for name, col, unit, st in columns
-            ]
-            t = float(times[i])
-            data = encode(values, self.seq, self.scenario.start_utc + t)
+        # one %-template per pattern of statuses, filled with a whole row at once: the same bytes as
+        # transport.native.encode, without a Value and an f-string per value
+        value_rows = np.column_stack([col for _, col, _, _ in columns]).tolist() if columns else [[]] * n
+        status_rows = np.column_stack([st for _, _, _, st in columns]).astype(np.int64) if columns else np.zeros((n, 0), dtype=np.int64)
+        abnormal = (status_rows != int(Status.OK)).any(axis=1).tolist()
+        forms = [(name.replace("%", "%%"), unit) for name, _, unit, _ in columns]
+        templates = self._templates
+        all_ok = tuple([int(Status.OK)] * len(columns))
+        start_utc = self.scenario.start_utc
+        dropouts, garbages = self._windows("dropout", times), self._windows("garbage", times)
+        for i, t in enumerate(times.tolist()):
+            key = tuple(status_rows[i].tolist()) if abnormal[i] else all_ok
+            template = templates.get(key)
+            if template is None:
+                template = templates[key] = _template(forms, key)
+            body = (template % (self.seq, start_utc + t, *value_rows[i])).encode("ascii")
+            data = body + b" *%04X\r\n" % crc16(body)
             self.seq += 1
-            dropout = self._window("dropout", t)
-            garbage = self._window("garbage", t)
+            dropout, garbage = dropouts[i], garbages[i]
             if garbage is not None and garbage_draw[i] < float(garbage.param("fraction")):
                 data = _spoil(data, int(garbage_kind[i]), float(garbage_pos[i]), rng)
             # a dropout that starts within this reading may also drop the connection
@@ -235,7 +329,27 @@ class Simulation:
     # -- truth for tests ------------------------------------------------------------
     @property
     def state(self) -> dict[str, float]:
-        return {"t": self.t, "wall_c": self.kiln.wall_c, "ware_c": self.kiln.ware_c, "segment": self.controller.segment}
+        """The kiln as of the last chunk handed out."""
+        return self._after[1] if self._after is not None else self._state_now()
+
+    def _state_now(self) -> dict[str, float]:
+        return {"t": self._step_t, "wall_c": self.kiln.wall_c, "ware_c": self.kiln.ware_c, "segment": self.controller.segment}
+
+
+_WORDS = {int(Status.OPEN): "OPEN", int(Status.UNDER): "UNDER", int(Status.OVER): "OVER"}
+
+
+def _template(forms: list[tuple[str, str]], statuses: tuple[int, ...]) -> str:
+    """A native line's %-template for one pattern of statuses, as :func:`firewatch.transport.native.encode`
+    writes it: sequence number, device time, then each value (4 decimals in mV, 2 in degC) or its
+    status word; a value under a status word is consumed unshown (``%.0s``)."""
+    parts = ["FW1 %d %.3f"]
+    for (name, unit), status in zip(forms, statuses):
+        if status == int(Status.OK):
+            parts.append(f"{name}=%.{4 if unit == 'mV' else 2}f{unit}")
+        else:
+            parts.append(f"{name}={_WORDS.get(status, 'ERR')}%.0s")
+    return " ".join(parts)
 
 
 def _spoil(data: bytes, kind: int, pos: float, rng: np.random.Generator) -> bytes:

@@ -11,9 +11,11 @@ from firewatch.firing.pipeline import Pipeline, channel_table
 from firewatch.services.recorder import ITEM_BYTES, Ingest, LineQueue, attach_alarms, make_parser
 from firewatch.settings.profile import load_site, profiles_dir
 from firewatch.settings.schedule import load_schedule
+from firewatch.store.reader import LogReader
 from firewatch.store.writer import LogWriter
 from firewatch.transport.native import crc16
 from firewatch.transport.ports import PortEvent
+from tests.e2e.helpers import RAW_LINES, raw
 
 SITE = load_site()
 SCHEDULE = load_schedule(profiles_dir() / "demo-glaze.toml")
@@ -51,7 +53,7 @@ def test_sequence_number_beyond_sqlite_is_a_malformed_line(tmp_path: Path) -> No
     writer.close()
     assert ingest.malformed == 2 and ingest.failed_batches == 0
     assert rows(log, "SELECT count(*) FROM sample") == [(8,)]
-    reasons = [r[0] for r in rows(log, "SELECT reason FROM raw_line WHERE ok = 0")]
+    reasons = [r[2] for r in raw(log) if not r[1]]
     assert len(reasons) == 2 and all("bad sequence number" in r for r in reasons)
     assert rows(log, "SELECT count(*) FROM event WHERE kind = 'malformed'") == [(2,)]
 
@@ -74,8 +76,9 @@ def test_a_failing_batch_is_kept_raw_logged_and_recording_goes_on(tmp_path: Path
     writer.close()
     assert ingest.failed_batches == 1 and ingest.lines == 30
     # nothing of the failed batch half-written, every line kept raw in order
-    assert [r[0] for r in rows(log, "SELECT seq FROM sample ORDER BY id")] == list(range(10)) + list(range(20, 30))
-    raw = rows(log, "SELECT line, ok, reason FROM raw_line ORDER BY id")
+    # each line's device time is T0 + its sequence number; the log keeps the time of a sample, not its number
+    assert [round(r[0] - T0) for r in rows(log, "SELECT t FROM sample ORDER BY id")] == list(range(10)) + list(range(20, 30))
+    raw = [(r[2], r[3], r[4]) for part in LogReader(log).raw_rows() for r in part]
     assert [int(r[0].split(b" ")[1]) for r in raw] == list(range(30))
     failed = [r for r in raw if r[2] and r[2].startswith("not processed")]
     assert len(failed) == 10 and "RuntimeError: a fault in a hook at test_ingest.py:" in failed[0][2]
@@ -98,7 +101,7 @@ def test_the_same_failure_is_reported_once_a_minute(tmp_path: Path) -> None:
     details = [r[0] for r in rows(log, "SELECT detail FROM event WHERE kind = 'error' ORDER BY id")]
     assert ingest.failed_batches == 10 and len(details) == 2
     assert "5 more failed batches since the last report" in details[1]
-    assert rows(log, "SELECT count(*) FROM raw_line") == [(100,)]
+    assert rows(log, f"SELECT {RAW_LINES}") == [(100,)]
 
 
 def test_database_errors_roll_the_batch_back_and_go_to_the_caller(tmp_path: Path) -> None:
@@ -114,7 +117,7 @@ def test_database_errors_roll_the_batch_back_and_go_to_the_caller(tmp_path: Path
     with pytest.raises(sqlite3.OperationalError):
         ingest.feed([(T0 + i, line(i, T0 + i)) for i in range(10, 20)])
     writer.close()
-    assert rows(log, "SELECT count(*) FROM raw_line") == [(10,)]
+    assert rows(log, f"SELECT {RAW_LINES}") == [(10,)]
 
 
 def test_flush_writes_the_lines_held_at_a_stop(tmp_path: Path) -> None:
@@ -124,8 +127,8 @@ def test_flush_writes_the_lines_held_at_a_stop(tmp_path: Path) -> None:
     assert len(ingest.pipeline.held_raw()) == 1  # the jump waits for the lines after it
     ingest.flush()
     writer.close()
-    raw = rows(log, "SELECT ok, reason FROM raw_line ORDER BY id")
-    assert len(raw) == 11 and raw[-1][0] == 0 and "not confirmed" in raw[-1][1]
+    raw_rows = [(r[1], r[2]) for r in raw(log)]
+    assert len(raw_rows) == 11 and raw_rows[-1][0] == 0 and "not confirmed" in raw_rows[-1][1]
     assert ingest.malformed == 1
 
 

@@ -38,11 +38,11 @@ def summary(reader, record: bool = True) -> dict[str, Any]:
     samples = {
         name: count
         for name, count in reader.query(
-            "SELECT c.name, count(r.sample_id) FROM channel c LEFT JOIN reading r ON r.channel_id = c.id "
-            "WHERE c.kind IN ('thermocouple', 'cold_junction', 'pyrometer') GROUP BY c.id ORDER BY c.id"
+            "SELECT c.name, (SELECT count(*) FROM sample s WHERE s.id >= coalesce(c.first_sample, 1)) FROM channel c "
+            "WHERE c.kind IN ('thermocouple', 'cold_junction', 'pyrometer') ORDER BY c.id"
         )
     }
-    malformed = reader.query("SELECT count(*) FROM raw_line WHERE ok = 0")[0][0]
+    malformed = reader.raw_counts()[1]
     failed_polls = reader.query("SELECT value FROM meta WHERE key = 'failed_polls'")  # kept by a Modbus recorder
     gaps = [
         {"start": iso(g["start_t"]), "end": iso(g["end_t"]), "seconds": round(g["end_t"] - g["start_t"], 3), "reason": g["reason"]}
@@ -84,6 +84,8 @@ def summary(reader, record: bool = True) -> dict[str, Any]:
         "end": iso(end),
         "duration_s": None if start is None else round(end - start, 3),
         "sessions": sessions,
+        "layout": {"schema": int(reader.query("SELECT value FROM meta WHERE key = 'schema_version'")[0][0]),
+                   "converted_from_schema": None if reader.upgraded_from is None else int(reader.upgraded_from)},
         "recorder_sessions": recorder_sessions,
         "samples": samples,
         "malformed_lines": malformed,
@@ -174,6 +176,10 @@ def run(args: argparse.Namespace) -> int:
         f"{' (' + x['sqlite_note'] + ')' if x['sqlite_note'] else ''}"
         for x in info["recorder_sessions"]) or "none")
     table.add_row("samples", ", ".join(f"{k} {v}" for k, v in info["samples"].items()))
+    layout = info.get("layout") or {}
+    if layout.get("converted_from_schema") is not None:
+        table.add_row("log layout", f"schema {layout['converted_from_schema']}, read through a converted copy; "
+                                    f"`firewatch upgrade-log` writes the compact layout (schema {layout['schema']})")
     table.add_row("malformed lines", str(info["malformed_lines"]))
     if info["failed_polls"]:
         table.add_row("failed Modbus polls", str(info["failed_polls"]))

@@ -44,7 +44,7 @@ from pathlib import Path
 import numpy as np
 
 from firewatch.firing.progress import PLAN_CHANNELS, ProgressTracker
-from firewatch.firing.rates import TrailingSlope
+from firewatch.firing.rates import TrailingSlopes
 from firewatch.physics._warnings import FirewatchWarning
 from firewatch.physics.bands import Band
 from firewatch.physics.corrections import correct_ratio, correct_single_band
@@ -53,9 +53,10 @@ from firewatch.physics.tolerances import tolerance_uncertainty
 from firewatch.physics.windows import Window
 from firewatch.settings.profile import Pyrometer, SiteProfile
 from firewatch.settings.schedule import Schedule
+from firewatch.transport.batch import Columns, Gatherer
 from firewatch.transport.records import Malformed, ReadingSet, Status
 
-__all__ = ["Batch", "Pipeline", "ChannelInfo", "channel_table", "JUMP_S", "CONFIRM"]
+__all__ = ["Batch", "from_columns", "to_columns", "Pipeline", "ChannelInfo", "channel_table", "measurement_key", "JUMP_S", "CONFIRM"]
 
 JUMP_S = 10.0
 """How far a line's time may run ahead of the last accepted line's beyond the wall-clock time between
@@ -97,6 +98,16 @@ def channel_table(site: SiteProfile, schedule: Schedule | None = None) -> list[C
     return out
 
 
+def measurement_key(site: SiteProfile) -> str:
+    """Everything that decides how a site turns lines into the measured values a log keeps (the input, its channels,
+    each thermocouple's type, unit and cold junction): two sites with the same key convert any line alike."""
+    return repr((
+        site.input, tuple(site.channel_names), tuple(site.cold_junctions),
+        tuple((tc.name, tc.type, tc.unit, tc.cold_junction) for tc in site.thermocouples),
+        tuple(py.name for py in site.pyrometers),
+    ))
+
+
 @dataclass
 class Batch:
     """What one batch adds to the firing log.
@@ -124,38 +135,24 @@ class Batch:
 
 
 def to_columns(items: list[ReadingSet | Malformed], channels: tuple[str, ...], clock: str) -> Batch:
-    """Gather parsed lines into a :class:`Batch` of raw lines, samples and per-channel arrays.
+    """Gather lines parsed one by one into a :class:`Batch` of raw lines, samples and per-channel arrays.
 
-    Stateless, so that it can run in another process (replay does); the
-    pipeline then places the lines on the time line, reports the malformed
-    ones and computes everything else.
+    Stateless, so that it can run in another process; a parser's
+    ``parse_batch`` gives the same columns from the lines themselves, faster.
+    The pipeline then places the lines on the time line, reports the
+    malformed ones and computes everything else.
     """
-    batch = Batch()
-    raw, samples = batch.raw, batch.samples
-    device = clock == "device"
-    wanted = set(channels)
-    sets: list[ReadingSet] = []
+    g = Gatherer(channels, clock)
     for item in items:
-        if isinstance(item, Malformed):
-            raw.append((item.received, item.raw, False, item.reason))
-            continue
-        received, device_time = item.received, item.device_time
-        t = device_time if device and device_time is not None else received
-        raw.append((received, item.raw, True, ""))
-        samples.append((len(raw) - 1, t, received, device_time, item.seq))
-        sets.append(item)
-    n = len(sets)
-    vals: dict[str, list[float]] = {name: [math.nan] * n for name in wanted}
-    stats: dict[str, list[int]] = {name: [int(Status.MISSING)] * n for name in wanted}
-    for i, s in enumerate(sets):
-        for v in s.values:
-            col = vals.get(v.channel)
-            if col is not None:
-                col[i] = v.value
-                stats[v.channel][i] = v.status
-    batch.values = {name: np.array(vals[name], dtype=float) for name in wanted}
-    batch.status = {name: np.array(stats[name], dtype=np.int64) for name in wanted}
-    return batch
+        g.item(item)
+    return from_columns(g.columns())
+
+
+def from_columns(cols: Columns | Batch) -> Batch:
+    """A parser's :class:`~firewatch.transport.batch.Columns` as a :class:`Batch` (no copy)."""
+    if isinstance(cols, Batch):
+        return cols
+    return Batch(raw=cols.raw, samples=cols.samples, values=cols.values, status=cols.status)
 
 
 def _join(a: Batch, b: Batch) -> Batch:
@@ -217,7 +214,8 @@ class Pipeline:
                 band = Band(*py.band_um)
             band2 = Band(*py.band2_um) if py.kind == "ratio" and py.band2_um else None
             self._bands[py.name] = (band, band2)
-        self._rates = {tc.name: TrailingSlope(site.alarms.rate_window_s) for tc in site.thermocouples}
+        # every thermocouple's rate in one call a batch (issue 15)
+        self._rates = TrailingSlopes(site.alarms.rate_window_s, len(site.thermocouples))
         self._last_t = -math.inf
         self._fallback_noted: set[str] = set()
         self._anchor: tuple[float, float, float] | None = None
@@ -227,19 +225,31 @@ class Pipeline:
         self._held: Batch | None = None
         """Trailing lines out of step, waiting for the lines after them to decide."""
 
+    def fresh(self) -> Pipeline:
+        """A pipeline for the same site and schedule with no history, sharing this one's band tables (their lookups
+        stay cached); for a reader that recomputes stretch after stretch of a log."""
+        out = Pipeline.__new__(Pipeline)
+        out.__dict__.update(self.__dict__)
+        out._rates = TrailingSlopes(self.site.alarms.rate_window_s, len(self.site.thermocouples))
+        out.progress = ProgressTracker(self.schedule) if self.progress is not None and self.schedule is not None else None
+        out._fallback_noted = set()
+        out._last_t, out._anchor, out._offset, out._held = -math.inf, None, 0.0, None
+        return out
+
     # -- parsing to arrays ------------------------------------------------------------
     def process(self, items: list[ReadingSet | Malformed]) -> Batch:
         """Convert and reconcile one batch of parsed lines."""
         return self.process_columns(to_columns(items, self.site.channel_names, self.clock))
 
-    def process_columns(self, cols: Batch, final: bool = False) -> Batch:
-        """Like :meth:`process`, from lines already gathered into columns by :func:`to_columns`
-        (which may run in another process).
+    def process_columns(self, cols: Batch | Columns, final: bool = False) -> Batch:
+        """Like :meth:`process`, from lines already gathered into columns: by a parser's
+        ``parse_batch`` or by :func:`to_columns` (either may run in another process).
 
         Lines out of step on the time line are held back to the next call;
         ``final`` decides them with what is known (see :meth:`flush`).
         """
         # the lines held stay held until this batch is through, so that a failure loses none
+        cols = from_columns(cols)
         batch = cols if self._held is None else _join(self._held, cols)
         held = None
         shift = 0.0 if self._anchor is None else self._anchor[2] - self._anchor[1]
@@ -400,41 +410,110 @@ class Pipeline:
         return values.copy(), status.copy()
 
     def _compute_arrays(self, times: np.ndarray, batch: Batch) -> None:
+        self._measure(times, batch)
+        self._derive(times, batch.values, batch.status, batch.events)
+        self._progress(times, batch.values, batch.status)
+
+    def _progress(self, times: np.ndarray, out_v: dict[str, np.ndarray], out_s: dict[str, np.ndarray]) -> None:
+        if self.progress is not None:
+            # a tracker is made only for a site with a control thermocouple (__init__)
+            assert self.site.control is not None
+            ctl = self.site.control.name
+            plan = self.progress.update(times, out_v[ctl], out_v[f"{ctl}.rate"])
+            for name, values in plan.items():
+                out_v[name] = values
+                out_s[name] = np.where(np.isfinite(values), int(Status.OK), int(Status.MISSING))
+
+    def continue_measured(self, times: np.ndarray, values: dict[str, np.ndarray], status: dict[str, np.ndarray]
+                          ) -> tuple[dict[str, np.ndarray], dict[str, np.ndarray]]:
+        """Every channel of measured readings as a log keeps them (in time order, batch after batch), derived and
+        progress ones computed on from this pipeline's state, as :meth:`process_columns` would have from the lines.
+
+        For a replay whose site converts lines as the recorder's did: the log's
+        measured values are then exactly what parsing and converting its raw lines
+        again would give, so they are taken as kept.
+        """
+        out_v = {name: values[name] for name in self.site.channel_names if name in values}
+        out_s = {name: status[name] for name in out_v}
+        self._derive(times, out_v, out_s, [])
+        self._progress(times, out_v, out_s)
+        if times.size:
+            self._last_t = float(times[-1])
+        return out_v, out_s
+
+    def _measure(self, times: np.ndarray, batch: Batch) -> None:
+        """The measured channels as the log keeps them: cold junctions as reported, thermocouples converted, pyrometers as shown."""
         site = self.site
         n = times.size
         out_v, out_s = batch.values, batch.status
         for cj in site.cold_junctions:
             out_v[cj], out_s[cj] = self._column(cj)
+        ok = int(Status.OK)
+        # the thermocouples reading mV, by type: each type converted in one call over its channels stacked
+        # (issue 15: a call per channel per batch cost twenty times the conversion itself)
+        by_type: dict[str, list[tuple[str, np.ndarray, np.ndarray, np.ndarray]]] = {}
+        for tc in site.thermocouples:
+            raw, status = self._column(tc.name)
+            if tc.unit == "mV":
+                if isinstance(tc.cold_junction, str):
+                    cold = out_v.get(tc.cold_junction, np.full(n, np.nan))
+                    cold_ok = out_s.get(tc.cold_junction, np.zeros(n, dtype=np.int64)) == Status.OK
+                    status = np.where((status == Status.OK) & ~cold_ok, int(Status.ERROR), status)
+                else:
+                    cold = np.full(n, float(tc.cold_junction))
+                by_type.setdefault(tc.type, []).append((tc.name, raw, status, cold))
+            else:
+                temp = np.where(status == Status.OK, raw, np.nan)
+                bad = (status == Status.OK) & np.isnan(temp)
+                out_v[tc.name], out_s[tc.name] = temp, np.where(bad, int(Status.OUT_OF_RANGE), status)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", FirewatchWarning)  # out-of-range becomes a status below
-            for tc in site.thermocouples:
-                raw, status = self._column(tc.name)
-                if tc.unit == "mV":
-                    if isinstance(tc.cold_junction, str):
-                        cold = out_v.get(tc.cold_junction, np.full(n, np.nan))
-                        cold_ok = out_s.get(tc.cold_junction, np.zeros(n, dtype=np.int64)) == Status.OK
-                        status = np.where((status == Status.OK) & ~cold_ok, int(Status.ERROR), status)
-                    else:
-                        cold = np.full(n, float(tc.cold_junction))
-                    temp = emf_to_temperature(np.where(status == Status.OK, raw, np.nan), tc.type, np.nan_to_num(cold, nan=0.0))
-                else:
-                    temp = np.where(status == Status.OK, raw, np.nan)
-                bad = (status == Status.OK) & np.isnan(temp)
-                status = np.where(bad, int(Status.OUT_OF_RANGE), status)
-                out_v[tc.name], out_s[tc.name] = temp, status
-                rate = self._rates[tc.name].update(times, temp) * 3600.0
-                out_v[f"{tc.name}.rate"] = rate
-                out_s[f"{tc.name}.rate"] = np.where(np.isnan(rate), int(Status.MISSING), int(Status.OK))
+            for tc_type, group in by_type.items():
+                raws = np.stack([g[1] for g in group])
+                statuses = np.stack([g[2] for g in group])
+                colds = np.stack([g[3] for g in group])
+                good = statuses == ok
+                temps = emf_to_temperature(np.where(good, raws, np.nan), tc_type, np.nan_to_num(colds, nan=0.0))
+                statuses = np.where(good & np.isnan(temps), int(Status.OUT_OF_RANGE), statuses)
+                for (name, *_), temp, status in zip(group, temps, statuses):
+                    out_v[name], out_s[name] = temp, status
+        # the thermocouples in the site's order, as before (the writer and readers follow the dict's order)
+        for tc in site.thermocouples:
+            out_v[tc.name] = out_v.pop(tc.name)
+            out_s[tc.name] = out_s.pop(tc.name)
+        for py in site.pyrometers:
+            shown, status = self._column(py.name)
+            # below absolute zero no radiance exists to invert: out of range, not a numpy warning
+            status = np.where((status == Status.OK) & ~(shown > -273.15), int(Status.OUT_OF_RANGE), status)
+            out_v[py.name], out_s[py.name] = np.where(status == Status.OK, shown, np.nan), status
+
+    def derive(self, times: np.ndarray, values: dict[str, np.ndarray], status: dict[str, np.ndarray]) -> tuple[dict[str, np.ndarray], dict[str, np.ndarray]]:
+        """The derived channels (rates, reconciled temperatures, uncertainties, divergences, allowances) of
+        measured readings as the log keeps them, in time order; progress is not among them.
+
+        This is how a reader recomputes what the log does not keep per sample; a
+        rate needs ``rate_window_s`` of readings before the first it is wanted for.
+        """
+        out_v = {name: values[name] for name in self.site.channel_names if name in values}
+        out_s = {name: status[name] for name in out_v}
+        events: list[tuple[float, str, str | None, str]] = []
+        self._derive(times, out_v, out_s, events)
+        keep = [c.name for c in self.channels if c.kind == "derived"]
+        return {k: out_v[k] for k in keep if k in out_v}, {k: out_s[k] for k in keep if k in out_s}
+
+    def _derive(self, times: np.ndarray, out_v: dict[str, np.ndarray], out_s: dict[str, np.ndarray],
+                events: list[tuple[float, str, str | None, str]]) -> None:
+        site = self.site
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", FirewatchWarning)  # out-of-range becomes a status below
+            tcs = site.thermocouples
+            if tcs:
+                rates = self._rates.update(times, np.stack([out_v[tc.name] for tc in tcs])) * 3600.0
+                statuses = np.where(np.isnan(rates), int(Status.MISSING), int(Status.OK))
+                for tc, rate, status in zip(tcs, rates, statuses):
+                    out_v[f"{tc.name}.rate"], out_s[f"{tc.name}.rate"] = rate, status
             for py in site.pyrometers:
-                self._pyrometer(py, times, batch)
-        if self.progress is not None:
-            # a tracker is made only for a site with a control thermocouple (__init__)
-            assert site.control is not None
-            ctl = site.control.name
-            plan = self.progress.update(times, out_v[ctl], out_v[f"{ctl}.rate"])
-            for name, values in plan.items():
-                out_v[name] = values
-                out_s[name] = np.where(np.isfinite(values), int(Status.OK), int(Status.MISSING))
+                self._pyrometer(py, times, out_v, out_s, events)
 
     def warm_start(self, times: np.ndarray, values: dict[str, np.ndarray], last: tuple[float, float, float | None] | None = None) -> None:
         """Bring trends and progress up to date from readings already in a continued log (no output).
@@ -447,33 +526,35 @@ class Pipeline:
             own = device_time if self.clock == "device" and device_time is not None else received
             self._anchor = (float(own), float(received), float(t))
             self._offset = float(t) - float(own)
-        for tc in self.site.thermocouples:
-            if tc.name in values:
-                self._rates[tc.name].update(times, values[tc.name])
+        rates: dict[str, np.ndarray] = {}
+        tcs = self.site.thermocouples
+        if tcs and times.size:
+            # a thermocouple the log has no readings of goes through as missing readings
+            stacked = np.stack([np.asarray(values[tc.name], dtype=float) if tc.name in values else np.full(times.size, np.nan) for tc in tcs])
+            rates = {tc.name: rate for tc, rate in zip(tcs, self._rates.update(times, stacked) * 3600.0) if tc.name in values}
         if self.progress is not None and self.site.control is not None:
             ctl = self.site.control.name
             if ctl in values:
-                self.progress.update(times, values[ctl], values.get(f"{ctl}.rate", np.full(times.size, np.nan)))
+                rate = values.get(f"{ctl}.rate", rates.get(ctl, np.full(times.size, np.nan)))
+                self.progress.update(times, values[ctl], rate)
         if times.size:
             self._last_t = float(times[-1])
 
-    def _background(self, py: Pyrometer, batch: Batch, n: int) -> tuple[np.ndarray | None, np.ndarray]:
+    def _background(self, py: Pyrometer, values: dict[str, np.ndarray], n: int) -> tuple[np.ndarray | None, np.ndarray]:
         if py.background is None:
             return None, np.zeros(n, dtype=bool)
         if isinstance(py.background, float):
             return np.full(n, py.background), np.zeros(n, dtype=bool)
-        bg = batch.values[py.background]
+        bg = values[py.background]
         missing = ~np.isfinite(bg)
         return bg, missing
 
-    def _pyrometer(self, py: Pyrometer, times: np.ndarray, batch: Batch) -> None:
+    def _pyrometer(self, py: Pyrometer, times: np.ndarray, values: dict[str, np.ndarray], statuses: dict[str, np.ndarray],
+                   events: list[tuple[float, str, str | None, str]]) -> None:
         n = times.size
-        shown, status = self._column(py.name)
         band, band2 = self._bands[py.name]
-        # below absolute zero no radiance exists to invert: out of range, not a numpy warning
-        status = np.where((status == Status.OK) & ~(shown > -273.15), int(Status.OUT_OF_RANGE), status)
+        indicated, status = values[py.name], statuses[py.name]
         ok = status == Status.OK
-        indicated = np.where(ok, shown, np.nan)
         accuracy = np.maximum(py.accuracy_c, py.accuracy_percent / 100.0 * np.abs(np.nan_to_num(indicated))) / math.sqrt(3.0)
         if py.kind == "ratio":
             assert band2 is not None
@@ -483,7 +564,7 @@ class Pipeline:
             )
         else:
             path: float | Window = Window(py.window, fouling=py.fouling) if py.window else py.transmission
-            bg, missing = self._background(py, batch, n)
+            bg, missing = self._background(py, values, n)
             if bg is None:
                 reconciled, u = correct_single_band(
                     indicated, band, py.emissivity, path, py.set_emissivity, py.set_transmission,
@@ -504,26 +585,25 @@ class Pipeline:
                 if missing.any() and py.name not in self._fallback_noted:
                     self._fallback_noted.add(py.name)
                     i = int(np.argmax(missing))
-                    batch.events.append((float(times[i]), "fallback", py.name,
-                                         f"background {py.background} has no value; assuming the walls are at the ware's temperature"))
+                    events.append((float(times[i]), "fallback", py.name,
+                           f"background {py.background} has no value; assuming the walls are at the ware's temperature"))
                 if not missing.any():
                     self._fallback_noted.discard(py.name)
         rec_status = np.where(ok & np.isfinite(reconciled), int(Status.OK), np.where(ok, int(Status.OUT_OF_RANGE), status))
-        batch.values[py.name], batch.status[py.name] = indicated, status
-        batch.values[f"{py.name}.reconciled"], batch.status[f"{py.name}.reconciled"] = reconciled, rec_status
-        batch.values[f"{py.name}.u"], batch.status[f"{py.name}.u"] = u, rec_status
+        values[f"{py.name}.reconciled"], statuses[f"{py.name}.reconciled"] = reconciled, rec_status
+        values[f"{py.name}.u"], statuses[f"{py.name}.u"] = u, rec_status
         if py.reference:
             tc = self.site.thermocouple(py.reference)
             assert tc is not None
-            ref = batch.values[tc.name]
-            rate_c_per_s = batch.values[f"{tc.name}.rate"] / 3600.0
+            ref = values[tc.name]
+            rate_c_per_s = values[f"{tc.name}.rate"] / 3600.0
             u_tc = tolerance_uncertainty(tc.type, ref, tc.tolerance_class)
             # outside its class's range, take 0.75 % of reading as the bound (common practice, no source)
             u_tc = np.where(np.isnan(u_tc), 0.0075 * np.abs(ref) / math.sqrt(3.0), u_tc)
             u_lag = tc.time_constant_s * np.abs(np.nan_to_num(rate_c_per_s))
             divergence = reconciled - ref
             allowed = self.site.alarms.divergence_k * np.sqrt(u**2 + u_tc**2 + u_lag**2)
-            both = (rec_status == Status.OK) & (batch.status[tc.name] == Status.OK)
+            both = (rec_status == Status.OK) & (statuses[tc.name] == Status.OK)
             st = np.where(both, int(Status.OK), int(Status.MISSING))
-            batch.values[f"{py.name}.divergence"], batch.status[f"{py.name}.divergence"] = np.where(both, divergence, np.nan), st
-            batch.values[f"{py.name}.allowed"], batch.status[f"{py.name}.allowed"] = np.where(both, allowed, np.nan), st
+            values[f"{py.name}.divergence"], statuses[f"{py.name}.divergence"] = np.where(both, divergence, np.nan), st
+            values[f"{py.name}.allowed"], statuses[f"{py.name}.allowed"] = np.where(both, allowed, np.nan), st

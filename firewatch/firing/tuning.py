@@ -84,6 +84,9 @@ TOP_HOLD_BAND_C = 15.0
 """A hold within this of the firing's highest reference temperature is the hold at the top."""
 RAMP_PIECE_C = 100.0
 """A slow ramp is listed in pieces spanning at most this much of the reference's temperature."""
+READ_WINDOW_S = 6 * 3600.0
+"""The log is read this much of the firing at a time (issue 15), so that what tuning holds is what it keeps: at
+1 Hz a window's read holds a few MB for a moment; shorter windows mean more queries for the same rows."""
 FIT_POINTS = 10_000
 """The ware's fit uses at most this many valid readings, evenly spaced (neighbours a second apart add nothing
 independent; the interval counts ten-minute blocks either way)."""
@@ -106,6 +109,9 @@ class FiringSource(Protocol):
         """One channel's readings, all of them or those from ``start_t`` to ``end_t`` (inclusive)."""
 
     def alarms(self) -> list[dict[str, Any]]: ...
+
+    def firing(self) -> dict[str, Any]:
+        """The firing's record: ``started_t`` and ``ended_t`` (s) place the windows the log is read in."""
 
 
 class TuneError(Exception):
@@ -196,8 +202,18 @@ def _runs(mask: np.ndarray) -> list[tuple[int, int]]:
 
 
 def load_data(reader: FiringSource, site: SiteProfile, channel: str | None = None, reference: str | None = None,
-              max_rate_c_per_h: float = 90.0, max_lag_c: float = 1.5) -> TuneData:
-    """Read what a fit needs and mark the valid stretches, each used or rejected with its reason."""
+              max_rate_c_per_h: float = 90.0, max_lag_c: float = 1.5, window_s: float = READ_WINDOW_S) -> TuneData:
+    """Read what a fit needs and mark the valid stretches, each used or rejected with its reason.
+
+    The log is read ``window_s`` of firing at a time (issue 15), in two passes: the pyrometer alone, to find
+    the span where it read, then the pyrometer, its reference and its background over that span, aligned and
+    judged window by window. Only the aligned values over that span are kept, so memory follows the span
+    where the pyrometer read, not the length of the log. The answer is the one a single read of each whole
+    series gives (``window_s=math.inf`` reads that way): readings are matched by time, which a window
+    boundary does not split, and the reference's rate is the recorder's trailing slope carried across
+    windows (its cumulative sums, over a window rather than the whole span, round differently: by a few
+    micro-kelvin per hour on a 17 h firing).
+    """
     singles = [p for p in site.pyrometers if p.kind == "single"]
     py = site.pyrometer(channel) if channel else (singles[0] if singles else None)
     if py is None:
@@ -208,54 +224,105 @@ def load_data(reader: FiringSource, site: SiteProfile, channel: str | None = Non
     tc = site.thermocouple(ref_name) if ref_name else None
     if tc is None:
         raise TuneError(f"no reference thermocouple {ref_name!r} in the site profile")
-    full = reader.series(py.name)
-    if full.t.size == 0:
+    band = _band(py.band_file, tuple(py.band_um))
+    # build the band's inversion tables (the window's folded in) before reading the log: building one takes a
+    # few tens of MB for a moment, and that moment should not come on top of what the reading holds (issue 15)
+    for seen in (band, Window(py.window).through(band)) if py.window else (band,):
+        seen.log_signal(np.array([1273.15]))
+    firing = reader.firing()
+    first, last = firing.get("started_t"), firing.get("ended_t")
+    # pass 1: where the pyrometer read. The firing record's start and end only place the window edges; the first
+    # and last windows are open-ended, so a reading outside them is still read.
+    start: float | None = None
+    first_ok = last_ok = last_t = math.nan
+    counts: list[tuple[float | None, float | None, int]] = []
+    for a, b, closed in _windows(None, None, first, last, window_s):
+        t, v, s = _read(reader, py.name, a, b, closed)
+        counts.append((a, b, t.size))
+        if t.size == 0:
+            continue
+        if start is None:
+            start = float(t[0])
+        last_t = float(t[-1])
+        ok = np.flatnonzero((s == Status.OK) & np.isfinite(v))
+        if ok.size:
+            first_ok = float(t[ok[0]]) if math.isnan(first_ok) else first_ok
+            last_ok = float(t[ok[-1]])
+    if start is None:
         raise TuneError(f"the log holds no readings of {py.name}")
-    start = float(full.t[0])
     # Only while the pyrometer reads can a stretch be valid: read the other channels over that span alone
     # (with the rate's window before it), which on a long firing is a fraction of the log.
-    reading = np.flatnonzero((full.status == Status.OK) & np.isfinite(full.value))
-    if reading.size:
-        lo, hi = float(full.t[reading[0]]) - site.alarms.rate_window_s, float(full.t[reading[-1]])
+    if not math.isnan(first_ok):
+        lo, hi = first_ok - site.alarms.rate_window_s, last_ok
     else:
-        lo, hi = float(full.t[0]), float(full.t[-1])
-    span = (full.t >= lo) & (full.t <= hi)
-    ind_t, ind_v, ind_s = full.t[span], full.value[span], full.status[span]
-    ref = reader.series(tc.name, lo, hi)
-    if ref.t.size == 0:
-        raise TuneError(f"the log holds no readings of the reference thermocouple {tc.name} while {py.name} read")
-    pick_ind, pick_ref = _align(ind_t, ref.t)
-    t = ind_t[pick_ind]
-    n = t.size
-    ind_value, ind_status = ind_v[pick_ind], ind_s[pick_ind]
-    ref_value, ref_status = ref.value[pick_ref], ref.status[pick_ref]
-    background = None
-    if isinstance(py.background, str):
-        bg = reader.series(py.background, lo, hi)
-        background = np.full(n, np.nan)
-        at_bg, at_t = _align(bg.t, t)
-        background[at_t] = bg.value[at_bg]
-    elif isinstance(py.background, float):
-        background = np.full(n, py.background)
-    ok_ref = (ref_status == Status.OK) & np.isfinite(ref_value)
-    ok_py = (ind_status == Status.OK) & np.isfinite(ind_value)
+        lo, hi = start, last_t
+    # a pyrometer that never read leaves no stretch to keep: the reference is still read, for its own refusals
+    keep = not math.isnan(first_ok)
+    # at most this many aligned readings: the pyrometer's in the first pass's windows that meet the span
+    room = sum(n for a, b, n in counts if (a is None or a <= hi) and (b is None or b >= lo)) if keep else 0
+    buf = _Buffers(room, background=isinstance(py.background, (str, float)))
+    faults = [(alarm["raised_t"], alarm["cleared_t"] if alarm["cleared_t"] is not None else math.inf)
+              for alarm in reader.alarms() if alarm["kind"] == "sensor-fault" and alarm["channel"] in (py.name, tc.name)]
     # the reference's rate as the recorder computes it (the same trailing slope over the site's window),
     # from the readings already read rather than another series from the log
-    rate_c_per_h = TrailingSlope(site.alarms.rate_window_s).update(t, np.where(ok_ref, ref_value, np.nan)) * 3600.0
-    r = np.abs(np.nan_to_num(rate_c_per_h, nan=np.inf))
-    slow = (r <= max_rate_c_per_h) & (tc.time_constant_s * r / 3600.0 <= max_lag_c)
-    faulted = np.zeros(n, dtype=bool)
-    for alarm in reader.alarms():
-        if alarm["kind"] == "sensor-fault" and alarm["channel"] in (py.name, tc.name):
-            end = alarm["cleared_t"] if alarm["cleared_t"] is not None else math.inf
-            faulted |= (t >= alarm["raised_t"]) & (t <= end)
-    if not ok_ref.any():
+    slope = TrailingSlope(site.alarms.rate_window_s)
+    any_ref = any_ok_ref = False
+    # pass 2: the pyrometer, its reference and its background over the span, a window at a time
+    for a, b, closed in _windows(lo, hi, lo, hi, window_s):
+        ind_t, ind_v, ind_s = _read(reader, py.name, a, b, closed)
+        ref_t, ref_v, ref_s = _read(reader, tc.name, a, b, closed)
+        any_ref = any_ref or ref_t.size > 0
+        pick_ind, pick_ref = _align(ind_t, ref_t)
+        t = ind_t[pick_ind]
+        n = t.size
+        ind_value, ref_value = ind_v[pick_ind], ref_v[pick_ref]
+        background: np.ndarray | None = None
+        if isinstance(py.background, str):
+            bg_t, bg_v, _ = _read(reader, py.background, a, b, closed)
+            background = np.full(n, np.nan)
+            at_bg, at_t = _align(bg_t, t)
+            background[at_t] = bg_v[at_bg]
+        elif isinstance(py.background, float):
+            background = np.full(n, py.background)
+        ok_ref = (ref_s[pick_ref] == Status.OK) & np.isfinite(ref_value)
+        ok_py = (ind_s[pick_ind] == Status.OK) & np.isfinite(ind_value)
+        rate = slope.update(t, np.where(ok_ref, ref_value, np.nan)) * 3600.0
+        r = np.abs(np.nan_to_num(rate, nan=np.inf))
+        slow = (r <= max_rate_c_per_h) & (tc.time_constant_s * r / 3600.0 <= max_lag_c)
+        faulted = np.zeros(n, dtype=bool)
+        for raised, cleared in faults:
+            faulted |= (t >= raised) & (t <= cleared)
+        any_ok_ref = any_ok_ref or bool(ok_ref.any())
+        if keep:
+            buf.add(t, ind_value, ref_value, background, rate, ok_py, ok_ref, slow, faulted)
+    if not any_ref:
+        raise TuneError(f"the log holds no readings of the reference thermocouple {tc.name} while {py.name} read")
+    t, ind_value, ref_value, background, rate_c_per_h, ok_py, ok_ref, slow, faulted = buf.arrays()
+    if not any_ok_ref:
         raise TuneError(f"the reference thermocouple {tc.name} gave no reading while {py.name} read, so no stretch is usable")
     valid = ok_ref & ok_py & slow & ~faulted
-    for a, b in _runs(valid):  # a stretch shorter than two minutes is noise at a threshold, not a hold
-        if b - a < 120:
-            valid[a:b] = False
-    # describe each stretch where the pyrometer read: used, or why not
+    for a_, b_ in _runs(valid):  # a stretch shorter than two minutes is noise at a threshold, not a hold
+        if b_ - a_ < 120:
+            valid[a_:b_] = False
+    windows = _describe(t, start, ok_py, valid, ok_ref, faulted, tc.name, max_rate_c_per_h, max_lag_c)
+    mean_ref = float(np.nanmean(ref_value[valid])) if valid.any() else 1000.0
+    u_ref = float(tolerance_uncertainty(tc.type, mean_ref, tc.tolerance_class))
+    if not math.isfinite(u_ref):
+        u_ref = 0.0075 * abs(mean_ref) / math.sqrt(3.0)
+    # during slow ramps the reference lags by its time constant x the rate, and the ware lags the walls by an
+    # amount no profile states: keep that as a systematic uncertainty (a rectangular bound) rather than guess it
+    lag = tc.time_constant_s * np.abs(np.nan_to_num(rate_c_per_h[valid])) / 3600.0
+    u_lag = float(np.mean(lag)) / math.sqrt(3.0) if valid.any() else 0.0
+    data = TuneData(py, tc.name, t, ind_value, ref_value, background, valid, windows, band, u_ref, start)
+    data.u_lag = u_lag
+    data.rate = rate_c_per_h
+    data.tc = tc
+    return data
+
+
+def _describe(t: np.ndarray, start: float, ok_py: np.ndarray, valid: np.ndarray, ok_ref: np.ndarray, faulted: np.ndarray,
+              tc_name: str, max_rate_c_per_h: float, max_lag_c: float) -> list[dict[str, Any]]:
+    """Each stretch where the pyrometer read: used, or why not (times in seconds from ``start``)."""
     windows: list[dict[str, Any]] = []
     for a, b in _runs(ok_py):
         seg = slice(a, b)
@@ -268,25 +335,72 @@ def load_data(reader: FiringSource, site: SiteProfile, channel: str | None = Non
                 continue
             sub = slice(a + c, a + d)
             why = ("a sensor-fault alarm was active" if faulted[sub].mean() > 0.5 else
-                   f"{tc.name} failed or out of range" if (~ok_ref[sub]).mean() > 0.5 else
+                   f"{tc_name} failed or out of range" if (~ok_ref[sub]).mean() > 0.5 else
                    f"ramping too fast (over {max_rate_c_per_h:g} °C/h, or lag over {max_lag_c:g} K)")
             windows.append({"start_s": round(float(t[a + c]) - start, 1), "end_s": round(float(t[a + d - 1]) - start, 1),
                             "points": int(d - c), "used": False, "reason": why})
     windows.sort(key=lambda w: w["start_s"])
-    mean_ref = float(np.nanmean(ref_value[valid])) if valid.any() else 1000.0
-    u_ref = float(tolerance_uncertainty(tc.type, mean_ref, tc.tolerance_class))
-    if not math.isfinite(u_ref):
-        u_ref = 0.0075 * abs(mean_ref) / math.sqrt(3.0)
-    band = _band(py.band_file, tuple(py.band_um))
-    # during slow ramps the reference lags by its time constant x the rate, and the ware lags the walls by an
-    # amount no profile states: keep that as a systematic uncertainty (a rectangular bound) rather than guess it
-    lag = tc.time_constant_s * np.abs(np.nan_to_num(rate_c_per_h)) / 3600.0
-    u_lag = float(np.mean(lag[valid])) / math.sqrt(3.0) if valid.any() else 0.0
-    data = TuneData(py, tc.name, t, ind_value, ref_value, background, valid, windows, band, u_ref, start)
-    data.u_lag = u_lag
-    data.rate = rate_c_per_h
-    data.tc = tc
-    return data
+    return windows
+
+
+def _windows(lo: float | None, hi: float | None, first: float | None, last: float | None,
+             window_s: float) -> list[tuple[float | None, float | None, bool]]:
+    """Time windows ``(a, b, closed)`` from ``lo`` to ``hi`` (None: unbounded), with edges every ``window_s`` from ``first``.
+
+    Each window holds ``a <= t < b``, except the last (``closed``), which holds ``t <= b``: every reading falls
+    in exactly one window. Without ``first`` and ``last`` (a firing record that lacks them) or with an infinite
+    ``window_s`` there is one window, the whole span.
+    """
+    if first is None or last is None or not (math.isfinite(window_s) and math.isfinite(first) and math.isfinite(last)):
+        return [(lo, hi, True)]
+    n = max(1, math.ceil((last - first) / window_s))
+    edges: list[float | None] = [lo, *(first + k * window_s for k in range(1, n)), hi]
+    return [(a, b, k == n - 1) for k, (a, b) in enumerate(zip(edges[:-1], edges[1:]))]
+
+
+def _read(reader: FiringSource, channel: str, a: float | None, b: float | None,
+          closed: bool) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """One window's readings of a channel (times, values, statuses); see :func:`_windows` for its ends."""
+    s = reader.series(channel, a, b)
+    if closed or b is None:
+        return s.t, s.value, s.status
+    keep = s.t < b  # the next window starts at b and holds a reading there
+    return s.t[keep], s.value[keep], s.status[keep]
+
+
+class _Buffers:
+    """The aligned arrays over the span, filled window by window into room reserved once (no copies as they grow)."""
+
+    def __init__(self, room: int, background: bool) -> None:
+        self.n = 0
+        self.f = np.empty((5 if background else 4, room))
+        """Rows: times, indicated, reference, rate (degC/h), and the background where there is one."""
+        self.flags = np.empty((4, room), dtype=bool)
+        """Rows: pyrometer OK, reference OK, slow enough, no sensor fault active."""
+
+    def add(self, t: np.ndarray, indicated: np.ndarray, ref: np.ndarray, background: np.ndarray | None, rate: np.ndarray,
+            ok_py: np.ndarray, ok_ref: np.ndarray, slow: np.ndarray, faulted: np.ndarray) -> None:
+        end = self.n + t.size
+        if end > self.f.shape[1]:  # more than the first pass counted (a recorder still writing): grow
+            more = max(end, 2 * self.f.shape[1])
+            self.f = np.concatenate([self.f[:, :self.n], np.empty((self.f.shape[0], more - self.n))], axis=1)
+            self.flags = np.concatenate([self.flags[:, :self.n], np.empty((4, more - self.n), dtype=bool)], axis=1)
+        rows = [t, indicated, ref, rate] + ([background] if background is not None else [])
+        for i, row in enumerate(rows):
+            self.f[i, self.n:end] = row
+        for i, row in enumerate((ok_py, ok_ref, slow, faulted)):
+            self.flags[i, self.n:end] = row
+        self.n = end
+
+    def arrays(self) -> tuple[Any, ...]:
+        """t, indicated, ref, background (or None), rate, ok_py, ok_ref, slow, faulted.
+
+        Views of the filled part (each row is contiguous); the unfilled room is at most the readings of the
+        first pass's windows at the span's two ends.
+        """
+        f, flags, n = self.f, self.flags, self.n
+        background = f[4, :n] if f.shape[0] == 5 else None
+        return f[0, :n], f[1, :n], f[2, :n], background, f[3, :n], flags[0, :n], flags[1, :n], flags[2, :n], flags[3, :n]
 
 
 @functools.lru_cache(maxsize=16)

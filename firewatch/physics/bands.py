@@ -23,12 +23,20 @@ Fast inversion
 --------------
 :meth:`Band.log_signal` and :meth:`Band.temperature_from_log_signal` use a
 table of ln S against ln T on 8192 points uniform in ln T from
-:data:`TABLE_T_MIN_K` to :data:`TABLE_T_MAX_K`, read with one
-:func:`numpy.interp`. Measured against quadrature the largest error is
+:data:`TABLE_T_MIN_K` to :data:`TABLE_T_MAX_K`, read by linear
+interpolation. Measured against quadrature the largest error is
 below 1e-4 K over 300-3300 K for bands from 0.65 to 14 um
 (tests/physics/test_bands.py and benchmarks/bench_corrections.py). A table
 was chosen over the Sakuma-Hattori equation [Sakuma1982]_ because one
 interpolation is cheaper than its exp and log and needs no fit per band.
+
+The interpolation gives :func:`numpy.interp`'s own result, to the bit,
+but many arguments out of order are read without its search
+(:class:`_Knots`): numpy bisects the knots for every argument, which then
+costs several times the arithmetic; buckets narrow enough that no two
+knots share one find each interval with one lookup and one comparison.
+Few arguments, and arguments in order (readings in time order, where
+numpy.interp starts from the previous interval), still go to numpy.interp.
 
 References
 ----------
@@ -60,6 +68,126 @@ _TABLE_POINTS = 8192
 _GL_NODES = 16
 _MAX_EXPONENT_STEP = 2.0
 _CHUNK = 1 << 15
+_LOG_T = np.linspace(np.log(TABLE_T_MIN_K), np.log(TABLE_T_MAX_K), _TABLE_POINTS)
+"""The tables' ln T knots, shared by every band (so one search serves several bands)."""
+_SEARCH_BELOW = 512
+"""Below this many arguments numpy.interp's own search is the cheaper (measured, benchmarks/bench_corrections.py)."""
+_MAX_BUCKETS = 1 << 20
+"""At most this many buckets (8 MB of indices) for one table; a table needing more is read by numpy.interp."""
+_SLICE = 1 << 15
+"""Arguments read at a time: the temporaries of a slice stay in the cache (measured, benchmarks/bench_corrections.py)."""
+_SAMPLE_PAIRS = 256
+"""Neighbouring pairs of arguments sampled to tell ordered arguments (a firing in time order) from scattered ones."""
+_NEAR_KNOTS = 4.0
+"""Ordered: most sampled steps are within this many mean knot intervals, where numpy.interp's guess finds the interval."""
+
+
+class _Knots:
+    """Where arguments fall among increasing knots xp: numpy.interp's search, without searching.
+
+    :func:`numpy.interp` bisects ``xp`` for each argument (its guess from the
+    previous argument spares that only for ordered input); no numpy function
+    finds an interval in constant time, so it is written here. Each argument
+    goes to a bucket b(x) = trunc(a x + c), and each knot to the bucket the
+    same expression gives it; the buckets are made narrow enough that no two
+    knots share one (checked when built). As b is non-decreasing in x even
+    as rounded, a knot in a lower bucket lies below x and one in a higher
+    bucket above it, so the interval is the last knot of the lower buckets or
+    the knot in x's own bucket: one comparison decides, exactly, with no
+    rounding margin. Values then follow numpy.interp's own expression.
+
+    Index J = j + 1 is used throughout: J = 0 stands for "below the first
+    knot" and J = n + 1 for "above the last", both with NaN values.
+
+    Parameters
+    ----------
+    xp : numpy.ndarray
+        Strictly increasing finite knots, at least two.
+    """
+
+    def __init__(self, xp: NDArray[np.float64]) -> None:
+        n = xp.size
+        self.xp = xp
+        self.x_last = float(xp[-1])
+        span = float(xp[-1] - xp[0])
+        self._near = _NEAR_KNOTS * span / (n - 1)
+        m = int(np.ceil(span / float(np.min(np.diff(xp))))) + 1
+        while True:  # narrower buckets until no two knots share one (rounding could put two in one)
+            if m > _MAX_BUCKETS:  # knots too unevenly spaced for buckets: numpy.interp reads this table always
+                self._near = np.inf
+                return
+            self._a = m / span
+            self._c = 1.5 - float(xp[0]) * self._a  # the first knot in bucket 1 (not at an edge); bucket 0 lies below
+            bucket = self._bucket(xp)
+            if bucket[0] >= 1 and np.all(np.diff(bucket) >= 1):
+                break
+            m *= 2
+        self._top = int(bucket[-1]) + 1  # arguments above the last knot's bucket are clipped to this one
+        # last J whose knot is in a lower bucket than k (0: none)
+        self._lower = np.searchsorted(bucket, np.arange(self._top + 1), side="left").astype(np.intp)
+        self._next = np.concatenate([xp, [np.inf]])  # the knot after J, i.e. xp[J]
+        self._knot = np.concatenate([[xp[0]], xp, [xp[-1]]])  # xp[J - 1], finite at the ends
+
+    def _bucket(self, x: NDArray[np.float64]) -> NDArray[np.intp]:
+        with np.errstate(invalid="ignore"):  # NaN and inf cast to some integer; the clip and the value keep them NaN
+            k = (x * self._a + self._c).astype(np.intp)
+        return k
+
+    def searched(self, x: NDArray[np.float64]) -> bool:
+        """Whether numpy.interp's own search is the cheaper for 1-d ``x``: few arguments, or ordered ones.
+
+        numpy.interp starts each search at the previous argument's interval, so for
+        arguments in order (readings in time order) it hardly searches and beats the
+        buckets' passes over the arrays; judged from a sample of neighbouring pairs.
+        """
+        if x.size < _SEARCH_BELOW or self._near == np.inf:
+            return True
+        every = max(1, x.size // _SAMPLE_PAIRS)
+        with np.errstate(invalid="ignore"):
+            step = np.abs(x[1::every] - x[:-1:every])
+        return 2 * int(np.count_nonzero(step < self._near)) > step.size  # most steps short (NaN counts as long)
+
+    def slopes(self, fp: NDArray[np.float64]) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+        """numpy.interp's slopes of ``fp`` (its expression, so the same doubles) and ``fp``, indexed by J."""
+        slope = (fp[1:] - fp[:-1]) / (self.xp[1:] - self.xp[:-1])
+        # at the last knot numpy.interp returns fp[-1]: a zero slope there gives it exactly; NaN beyond the ends
+        return np.concatenate([[np.nan], slope, [0.0, np.nan]]), np.concatenate([[np.nan], fp, [np.nan]])
+
+    def place(self, x: NDArray[np.float64]) -> tuple[NDArray[np.intp], NDArray[np.float64]]:
+        """Interval J (see the class notes) and offset x - xp[J - 1], for 1-d ``x``."""
+        j = np.take(self._lower, self._bucket(x), mode="clip")  # NaN, inf and the far outside land in the end buckets
+        j += x >= self._next[j]  # the knot in x's own bucket, if any, at or below x
+        if np.fmax.reduce(x, initial=-np.inf) > self.x_last:  # rare: above the last knot, which shares its bucket
+            j[x > self.x_last] = self.xp.size + 1
+        return j, x - self._knot[j]
+
+    def interp(self, x: NDArray[np.float64], *tables: tuple[NDArray[np.float64], NDArray[np.float64]]) -> list[NDArray[np.float64]]:
+        """numpy.interp(x, xp, fp, left=nan, right=nan) for each table (:meth:`slopes` of an fp) at the same ``x``.
+
+        Whichever of numpy.interp's search and the buckets is the cheaper
+        (:meth:`searched`); the buckets in slices of :data:`_SLICE` arguments, so
+        that the temporaries stay in the cache, and one placing for all tables.
+        """
+        flat = x.ravel()
+        if self.searched(flat):
+            return [np.asarray(np.interp(x, self.xp, fp[1:-1], left=np.nan, right=np.nan), dtype=float) for _, fp in tables]
+        outs = [np.empty_like(flat) for _ in tables]
+        for i in range(0, flat.size, _SLICE):
+            place = self.place(flat[i : i + _SLICE])
+            for out, (slope, fp) in zip(outs, tables):
+                out[i : i + _SLICE] = self.value(place, slope, fp)
+        return [out.reshape(x.shape) for out in outs]
+
+    def value(self, place: tuple[NDArray[np.intp], NDArray[np.float64]], slope: NDArray[np.float64],
+              fp: NDArray[np.float64]) -> NDArray[np.float64]:
+        """numpy.interp(x, xp, fp, left=nan, right=nan) from a :meth:`place` of ``x`` and :meth:`slopes` of fp."""
+        j, dx = place
+        out = slope[j] * dx  # numpy.interp's slope*(x - xp[j]) + fp[j], in its order
+        out += fp[j]
+        return out
+
+
+_GRID = _Knots(_LOG_T)
 
 
 def _gauss_panels(edges_m: NDArray[np.float64]) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
@@ -243,27 +371,47 @@ class Band:
     # -- fast path ----------------------------------------------------------
     @cached_property
     def _table(self) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
-        log_t = np.linspace(np.log(TABLE_T_MIN_K), np.log(TABLE_T_MAX_K), _TABLE_POINTS)
+        log_t = _LOG_T
         log_s = np.log(self.signal(np.exp(log_t)))
         if not np.all(np.diff(log_s) > 0):
             raise ValueError(f"band {self.name}: signal is not increasing with temperature")
         return log_t, log_s
 
+    @cached_property
+    def _forward(self) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+        """Slopes and values of ln S over the shared ln T knots, for :meth:`_Knots.value`."""
+        return _GRID.slopes(self._table[1])
+
+    @cached_property
+    def _inverse(self) -> tuple[_Knots, NDArray[np.float64], NDArray[np.float64]]:
+        """The ln S knots, and slopes and values of ln T over them."""
+        knots = _Knots(self._table[1])
+        return (knots, *knots.slopes(self._table[0]))
+
+    def _log_signal_at(self, log_t: NDArray[np.float64]) -> NDArray[np.float64]:
+        """ln S at ln T from the table, NaN outside it, without warning: numpy.interp's result to the bit."""
+        return _GRID.interp(log_t, self._forward)[0]
+
+    def _log_t_at(self, log_signal: NDArray[np.float64]) -> NDArray[np.float64]:
+        """ln T at ln S from the table, NaN outside it: numpy.interp's result to the bit."""
+        if log_signal.size < _SEARCH_BELOW:  # numpy.interp's search, without building the buckets
+            log_t, log_s = self._table
+            return np.asarray(np.interp(log_signal, log_s, log_t, left=np.nan, right=np.nan), dtype=float)
+        knots, slope, fp = self._inverse
+        return knots.interp(log_signal, (slope, fp))[0]
+
     def log_signal(self, temperature_k: ArrayLike) -> NDArray[np.float64]:
         """ln S(T) from the table; NaN (with :class:`OutOfRangeWarning`) outside the table."""
         t = np.asarray(temperature_k, dtype=float)
-        log_t, log_s = self._table
         with np.errstate(divide="ignore", invalid="ignore"):
             lt = np.log(t)
-        out: NDArray[np.float64] = np.interp(lt, log_t, log_s, left=np.nan, right=np.nan)  # numpy's stubs type float ufunc results as Any
+        out = self._log_signal_at(lt)
         _flag_outside(out, t, "temperature (K)", f"{TABLE_T_MIN_K:g}..{TABLE_T_MAX_K:g} K")
         return out
 
     def temperature_from_log_signal(self, log_signal: ArrayLike) -> NDArray[np.float64]:
         """Invert ln S to T (K) from the table; NaN outside the table's range."""
-        ls = np.asarray(log_signal, dtype=float)
-        log_t, log_s = self._table
-        t: NDArray[np.float64] = np.exp(np.interp(ls, log_s, log_t, left=np.nan, right=np.nan))  # numpy's stubs type float ufunc results as Any
+        t: NDArray[np.float64] = np.exp(self._log_t_at(np.asarray(log_signal, dtype=float)))
         return t
 
     def temperature_k(self, signal: ArrayLike) -> NDArray[np.float64]:
@@ -274,6 +422,19 @@ class Band:
 
     def __repr__(self) -> str:
         return f"Band({self.name!r})"
+
+
+def _log_signals(bands: tuple[Band, ...], temperature_k: NDArray[np.float64]) -> list[NDArray[np.float64]]:
+    """:meth:`Band.log_signal` of several bands at the same temperatures, placed on the shared ln T knots once.
+
+    Warns as the bands' own calls would, one after the other.
+    """
+    with np.errstate(divide="ignore", invalid="ignore"):
+        lt = np.log(temperature_k)
+    outs = _GRID.interp(lt, *(band._forward for band in bands))
+    for out in outs:
+        _flag_outside(out, temperature_k, "temperature (K)", f"{TABLE_T_MIN_K:g}..{TABLE_T_MAX_K:g} K")
+    return outs
 
 
 def band_radiance(band: Band, temperature_k: ArrayLike) -> NDArray[np.float64]:
@@ -288,7 +449,10 @@ def _flag_outside(
 
     ``show`` is the value quoted in the message, ``given`` by default.
     """
-    bad = np.isnan(result) & ~np.isnan(given)
+    missing = np.isnan(result)
+    if not missing.any():  # the usual case, in one pass
+        return
+    bad = missing & ~np.isnan(given)
     if not bad.any():
         return
     if given.ndim == 0:

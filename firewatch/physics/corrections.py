@@ -52,7 +52,11 @@ or where the model has no value within the probes, it warns with
 :class:`UncertaintyWarning` naming the cause. The
 remedy is the Monte Carlo propagation of JCGM 101:2008 [JCGM101]_ in
 :func:`firewatch.physics.montecarlo.monte_carlo_single_band`, which
-returns an asymmetric coverage interval.
+returns an asymmetric coverage interval. The probes run over slices of the
+readings (:data:`_SLICE`), which keeps their many temporaries in the
+cache. The band tables give numpy.interp's own doubles however they are
+read (:class:`firewatch.physics.bands._Knots`), so value and uncertainty do
+not depend on the way the tables were read.
 
 Input checking: emissivity and transmission settings outside (0, 1] and
 slopes <= 0 raise ``ValueError``; indicated temperatures outside the band
@@ -68,13 +72,14 @@ See ``DeWitt1988``, ``GUM2008``, ``JCGM101`` and ``Planck1901`` in docs/referenc
 from __future__ import annotations
 
 import warnings
+from functools import lru_cache
 from typing import Any, Literal, overload
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from firewatch.physics._warnings import OutOfRangeWarning, RangeError, UncertaintyWarning, exact
-from firewatch.physics.bands import Band, _flag_outside
+from firewatch.physics.bands import _GRID, Band, _flag_outside, _Knots, _log_signals
 from firewatch.physics.constants import C2, ZERO_CELSIUS
 from firewatch.physics.windows import Window
 
@@ -269,7 +274,8 @@ def correct_single_band(
     s_t = np.exp(scene_band.log_signal(t))
     ds_t = s_t * _dlog(scene_band, t)  # dS_w/dT at the corrected temperature
     s_meas_gray = np.exp(log_meas) / gray
-    tau_eff = gray * s_t / np.exp(band.log_signal(t))
+    # without a window the band is the scene's and its signal at t is s_t: not read twice
+    tau_eff = gray * s_t / (s_t if scene_band is band else np.exp(band.log_signal(t)))
     terms = [
         (s_t - (0.0 if s_bg is None else s_bg)) / (eps * ds_t) * u_eps,
         s_meas_gray / (eps * ds_t) * (u_tau / tau_eff),
@@ -301,27 +307,29 @@ def _log_scene(log_meas_gray: NDArray[np.float64], eps: NDArray[np.float64], s_b
 
 _INPUTS = ("emissivity", "transmission", "indicated temperature", "background")
 
+_SLICE = 1 << 14
+"""Readings probed at a time: the probes' temporaries (several per input) then stay in the cache."""
+
 
 def _probe(
     band: Band, scene_band: Band, t: NDArray[np.float64], eps: NDArray[np.float64], u_eps: NDArray[np.float64],
     gray: NDArray[np.float64], tau_eff: NDArray[np.float64], u_tau: NDArray[np.float64], log_meas: NDArray[np.float64],
     t_ind: NDArray[np.float64], u_ind: NDArray[np.float64], settings: NDArray[np.float64],
-    t_bg: NDArray[np.float64] | None, u_bg: NDArray[np.float64], shape: tuple[int, ...],
+    t_bg: NDArray[np.float64] | None, u_bg: NDArray[np.float64], shape: tuple[int, ...], active: list[bool],
 ) -> tuple[dict[int, tuple[NDArray[np.float64], NDArray[np.float64]]], NDArray[np.float64] | None]:
     """Departures of the corrected temperature from ``t`` (K) at the probes of :func:`_check_linearity`.
 
-    Returns the departures at +2 u and -2 u for each input that has an uncertainty (keyed by its index in
+    Returns the departures at +2 u and -2 u for each ``active`` input (keyed by its index in
     ``_INPUTS``), and, where both the emissivity and the background have one, the product term: the mixed
     difference over their four corners, scaled to f_xy u_x u_y and doubled to compare with a 95 % half-width.
     All probes are solved in one pass: the scene signals are stacked, then one logarithm and one table lookup.
     """
-    active = [bool(np.any(u_eps > 0)), bool(np.any(u_tau > 0)), bool(np.any(u_ind > 0)),
-              t_bg is not None and bool(np.any(u_bg > 0))]
-    s_m = np.broadcast_to(np.exp(log_meas) / gray, shape)
-    s_b = np.broadcast_to(np.exp(scene_band.log_signal(t_bg)), shape) if t_bg is not None else None
-    e = np.broadcast_to(eps, shape)
-    e_hi = np.broadcast_to(np.minimum(eps + 2 * u_eps, 1.0), shape)
-    e_lo = np.broadcast_to(np.maximum(eps - 2 * u_eps, 1e-6), shape)
+    # inputs keep their own shapes (one number, or one per reading): the arithmetic broadcasts them
+    s_m = np.exp(log_meas) / gray
+    s_b = np.exp(scene_band._log_signal_at(np.log(t_bg))) if t_bg is not None else None
+    e = eps
+    e_hi = np.minimum(eps + 2 * u_eps, 1.0)
+    e_lo = np.maximum(eps - 2 * u_eps, 1e-6)
     rows: list[tuple[Any, Any, Any]] = []  # (measured signal / gray, emissivity, background signal) per probe
     if active[0]:
         rows += [(s_m, e_hi, s_b), (s_m, e_lo, s_b)]
@@ -330,20 +338,25 @@ def _probe(
                  (s_m / np.maximum(1.0 - 2 * u_tau / tau_eff, 1e-6), e, s_b)]
     if active[2]:
         for sign in (1.0, -1.0):
-            lm = band.log_signal(np.maximum(t_ind + sign * 2 * u_ind, 1.0)) + np.log(settings)
-            rows.append((np.broadcast_to(np.exp(lm) / gray, shape), e, s_b))
+            lm = band._log_signal_at(np.log(np.maximum(t_ind + sign * 2 * u_ind, 1.0))) + np.log(settings)
+            rows.append((np.exp(lm) / gray, e, s_b))
     if active[3]:
         assert t_bg is not None
-        b_hi = np.broadcast_to(np.exp(scene_band.log_signal(t_bg + 2 * u_bg)), shape)
-        b_lo = np.broadcast_to(np.exp(scene_band.log_signal(np.maximum(t_bg - 2 * u_bg, 1.0))), shape)
+        b_hi = np.exp(scene_band._log_signal_at(np.log(t_bg + 2 * u_bg)))
+        b_lo = np.exp(scene_band._log_signal_at(np.log(np.maximum(t_bg - 2 * u_bg, 1.0))))
         rows += [(s_m, e, b_hi), (s_m, e, b_lo)]
         if active[0]:
             rows += [(s_m, e_hi, b_hi), (s_m, e_hi, b_lo), (s_m, e_lo, b_hi), (s_m, e_lo, b_lo)]
     scene = np.empty((len(rows), *shape))
     for k, (m, ek, bk) in enumerate(rows):
-        scene[k] = m / ek if bk is None else (m - (1.0 - ek) * bk) / ek
-    scene[~(scene > 0)] = np.nan  # no solution: the background alone gives more than the reading
-    d = scene_band.temperature_from_log_signal(np.log(scene)) - np.broadcast_to(t, shape)
+        if bk is None:
+            np.divide(m, ek, out=scene[k])
+        else:
+            scene[k] = (m - (1.0 - ek) * bk) / ek
+    # no solution where the background alone gives more than the reading: the log is then -inf or NaN, off the table
+    np.log(scene, out=scene)
+    d = scene_band.temperature_from_log_signal(scene)
+    d -= t
     out: dict[int, tuple[NDArray[np.float64], NDArray[np.float64]]] = {}
     k = 0
     for i, on in enumerate(active):
@@ -352,10 +365,34 @@ def _probe(
             k += 2
     cross = None
     if active[0] and active[3]:
-        step = np.broadcast_to(e_hi - e_lo, shape)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            cross = np.where(step > 0, (d[k] - d[k + 1] - d[k + 2] + d[k + 3]) * np.broadcast_to(u_eps, shape) / (2.0 * step), 0.0)
+        step = e_hi - e_lo
+        cross = np.where(step > 0, (d[k] - d[k + 1] - d[k + 2] + d[k + 3]) * u_eps / (2.0 * step), 0.0)
     return out, cross
+
+
+def _judge(
+    pairs: dict[int, tuple[NDArray[np.float64], NDArray[np.float64]]], cross: NDArray[np.float64] | None,
+    u: NDArray[np.float64], t: NDArray[np.float64], shape: tuple[int, ...],
+) -> tuple[NDArray[np.float64], NDArray[np.bool_], NDArray[np.bool_]]:
+    """The probes' largest relative departure from 2 u, where that is too large, and where the model has no value within them.
+
+    The one-sided departures, summed in quadrature, plus the product term
+    added whole, estimate the upper and lower 95 % half-widths (see
+    :func:`_check_linearity`).
+    """
+    up = np.sqrt(sum(np.square(np.maximum(np.fmax(a, b), 0.0)) for a, b in pairs.values()))
+    down = np.sqrt(sum(np.square(np.minimum(np.fmin(a, b), 0.0)) for a, b in pairs.values()))
+    if cross is not None:
+        up, down = up + np.abs(cross), down + np.abs(cross)  # the product term is not Gaussian (heavy tails): added whole
+    two_u = 2.0 * u
+    off = np.maximum(np.abs(up / two_u - 1.0), np.abs(down / two_u - 1.0))
+    undefined = np.zeros(shape, dtype=bool)
+    for a, b in pairs.values():
+        undefined |= np.isnan(a) | np.isnan(b)
+    if cross is not None:
+        undefined |= np.isnan(cross)
+    undefined &= np.isfinite(t)
+    return off, ((off > LINEARITY_LIMIT) & (two_u > 0)) | undefined, undefined
 
 
 def _check_linearity(
@@ -373,37 +410,56 @@ def _check_linearity(
     mixed second difference, JCGM 100 5.1.2 note; added whole, as a product
     of two uncertain inputs has heavy tails), estimate the upper and lower
     95 % half-widths; they are compared with 2 u.
+
+    The readings are probed in slices of :data:`_SLICE`, each input flattened
+    to the readings' shape (or kept whole where it is one number).
     """
-    if not (np.any(u_eps > 0) or np.any(u_tau > 0) or np.any(u_ind > 0) or (t_bg is not None and np.any(u_bg > 0))):
+    active = [bool(np.any(u_eps > 0)), bool(np.any(u_tau > 0)), bool(np.any(u_ind > 0)),
+              t_bg is not None and bool(np.any(u_bg > 0))]
+    if not any(active):
         return
     shape = np.broadcast_shapes(t.shape, u.shape)
+    size = int(np.prod(shape))
+
+    def flat(x: NDArray[np.float64]) -> NDArray[np.float64]:
+        if x.ndim == 0:
+            return x
+        return x.ravel() if x.shape == shape else np.broadcast_to(x, shape).ravel()
+
+    ins = [flat(np.asarray(x, dtype=float)) for x in (t, eps, u_eps, gray, tau_eff, u_tau, log_meas, t_ind, u_ind, settings, u_bg, u)]
+    bg = None if t_bg is None else flat(t_bg)
+
+    def probe(start: int, stop: int) -> tuple[dict[int, tuple[NDArray[np.float64], NDArray[np.float64]]],
+                                              NDArray[np.float64] | None, NDArray[np.float64], NDArray[np.float64]]:
+        def cut(x: NDArray[np.float64]) -> NDArray[np.float64]:
+            return x if x.ndim == 0 else x[start:stop]
+        x = [cut(v) for v in ins]
+        pairs, cross = _probe(band, scene_band, x[0], x[1], x[2], x[3], x[4], x[5], x[6], x[7], x[8], x[9],
+                              None if bg is None else cut(bg), x[10], (stop - start,), active)
+        return pairs, cross, x[11], x[0]
+
+    off = np.empty(size)
+    bad = np.empty(size, dtype=bool)
+    undefined = np.empty(size, dtype=bool)
     with warnings.catch_warnings(), np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         warnings.simplefilter("ignore", OutOfRangeWarning)  # a probe off the table is an undefined value, counted below
-        pairs, cross = _probe(band, scene_band, t, eps, u_eps, gray, tau_eff, u_tau, log_meas, t_ind, u_ind, settings,
-                              t_bg, u_bg, shape)
-    if not pairs:
-        return
-    up = np.sqrt(sum(np.square(np.maximum(np.fmax(a, b), 0.0)) for a, b in pairs.values()))
-    down = np.sqrt(sum(np.square(np.minimum(np.fmin(a, b), 0.0)) for a, b in pairs.values()))
-    if cross is not None:
-        up, down = up + np.abs(cross), down + np.abs(cross)  # the product term is not Gaussian (heavy tails): added whole
-    two_u = 2.0 * np.broadcast_to(u, shape)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        off = np.maximum(np.abs(up / two_u - 1.0), np.abs(down / two_u - 1.0))
-    undefined = np.zeros(shape, dtype=bool)
-    for a, b in pairs.values():
-        undefined |= np.isnan(a) | np.isnan(b)
-    if cross is not None:
-        undefined |= np.isnan(cross)
-    undefined &= np.isfinite(np.broadcast_to(t, shape))
-    bad = ((off > LINEARITY_LIMIT) & (two_u > 0)) | undefined
+        for start in range(0, size, _SLICE):
+            stop = min(start + _SLICE, size)
+            pairs, cross, u_part, t_part = probe(start, stop)
+            off[start:stop], bad[start:stop], undefined[start:stop] = _judge(pairs, cross, u_part, t_part, (stop - start,))
     if not bad.any():
         return
     # the worst value, and the input whose probes stray furthest from a straight line there
-    i = np.unravel_index(int(np.argmax(np.where(bad, np.nan_to_num(off, nan=np.inf), -1.0))), shape)
-    stray = {k: abs(float(a[i]) + float(b[i])) for k, (a, b) in pairs.items()}
+    worst = int(np.argmax(np.where(bad, np.nan_to_num(off, nan=np.inf), -1.0)))
+    start = worst - worst % _SLICE  # its slice probed again, as it was: the same values
+    with warnings.catch_warnings(), np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        warnings.simplefilter("ignore", OutOfRangeWarning)
+        pairs, cross, _, _ = probe(start, min(start + _SLICE, size))
+    j = worst - start
+    i = np.unravel_index(worst, shape)
+    stray = {k: abs(float(a[j]) + float(b[j])) for k, (a, b) in pairs.items()}
     if cross is not None:
-        stray[3] = max(stray.get(3, 0.0), abs(float(cross[i])))
+        stray[3] = max(stray.get(3, 0.0), abs(float(cross[j])))
     k = max(stray, key=lambda key: np.inf if np.isnan(stray[key]) else stray[key])
     t_i = float(np.broadcast_to(t, shape)[i]) - ZERO_CELSIUS
     if k == 0:
@@ -416,9 +472,9 @@ def _check_linearity(
                f"({t_i:.0f} degC): the emissivity's and background's uncertainties act together")
     else:
         why = f"the {_INPUTS[k]}'s uncertainty is large for the model's curvature"
-    if bool(undefined[i]):
+    if bool(undefined[worst]):
         why = "the model has no value within 2 u of the inputs (a reading near what the background alone gives, or an emissivity near 0); " + why
-    count = f"{int(bad.sum())} of {bad.size} values: " if bad.ndim and bad.size > 1 else ""
+    count = f"{int(bad.sum())} of {size} values: " if len(shape) and size > 1 else ""
     warnings.warn(
         f"{count}first-order uncertainty unreliable: {why}; use the Monte Carlo propagation "
         "(monte_carlo_single_band, calc pyro --monte-carlo)",
@@ -482,6 +538,15 @@ def _ratio_table(band1: Band, band2: Band) -> tuple[NDArray[np.float64], NDArray
     return log_t1, log_r
 
 
+@lru_cache(maxsize=16)
+def _ratio_lookup(band1: Band, band2: Band) -> tuple[tuple[NDArray[np.float64], NDArray[np.float64]], _Knots,
+                                                     tuple[NDArray[np.float64], NDArray[np.float64]]]:
+    """ln R over the shared ln T knots, and the ln R knots with ln T over them (bands compare by identity)."""
+    log_t, log_r = _ratio_table(band1, band2)
+    knots = _Knots(log_r)
+    return _GRID.slopes(log_r), knots, knots.slopes(log_t)
+
+
 def _check_slope(value: ArrayLike, name: str) -> NDArray[np.float64]:
     v = np.asarray(value, dtype=float)
     bad = ~(v > 0)
@@ -491,7 +556,8 @@ def _check_slope(value: ArrayLike, name: str) -> NDArray[np.float64]:
 
 
 def _log_ratio(band1: Band, band2: Band, t_k: NDArray[np.float64]) -> NDArray[np.float64]:
-    return band1.log_signal(t_k) - band2.log_signal(t_k)
+    s1, s2 = _log_signals((band1, band2), t_k)  # one placing on the shared knots for both bands
+    return s1 - s2
 
 
 @overload
@@ -561,12 +627,12 @@ def correct_ratio(
     """
     k = _check_slope(slope, "slope")
     k_set = _check_slope(set_slope, "set slope")
-    log_t, log_r = _ratio_table(band1, band2)
+    forward, knots, inverse = _ratio_lookup(band1, band2)  # numpy.interp's results on the ratio table, to the bit
     t_ind = _to_kelvin(indicated_c)
-    lr_ind = np.interp(np.log(t_ind), log_t, log_r, left=np.nan, right=np.nan)
+    lr_ind = _GRID.interp(np.log(t_ind), forward)[0]
     _flag_outside(lr_ind, t_ind, "indicated temperature (K)", "200..4000 K")
     lr = lr_ind + np.log(k_set) - np.log(k)
-    t = np.exp(np.interp(lr, log_r, log_t, left=np.nan, right=np.nan))
+    t = np.exp(knots.interp(lr, inverse)[0])
     _flag_outside(t, lr, "indicated temperature (degC)", "what the band table covers (200..4000 K) once corrected", indicated_c)
     if not return_uncertainty:
         return t - ZERO_CELSIUS

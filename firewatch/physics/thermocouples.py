@@ -65,6 +65,24 @@ _NEWTON_STEPS = 4
 """Newton steps after the NIST polynomial; two already reach 1e-9 degC."""
 
 
+_ForwardPieces = tuple[tuple[float, float, NDArray[np.float64], NDArray[np.float64], "tuple[float, float, float] | None"], ...]
+_InversePieces = tuple[tuple[float, float, NDArray[np.float64]], ...]
+
+
+def _forward_pieces(forward: ForwardRanges) -> _ForwardPieces:
+    """Each range's coefficients and their derivative's, as arrays made once (issue 15: ``polyder`` per call
+    cost as much as the conversion of a half-second batch)."""
+    out = []
+    for t0, t1, coeffs, expo in forward:
+        c = np.asarray(coeffs, dtype=float)
+        out.append((t0, t1, c, np.polynomial.polynomial.polyder(c), expo))
+    return tuple(out)
+
+
+def _inverse_pieces(inverse: InverseRanges) -> _InversePieces:
+    return tuple((e0, e1, np.asarray(coeffs, dtype=float)) for e0, e1, _t0, _t1, coeffs, _band in inverse)
+
+
 @dataclass(frozen=True)
 class _TypeInfo:
     forward: ForwardRanges
@@ -73,6 +91,8 @@ class _TypeInfo:
     t_max: float
     e_min: float
     e_max: float
+    forward_pieces: _ForwardPieces = ()
+    inverse_pieces: _InversePieces = ()
 
 
 def check_type(tc_type: str) -> str:
@@ -93,12 +113,13 @@ def _info(tc_type: str) -> _TypeInfo:
         pass
     fwd = FORWARD[letter]
     inv = INVERSE[letter]
-    info = _TypeInfo(forward=fwd, inverse=inv, t_min=fwd[0][0], t_max=fwd[-1][1], e_min=np.nan, e_max=np.nan)
+    pieces, inv_pieces = _forward_pieces(fwd), _inverse_pieces(inv)
+    info = _TypeInfo(fwd, inv, fwd[0][0], fwd[-1][1], np.nan, np.nan, pieces, inv_pieces)
     # The invertible EMF range is E(t) at the ends of the published inverse
     # ranges, from the reference function itself: the EMF limits printed
     # beside the inverse coefficients are rounded to 0.001 mV.
     ends, _ = _forward(np.array([inv[0][2], inv[-1][3]]), info)
-    info = _TypeInfo(fwd, inv, info.t_min, info.t_max, float(ends[0]), float(ends[1]))
+    info = _TypeInfo(fwd, inv, info.t_min, info.t_max, float(ends[0]), float(ends[1]), pieces, inv_pieces)
     _INFO[letter] = info
     return info
 
@@ -158,14 +179,13 @@ def _forward(t: NDArray[np.float64], info: _TypeInfo) -> tuple[NDArray[np.float6
     """EMF and its derivative dE/dt, NaN outside the type's range."""
     emf = np.full(t.shape, np.nan)
     slope = np.full(t.shape, np.nan)
-    for t0, t1, coeffs, expo in info.forward:
+    for t0, t1, c, dc, expo in info.forward_pieces:
         mask = (t >= t0) & (t <= t1) & np.isnan(emf)
         if not mask.any():
             continue
         tm = t[mask]
-        c = np.asarray(coeffs)
         e = np.polynomial.polynomial.polyval(tm, c)
-        d = np.polynomial.polynomial.polyval(tm, np.polynomial.polynomial.polyder(c))
+        d = np.polynomial.polynomial.polyval(tm, dc)
         if expo is not None:
             a0, a1, a2 = expo
             g = a0 * np.exp(a1 * (tm - a2) ** 2)
@@ -264,10 +284,10 @@ def _inverse_polynomial(e: NDArray[np.float64], info: _TypeInfo, clip: bool) -> 
     ranges = info.inverse
     if clip:
         e = np.clip(e, ranges[0][0], ranges[-1][1])
-    for e0, e1, _t0, _t1, coeffs, _band in ranges:
+    for e0, e1, c in info.inverse_pieces:
         mask = (e >= e0) & (e <= e1) & np.isnan(t)
         if mask.any():
-            t[mask] = np.polynomial.polynomial.polyval(e[mask], np.asarray(coeffs))
+            t[mask] = np.polynomial.polynomial.polyval(e[mask], c)
     return t
 
 

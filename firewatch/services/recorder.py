@@ -210,7 +210,8 @@ class Ingest:
         (``sqlite3.OperationalError``: a full disk, an I/O error) are left
         to the caller's commit handling, after the batch is rolled back.
         """
-        batch = self._guarded(lines, lambda: self.pipeline.process([self.parser.parse(line, received) for received, line in lines]))
+        pipeline = self.pipeline
+        batch = self._guarded(lines, lambda: pipeline.process_columns(self.parser.parse_batch(lines, pipeline.site.channel_names, pipeline.clock)))
         self.lines += len(lines)
         return batch
 
@@ -373,6 +374,9 @@ class Recorder:
             signal.signal(signal.SIGINT, self._handle_signal)
             if hasattr(signal, "SIGHUP"):
                 signal.signal(signal.SIGHUP, signal.SIG_IGN)
+        if writer.converted is not None:
+            log.warning(f"{self.log_path} was a log of the earlier layout: converted to the compact one to continue it; "
+                        f"the original is kept as {writer.converted}")
         pipeline = Pipeline(self.site, self.schedule, self.clock)
         if writer.continuing:
             warm_start(pipeline, writer)
@@ -401,9 +405,13 @@ class Recorder:
         reader.start()
         started = time.monotonic()
         reason = "stopped"
+        due = time.monotonic() + self.commit_interval_s
         try:
             while not self.stop_event.is_set():
-                self.stop_event.wait(self.commit_interval_s)
+                # cycles start every commit interval, whatever the last one took, so that what a kill can lose is
+                # bounded by the interval and one cycle's work, not their sum (issue 15: at most 1 s lost)
+                self.stop_event.wait(max(due - time.monotonic(), 0.0))
+                due = max(due + self.commit_interval_s, time.monotonic())
                 self._cycle(writer, ingest)
                 if self.duration_s is not None and time.monotonic() - started >= self.duration_s:
                     reason = f"--for {self.duration_s:g} s elapsed"
@@ -673,23 +681,26 @@ def attach_alarms(ingest: Ingest, site: SiteProfile, schedule: Schedule | None):
 
 
 def warm_start(pipeline: Pipeline, writer: LogWriter) -> int:
-    """Feed a continued log's readings back through the pipeline's trends and progress; return the samples read."""
-    names = [tc.name for tc in pipeline.site.thermocouples] + [f"{tc.name}.rate" for tc in pipeline.site.thermocouples]
-    values: dict[str, np.ndarray] = {}
-    times = None
-    for name in names:
-        rows = writer.query(
-            "SELECT r.t, r.value FROM reading r JOIN channel c ON c.id = r.channel_id WHERE c.name = ? ORDER BY r.sample_id", (name,)
-        ).fetchall()
-        if not rows:
-            continue
-        arr = np.array([(t, np.nan if v is None else v) for t, v in rows], dtype=float)
-        if times is None:
-            times = arr[:, 0]
-        if arr.shape[0] == times.size:
-            values[name] = arr[:, 1]
-    if times is None:
+    """Feed a continued log's readings back through the pipeline's trends and progress; return the samples read.
+
+    The rates need their window and the progress tracker the control
+    thermocouple's history: the thermocouples are read from the sample rows,
+    and their rates taken as the pipeline recomputes them.
+    """
+    from firewatch.store.layout import column
+
+    ids = {name: cid for cid, name in writer.query("SELECT id, name FROM channel WHERE kind = 'thermocouple'").fetchall()}
+    names = [tc.name for tc in pipeline.site.thermocouples if tc.name in ids]
+    if not names:
         return 0
-    last = writer.query("SELECT t, received_utc, device_time FROM sample ORDER BY id DESC LIMIT 1").fetchone()
-    pipeline.warm_start(times, values, None if last is None else (float(last[0]), float(last[1]), last[2]))
+    cols = ", ".join(column(ids[n]) for n in names)
+    rows = writer.query(f"SELECT t, {cols} FROM sample ORDER BY id").fetchall()
+    if not rows:
+        return 0
+    arr = np.array(rows, dtype=float)  # NULL becomes NaN
+    times = arr[:, 0]
+    values = {name: arr[:, 1 + k] for k, name in enumerate(names)}
+    last = writer.query("SELECT last_received_utc, last_device_time FROM session WHERE last_received_utc IS NOT NULL ORDER BY id DESC LIMIT 1").fetchone()
+    received = float(last[0]) if last is not None else float(times[-1])
+    pipeline.warm_start(times, values, (float(times[-1]), received, None if last is None else last[1]))
     return int(times.size)

@@ -1,21 +1,31 @@
 """Re-evaluating a recorded firing: conversion, reconciliation and alarms again, with other settings.
 
-The firing log is opened read-only and never changed: the raw lines are
-parsed again and run through a fresh :class:`~firewatch.firing.pipeline.Pipeline`
-and :class:`~firewatch.firing.alarms.AlarmEngine` in memory.
+The firing log is opened read-only and never changed. When the replay's
+site converts lines as every session of the log did (the same input,
+channels, thermocouple types and cold junctions: :func:`as_recorded`), the
+measured values the log keeps are exactly what parsing and converting its raw
+lines again would give, so they are read as kept, a block at a time, and a
+fresh :class:`~firewatch.firing.pipeline.Pipeline` computes the derived
+channels and progress on from them for a fresh
+:class:`~firewatch.firing.alarms.AlarmEngine`. Otherwise the raw lines are
+parsed again (in a second process) and run through both, placed on the time
+line anew. The two give the same alarms on a log replayed with its own site
+(tests/services/test_replay_paths.py).
 """
 
 from __future__ import annotations
 
 import gc
+import threading
 from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 
 from firewatch.firing.alarms import AlarmEngine, Transition
-from firewatch.firing.pipeline import Pipeline
+from firewatch.firing.pipeline import Pipeline, measurement_key
 from firewatch.services.recorder import GAP_S, make_parser
+from firewatch.settings._tomlcheck import ProfileError
 from firewatch.settings.profile import SiteProfile, load_site
 from firewatch.settings.schedule import Schedule, load_schedule
 from firewatch.store.reader import LogReader
@@ -65,26 +75,17 @@ _LINES_PER_JOB = 24_000
 
 
 def _parse_job(job: tuple[str, SiteProfile, str, int, int]) -> list:
-    """In a worker process: read raw lines ``lo < id <= hi`` and gather them into column batches."""
+    """In a worker process: read raw lines ``lo < id <= hi`` and parse them into column batches."""
     path, site, clock, lo, hi = job
-    import sqlite3
-
-    from firewatch.firing.pipeline import to_columns
-
-    con = sqlite3.connect(f"file:{path}?mode=ro", uri=True)
-    try:
-        rows = con.execute("SELECT received_utc, line FROM raw_line WHERE id > ? AND id <= ? ORDER BY id", (lo, hi)).fetchall()
-    finally:
-        con.close()
     parser = make_parser(site, clock)
     names = site.channel_names
     gc.disable()
     out = []
-    for i in range(0, len(rows), _LINES_PER_BATCH):
-        items = [parser.parse(bytes(line), received) for received, line in rows[i : i + _LINES_PER_BATCH]]
-        batch = to_columns(items, names, clock)
-        batch.raw = [(r[0], b"", r[2], r[3]) for r in batch.raw]  # the bytes are not needed back here
-        out.append(batch)
+    with LogReader(path) as reader:
+        for rows in reader.raw_lines(lo, hi, batch_size=_LINES_PER_BATCH):
+            cols = parser.parse_batch([(received, line) for received, line, _ in rows], names, clock)
+            raw = [(r[0], b"", r[2], r[3]) for r in cols.raw]  # the bytes are not needed back here
+            out.append(cols._replace(raw=raw))
     return out
 
 
@@ -92,9 +93,12 @@ def _batches(reader: LogReader, site: SiteProfile, clock: str):
     """Column batches of the whole log, parsed in a second process while this one computes."""
     import multiprocessing
 
-    lo, hi = reader.query("SELECT coalesce(min(id), 1) - 1, coalesce(max(id), 0) FROM raw_line")[0]
-    jobs = [(str(reader.path.resolve()), site, clock, a, min(a + _LINES_PER_JOB, hi)) for a in range(lo, hi, _LINES_PER_JOB)]
-    if len(jobs) <= 1:
+    lo, hi = reader.raw_span()
+    path = reader.readings_path()  # an old log's converted copy is made here, not in each worker
+    jobs = [(str(path.resolve()), site, clock, a, min(a + _LINES_PER_JOB, hi)) for a in range(lo, hi, _LINES_PER_JOB)]
+    # a second process only when forking is safe: from a process with one thread (a child forked while another
+    # thread holds a lock waits on it for ever; the dashboard and a test runner have threads)
+    if len(jobs) <= 1 or threading.active_count() > 1:
         for job in jobs:
             yield from _parse_job(job)
         return
@@ -103,7 +107,69 @@ def _batches(reader: LogReader, site: SiteProfile, clock: str):
             yield from batches
 
 
+def as_recorded(reader: LogReader, site: SiteProfile) -> bool:
+    """True when every session of the log converted its lines as ``site`` does (:func:`measurement_key`), so that the
+    measured values it keeps are what parsing its raw lines again would give."""
+    key = measurement_key(site)
+    fallback = reader.firing().get("site_profile") or ""
+    texts = {text or fallback for (text,) in reader.query("SELECT site_profile FROM session")}
+    for text in texts:
+        try:
+            if measurement_key(load_site(f"{reader.path} (site profile in the log)", text=text)) != key:
+                return False
+        except ProfileError:
+            return False
+    return bool(texts)
+
+
 def _reevaluate(reader: LogReader, site: SiteProfile, schedule: Schedule | None) -> Reevaluation:
+    if as_recorded(reader, site):
+        return _from_kept(reader, site, schedule)
+    return _from_raw(reader, site, schedule)
+
+
+_SAMPLES_PER_BATCH = 20_000
+
+
+def _from_kept(reader: LogReader, site: SiteProfile, schedule: Schedule | None) -> Reevaluation:
+    """Re-evaluate from the measured values as kept: derived channels, progress and alarms computed again."""
+    clock = reader.firing().get("clock") or "wall"
+    pipeline = Pipeline(site, schedule, clock)
+    engine = AlarmEngine(site, schedule)
+    result = Reevaluation(engine, None, None)
+    result.lines, result.malformed = reader.raw_counts()
+    # rejected lines are placed on the time line as the recorder logged them
+    malformed = np.array([t for (t,) in reader.query("SELECT t FROM event WHERE kind = 'malformed' ORDER BY t")], dtype=float)
+    span = reader.sample_span()
+    taken = 0
+    if span is not None:
+        lo, hi = span
+        for a in range(lo, hi + 1, _SAMPLES_PER_BATCH):
+            block = reader.block(a, min(a + _SAMPLES_PER_BATCH - 1, hi))
+            if not block.ids.size:
+                continue
+            times = block.t
+            values, status = pipeline.continue_measured(times, block.values, block.status)
+            upto = int(np.searchsorted(malformed, times[-1], side="right")) if a + _SAMPLES_PER_BATCH <= hi else malformed.size
+            engine.evaluate(times, values, status, malformed[taken:upto].tolist())
+            taken = upto
+            result.samples += int(times.size)
+            result.start_t = float(times[0]) if result.start_t is None else result.start_t
+            result.end_t = float(times[-1])
+            for name, v in values.items():
+                ok = np.flatnonzero(np.isfinite(v))
+                if ok.size:
+                    result.last[name] = float(v[ok[-1]])
+    if taken < malformed.size:
+        engine.evaluate(np.empty(0), {}, {}, malformed[taken:].tolist())
+    if result.end_t is not None:
+        engine.tick(result.end_t + GAP_S)
+    result.transitions = list(engine.transitions)
+    return result
+
+
+def _from_raw(reader: LogReader, site: SiteProfile, schedule: Schedule | None) -> Reevaluation:
+    """Re-evaluate from the raw lines: parsed, converted and placed on the time line again (another site's settings)."""
     clock = reader.firing().get("clock") or "wall"
     pipeline = Pipeline(site, schedule, clock)
     engine = AlarmEngine(site, schedule)

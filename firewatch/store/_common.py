@@ -26,7 +26,7 @@ __all__ = [
     "damage_error", "schema_sql",
 ]
 
-SCHEMA_VERSION = 2
+SCHEMA_VERSION = 3
 """The schema this firewatch writes and the newest it reads."""
 
 

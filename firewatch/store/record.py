@@ -15,7 +15,6 @@ import numpy as np
 
 from firewatch import __version__
 from firewatch.firing.record import (
-    MEASURED_KINDS,
     FiringInputs,
     FiringRecord,
     build_record,
@@ -25,12 +24,12 @@ from firewatch.settings._tomlcheck import ProfileError
 from firewatch.settings.profile import SiteProfile, load_site
 from firewatch.settings.schedule import Schedule, load_schedule
 from firewatch.store._common import log_error
+from firewatch.store.derive import CHUNK, derived_block
+from firewatch.store.layout import STEP_KIND, step_column
 from firewatch.store.reader import LogReader
 
 __all__ = ["load_record", "profiles_from_log", "read_record"]
 
-_SAMPLE = np.dtype([("id", "i8"), ("t", "f8")])
-_FULL = np.dtype([("id", "i8"), ("t", "f8"), ("v", "f8"), ("s", "i8")])
 
 
 def profiles_from_log(reader: LogReader) -> tuple[SiteProfile | None, Schedule | None]:
@@ -48,54 +47,6 @@ def profiles_from_log(reader: LogReader) -> tuple[SiteProfile | None, Schedule |
     except ProfileError:
         schedule = None
     return site, schedule
-
-
-class _Columns:
-    """Channels' readings as arrays aligned with the samples, read in the cheapest way the log allows.
-
-    Turning rows into Python objects is what costs (a third of a microsecond
-    a value), so a channel with a reading in every sample (the usual case) is
-    read as its values alone, in sample order; a channel with readings
-    missing is read again in full and aligned by sample id.
-    """
-
-    def __init__(self, reader: LogReader) -> None:
-        self.con = reader.con
-        n, lo, hi = self.con.execute("SELECT count(*), min(id), max(id) FROM sample").fetchone()
-        self.n = int(n)
-        self.contiguous = self.n > 0 and hi - lo + 1 == self.n
-        self._ids: np.ndarray | None = None
-        self.times: np.ndarray | None = None
-
-    def _sample(self) -> np.ndarray:
-        if self._ids is None:
-            sample = np.fromiter(self.con.execute("SELECT id, t FROM sample ORDER BY id"), dtype=_SAMPLE, count=self.n)
-            self._ids = sample["id"]
-            if self.times is None:
-                self.times = sample["t"].copy()
-        return self._ids
-
-    def channel(self, channel_id: int, status: bool) -> tuple[np.ndarray, tuple[np.ndarray, np.ndarray, np.ndarray] | None]:
-        """The channel's values aligned with the samples, and with ``status`` its own (t, value, status) for the digest."""
-        want_t = self.times is None
-        cols = ("t, " if want_t else "") + "value" + (", status" if status else "")
-        dtype = ([("t", "f8")] if want_t else []) + [("v", "f8")] + ([("s", "i8")] if status else [])
-        rows = np.fromiter(self.con.execute(f"SELECT {cols} FROM reading WHERE channel_id = ? ORDER BY sample_id", (channel_id,)), dtype=dtype)
-        if self.contiguous and rows.size == self.n:  # one reading per sample, so sample order is alignment
-            if want_t:
-                self.times = rows["t"].copy()
-            assert self.times is not None
-            own = (self.times, rows["v"], rows["s"]) if status else None
-            return rows["v"].copy(), own
-        full = np.fromiter(self.con.execute("SELECT sample_id, t, value, status FROM reading WHERE channel_id = ? ORDER BY sample_id",
-                                            (channel_id,)), dtype=_FULL)
-        ids = self._sample()
-        out = np.full(self.n, np.nan)
-        if full.size and self.n:
-            pos = np.searchsorted(ids, full["id"])
-            ok = (pos < self.n) & (ids[np.minimum(pos, self.n - 1)] == full["id"])
-            out[pos[ok]] = full["v"][ok]
-        return out, ((full["t"], full["v"], full["s"]) if status else None)
 
 
 def read_record(reader: LogReader, site: SiteProfile | None = None, schedule: Schedule | None = None) -> FiringRecord:
@@ -131,22 +82,31 @@ def _read_record(reader: LogReader, site: SiteProfile | None, schedule: Schedule
     for py in site.pyrometers if site is not None else ():
         derived += [f"{py.name}.divergence", f"{py.name}.allowed"]
 
-    cols = _Columns(reader)
+    measured, other = reader._channels()
+    span = reader.sample_span()
     values: dict[str, np.ndarray] = {}
     samples: dict[str, int] = {}
     digest_input = []
-    for cid, name, kind in channels:
-        if kind in MEASURED_KINDS:
-            values[name], own = cols.channel(cid, status=True)
-            assert own is not None
-            samples[name] = int(own[0].size)
-            digest_input.append((name, *own))
-    for name in derived:
-        if name in ids:
-            values[name] = cols.channel(ids[name], status=False)[0]
-    if cols.times is None:
-        cols._sample()
-    times = cols.times if cols.times is not None else np.empty(0)
+    times = np.empty(0)
+    if span is not None:
+        lo, hi = span
+        parts = [reader.block(a, min(a + CHUNK - 1, hi)) for a in range(lo, hi + 1, CHUNK)]
+        times = np.concatenate([p.t for p in parts])
+        sample_ids = np.concatenate([p.ids for p in parts])
+        for name in measured:
+            values[name] = np.concatenate([p.values[name] for p in parts])
+            status = np.concatenate([p.status[name] for p in parts])
+            has = np.concatenate([p.has[name] for p in parts])
+            samples[name] = int(has.sum())
+            digest_input.append((name, times[has], values[name][has], status[has]))
+        del parts
+        wanted = [n for n in derived if n in other and other[n][1] != STEP_KIND]
+        if wanted:
+            got = derived_block(reader, lo, hi, wanted)
+            values.update({n: got.values[n] for n in wanted if n in got.values})
+        for name in derived:
+            if name in other and other[name][1] == STEP_KIND:
+                values[name] = _steps_filled(reader, other[name][0], sample_ids, fill=name == "plan.segment")
     envelopes: dict[str, tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
     reference = site.reference.name if site is not None and site.reference is not None else None
     for name in ([reference] if reference is not None else []) + [f"{py.name}.reconciled" for py in (site.pyrometers if site is not None else ())]:
@@ -159,10 +119,8 @@ def _read_record(reader: LogReader, site: SiteProfile | None, schedule: Schedule
         dict(zip(("started_utc", "ended_utc", "end_reason", "host", "port", "firewatch_version"), r))
         for r in reader.query("SELECT started_utc, ended_utc, end_reason, host, port, firewatch_version FROM session ORDER BY id")
     ]
-    lines, malformed = reader.query("SELECT count(*), coalesce(sum(ok = 0), 0) FROM raw_line")[0]
-    reasons = reader.query(
-        "SELECT coalesce(reason, 'no reason given'), count(*) FROM raw_line WHERE ok = 0 GROUP BY 1 ORDER BY 2 DESC, 1 LIMIT 5"
-    )
+    lines, malformed = reader.raw_counts()
+    reasons = reader.malformed_reasons(5)
     notes = [(e["t"], e["detail"] or "") for e in reader.events(["note"])]
     inputs = FiringInputs(
         site=site,
@@ -189,6 +147,23 @@ def _read_record(reader: LogReader, site: SiteProfile | None, schedule: Schedule
         firewatch_version=__version__,
     )
     return build_record(inputs)
+
+
+def _steps_filled(reader: LogReader, cid: int, ids: np.ndarray, fill: bool) -> np.ndarray:
+    """A progress channel kept at the step rate, aligned with the samples ``ids``: NaN between its steps, or with
+    ``fill`` each step's value carried to the samples up to the next (a segment number)."""
+    rows = reader.query(f"SELECT sample_id, {step_column(cid)} FROM step ORDER BY sample_id")
+    out = np.full(ids.size, np.nan)
+    if not rows:
+        return out
+    arr = np.array(rows, dtype=float)
+    pos = np.searchsorted(ids, arr[:, 0].astype(np.int64))
+    if fill:
+        idx = np.searchsorted(arr[:, 0], ids, side="right") - 1  # the last step at or before each sample
+        return np.where(idx >= 0, arr[np.maximum(idx, 0), 1], np.nan)
+    ok = pos < ids.size
+    out[pos[ok]] = arr[ok, 1]
+    return out
 
 
 def load_record(path: str | Path, site: SiteProfile | None = None, schedule: Schedule | None = None) -> FiringRecord:

@@ -1,4 +1,4 @@
--- The firing log's schema (version 2); documented in docs/log-format.md.
+-- The firing log's schema (version 3, the compact layout); documented in docs/log-format.md.
 CREATE TABLE meta(key TEXT PRIMARY KEY, value TEXT NOT NULL);
 CREATE TABLE firing(
     id INTEGER PRIMARY KEY CHECK (id = 1),
@@ -24,7 +24,9 @@ CREATE TABLE session(
     firewatch_version TEXT,
     sqlite_version TEXT,
     site_profile TEXT,
-    schedule TEXT
+    schedule TEXT,
+    last_received_utc REAL,
+    last_device_time REAL
 );
 CREATE TABLE channel(
     id INTEGER PRIMARY KEY,
@@ -32,7 +34,8 @@ CREATE TABLE channel(
     kind TEXT NOT NULL,
     unit TEXT NOT NULL,
     source TEXT,
-    description TEXT
+    description TEXT,
+    first_sample INTEGER
 );
 CREATE TABLE raw_line(
     id INTEGER PRIMARY KEY,
@@ -42,24 +45,41 @@ CREATE TABLE raw_line(
     ok INTEGER NOT NULL,
     reason TEXT
 );
+CREATE TABLE raw_block(
+    id INTEGER PRIMARY KEY,
+    last_id INTEGER NOT NULL,
+    session_id INTEGER NOT NULL,
+    n INTEGER NOT NULL,
+    bad INTEGER NOT NULL,
+    received BLOB NOT NULL,
+    ok BLOB NOT NULL,
+    lengths BLOB NOT NULL,
+    size INTEGER NOT NULL,
+    lines BLOB NOT NULL,
+    reasons TEXT
+);
 CREATE TABLE sample(
     id INTEGER PRIMARY KEY,
     session_id INTEGER NOT NULL,
-    t REAL NOT NULL,
-    received_utc REAL NOT NULL,
-    device_time REAL,
-    seq INTEGER,
-    raw_id INTEGER
+    t REAL NOT NULL
 );
-CREATE INDEX sample_t ON sample(t);
-CREATE TABLE reading(
+CREATE TABLE flag(
     channel_id INTEGER NOT NULL,
+    first_id INTEGER NOT NULL,
+    last_id INTEGER NOT NULL,
+    status INTEGER NOT NULL,
+    PRIMARY KEY (channel_id, first_id)
+) WITHOUT ROWID;
+CREATE TABLE step(
+    sample_id INTEGER PRIMARY KEY
+);
+CREATE TABLE latest(
+    channel_id INTEGER PRIMARY KEY,
     sample_id INTEGER NOT NULL,
     t REAL NOT NULL,
     value REAL,
-    status INTEGER NOT NULL,
-    PRIMARY KEY (channel_id, sample_id)
-) WITHOUT ROWID;
+    status INTEGER NOT NULL
+);
 CREATE TABLE event(
     id INTEGER PRIMARY KEY,
     t REAL NOT NULL,
@@ -95,13 +115,10 @@ CREATE TABLE alarm_state(
 );
 CREATE INDEX alarm_state_alarm ON alarm_state(alarm_id);
 CREATE TABLE trend_minute(
-    channel_id INTEGER NOT NULL,
     minute INTEGER NOT NULL,
+    channel_id INTEGER NOT NULL,
     lo REAL NOT NULL,
     hi REAL NOT NULL,
     n INTEGER NOT NULL,
-    PRIMARY KEY (channel_id, minute)
+    PRIMARY KEY (minute, channel_id)
 ) WITHOUT ROWID;
-CREATE VIEW readings AS
-    SELECT c.name AS channel, r.t AS t, r.value AS value, r.status AS status, c.unit AS unit
-    FROM reading r JOIN channel c ON c.id = r.channel_id;

@@ -33,6 +33,8 @@ from firewatch.firing.alarms.causes import CauseStep, cause_label, cause_steps, 
 from firewatch.settings._tomlcheck import ProfileError
 from firewatch.settings.profile import AlarmSettings, SiteProfile, load_site
 from firewatch.settings.schedule import Schedule, load_schedule
+from firewatch.store.derive import DerivedBlock, Deriver, derived_block
+from firewatch.store.layout import STEP_KIND, column, step_column
 from firewatch.store.reader import LogReader
 from firewatch.transport.records import Status
 
@@ -46,6 +48,9 @@ HEARTBEAT_STALE_S = 5.0
 LIVE, NO_DATA, RECORDER_STOPPED, FIRING_ENDED, REPLAY = "live", "no-data", "recorder-stopped", "firing-ended", "replay"
 VERDICTS = ("ok", "OUT", "STALE", "OPEN", "UNDER", "OVER", "ERROR", "RANGE", "—")
 """Every word :meth:`Moment.verdict` gives: screens keep room for the longest, never cutting one."""
+_DERIVED_CACHE = 20_000
+"""Samples a view recomputes derived channels for at most (and keeps); a chart wider than this draws derived channels
+from the per-minute envelope."""
 _LABELS = {LIVE: "LIVE", NO_DATA: "NO DATA", RECORDER_STOPPED: "RECORDER STOPPED", FIRING_ENDED: "FIRING ENDED", REPLAY: "REPLAY"}
 
 
@@ -170,6 +175,7 @@ class FiringView:
         self._closed = False
         self._query = self.reader.query
         self.reader.query = self._locked_query  # type: ignore[method-assign]
+        self.reader.lock = self._lock
         firing = self.reader.firing()
         self.firing = firing
         self.site: SiteProfile | None
@@ -189,7 +195,9 @@ class FiringView:
         self.end_received_utc: float | None = None
         self.last_sample_id = 0
         self._latest: tuple[int, dict[str, tuple[float, float, int]]] = (-1, {})
+        self._derived_cache: DerivedBlock | None = None
         self.refresh_bounds()
+        Deriver(self.reader).prepare()  # the band tables, built once here rather than by the first seek
 
     @property
     def no_data_s(self) -> float:
@@ -210,20 +218,42 @@ class FiringView:
     # -- bounds -------------------------------------------------------------------------
     def refresh_bounds(self) -> bool:
         """Re-read the first and latest sample (a live log grows); True if there is news."""
-        # one aggregate per query: SQLite answers a lone min() or max() from the index, several together by a scan
-        newest = self.reader.query("SELECT id, received_utc FROM sample ORDER BY id DESC LIMIT 1")
+        newest = self.reader.query("SELECT id, t FROM sample ORDER BY id DESC LIMIT 1")
         last_id = newest[0][0] if newest else 0
         news = last_id != self.last_sample_id
         if news:
             self.last_sample_id = last_id
-            self.end_received_utc = newest[0][1] if newest else None
-            self.start_t = self.reader.query("SELECT min(t) FROM sample")[0][0]
-            self.end_t = self.reader.query("SELECT max(t) FROM sample")[0][0]
+            self.reader.refresh()  # a continuing recorder may have added channels
+            received = self.reader.query("SELECT last_received_utc FROM session WHERE last_received_utc IS NOT NULL ORDER BY id DESC LIMIT 1")
+            self.end_received_utc = received[0][0] if received else None
+            self.start_t = self.reader.query("SELECT t FROM sample ORDER BY id LIMIT 1")[0][0] if newest else None
+            self.end_t = newest[0][1] if newest else None
         return news
 
     def sample_at(self, t: float) -> int | None:
-        sample_id: int | None = self.reader.query("SELECT max(id) FROM sample WHERE t <= ?", (t,))[0][0]
-        return sample_id
+        """The last sample at or before ``t``."""
+        return self.reader.sample_at(t)
+
+    def _derived(self, lo: int, hi: int) -> DerivedBlock:
+        """The derived channels of samples ``lo`` to ``hi``, recomputed; a live view extends what it computed before."""
+        cached = self._derived_cache
+        if cached is not None and cached.ids.size and cached.ids[0] <= lo and hi <= cached.ids[-1]:
+            a, b = np.searchsorted(cached.ids, [lo, hi + 1])
+            return _slice(cached, int(a), int(b))
+        if cached is not None and cached.ids.size and cached.ids[0] <= lo <= cached.ids[-1] + 1 and hi - int(cached.ids[0]) < _DERIVED_CACHE:
+            more = derived_block(self.reader, int(cached.ids[-1]) + 1, hi)
+            joined = DerivedBlock(np.concatenate([cached.ids, more.ids]), np.concatenate([cached.t, more.t]))
+            for name in cached.values:
+                if name in more.values:
+                    joined.values[name] = np.concatenate([cached.values[name], more.values[name]])
+                    joined.status[name] = np.concatenate([cached.status[name], more.status[name]])
+            self._derived_cache = joined
+            a, b = np.searchsorted(joined.ids, [lo, hi + 1])
+            return _slice(joined, int(a), int(b))
+        got = derived_block(self.reader, lo, hi)
+        if hi - lo < _DERIVED_CACHE:
+            self._derived_cache = got
+        return got
 
     # -- the live state ------------------------------------------------------------------
     def session(self) -> dict[str, Any] | None:
@@ -275,8 +305,8 @@ class FiringView:
         data_age = 0.0 if self.end_received_utc is None else max(now - self.end_received_utc, 0.0)
         m = Moment(self.end_t if self.end_t is not None else now)
         sid = self.last_sample_id
-        if self._latest[0] != sid:  # one query per channel only when there is news
-            self._latest = (sid, self._rows_at(sid) if sid else {})
+        if self._latest[0] != sid:  # read only when there is news
+            self._latest = (sid, self._rows_at(sid, live=True) if sid else {})
         for name, (rt, value, status) in self._latest[1].items():
             m.values[name], m.status[name] = value, status
             # time on the firing's line since the value, plus the wall-clock silence since the newest sample
@@ -287,16 +317,41 @@ class FiringView:
         m.state = self.state(now, m.value("plan.segment"))
         return m
 
-    def _rows_at(self, sid: int) -> dict[str, tuple[float, float, int]]:
-        out = {}
-        for name, cid in self._ids.items():
-            row = self.reader.query(
-                "SELECT t, value, status FROM reading WHERE channel_id = ? AND sample_id <= ? ORDER BY sample_id DESC LIMIT 1",
-                (cid, sid),
-            )
+    def _rows_at(self, sid: int, live: bool = False) -> dict[str, tuple[float, float, int]]:
+        """Every channel's value at sample ``sid``: ``(its time, value, status)``.
+
+        Measured channels from the sample itself; live, the derived and progress
+        channels as the recorder last wrote them; at another moment, derived ones
+        recomputed there and progress from the last step at or before it.
+        """
+        reader = self.reader
+        out: dict[str, tuple[float, float, int]] = {}
+        block = reader.block(sid, sid)
+        if not block.ids.size:
+            return out
+        t = float(block.t[0])
+        for name in block.values:
+            if block.has[name][0]:
+                out[name] = (t, float(block.values[name][0]), int(block.status[name][0]))
+        names = {cid: name for name, cid in self._ids.items() if name not in block.values}
+        if live:
+            for cid, rt, value, status in reader.query("SELECT channel_id, t, value, status FROM latest"):
+                if cid in names:
+                    out[names[cid]] = (float(rt), math.nan if value is None else float(value), int(status))
+            return out
+        derived = self._derived(sid, sid)
+        for name, values in derived.values.items():
+            out[name] = (t, float(values[0]), int(derived.status[name][0]))
+        progress = [(name, cid) for name, (cid, kind) in reader._channels()[1].items() if kind == STEP_KIND]
+        if progress:
+            cols = ", ".join(f"p.{step_column(cid)}" for _, cid in progress)
+            row = reader.query(f"SELECT s.t, {cols} FROM step p JOIN sample s ON s.id = p.sample_id "
+                               "WHERE p.sample_id <= ? ORDER BY p.sample_id DESC LIMIT 1", (sid,))
             if row:
-                rt, value, status = row[0]
-                out[name] = (float(rt), math.nan if value is None else float(value), int(status))
+                rt = float(row[0][0])
+                for (name, _), value in zip(progress, row[0][1:]):
+                    missing = value is None  # not placed in the schedule
+                    out[name] = (rt, math.nan if missing else float(value), int(Status.MISSING) if missing else int(Status.OK))
         return out
 
     def _events(self, where: str, params: tuple[Any, ...], limit: int) -> list[dict[str, Any]]:
@@ -386,15 +441,43 @@ class FiringView:
             if rows:
                 arr = np.array([r[1:] for r in rows], dtype=float)
                 return Trend(arr[:, 0], arr[:, 1], arr[:, 2])
-        lo_id = self.reader.query("SELECT min(id) FROM sample WHERE t >= ?", (t0,))[0][0]
-        hi_id = self.reader.query("SELECT max(id) FROM sample WHERE t <= ?", (t1,))[0][0]
+        lo_id = self.reader.sample_at(t0, after=True)
+        hi_id = self.reader.sample_at(t1)
         if lo_id is None or hi_id is None or hi_id < lo_id:
             return empty
-        rows = self.reader.query(
-            "SELECT CAST((t - ?) / ? AS INTEGER) AS b, avg(t), min(value), max(value) FROM reading "
-            "WHERE channel_id = ? AND sample_id BETWEEN ? AND ? AND value IS NOT NULL GROUP BY b ORDER BY b",
-            (t0, width, cid, lo_id, hi_id),
-        )
+        measured, other = self.reader._channels()
+        if name in measured:
+            col = column(cid)
+            rows = self.reader.query(
+                f"SELECT CAST((t - ?) / ? AS INTEGER) AS b, avg(t), min({col}), max({col}) FROM sample "
+                f"WHERE id BETWEEN ? AND ? AND {col} IS NOT NULL GROUP BY b ORDER BY b",
+                (t0, width, lo_id, hi_id),
+            )
+        elif other[name][1] == STEP_KIND:
+            col = f"p.{step_column(cid)}"
+            rows = self.reader.query(
+                f"SELECT CAST((s.t - ?) / ? AS INTEGER) AS b, avg(s.t), min({col}), max({col}) FROM step p JOIN sample s ON s.id = p.sample_id "
+                f"WHERE p.sample_id BETWEEN ? AND ? AND {col} IS NOT NULL GROUP BY b ORDER BY b",
+                (t0, width, lo_id, hi_id),
+            )
+        elif hi_id - lo_id >= _DERIVED_CACHE:  # too many to recompute for a chart: the per-minute envelope
+            rows = self.reader.query(
+                "SELECT minute * 60.0 + 30.0, minute * 60.0 + 30.0, lo, hi FROM trend_minute WHERE channel_id = ? AND minute BETWEEN ? AND ? ORDER BY minute",
+                (cid, int(t0 // 60), int(t1 // 60)),
+            )
+        else:
+            got = self._derived(lo_id, hi_id)
+            values = got.values.get(name)
+            if values is None:
+                return empty
+            ok = np.isfinite(values)
+            if not ok.any():
+                return empty
+            t, v = got.t[ok], values[ok]
+            b = ((t - t0) / width).astype(np.int64)
+            starts = np.concatenate([[0], np.flatnonzero(np.diff(b)) + 1])
+            counts = np.diff(np.concatenate([starts, [b.size]]))
+            return Trend(np.add.reduceat(t, starts) / counts, np.minimum.reduceat(v, starts), np.maximum.reduceat(v, starts))
         if not rows:
             return empty
         arr = np.array([r[1:] for r in rows], dtype=float)
@@ -406,6 +489,13 @@ class FiringView:
             return np.empty(0), np.empty(0)
         t = np.linspace(t0, t1, points)
         return t, self.schedule.planned_temperature(t - self.start_t)
+
+
+def _slice(block: DerivedBlock, a: int, b: int) -> DerivedBlock:
+    out = DerivedBlock(block.ids[a:b], block.t[a:b])
+    out.values = {k: v[a:b] for k, v in block.values.items()}
+    out.status = {k: v[a:b] for k, v in block.status.items()}
+    return out
 
 
 def _urgent_first(rows: list[tuple[Any, ...]]) -> list[AlarmRow]:

@@ -61,6 +61,19 @@ from firewatch.store._common import (
     schema_sql,
     sqlite_code,
 )
+from firewatch.store.layout import (
+    CHARTED_SUFFIX,
+    MEASURED_KINDS,
+    RAW_BLOCK_LINES,
+    STEP_KIND,
+    STEP_S,
+    column,
+    is_compact,
+    pack_raw,
+    status_runs,
+    step_column,
+    write_views,
+)
 
 __all__ = [
     "LogWriter", "BriefWrite", "take_lock", "release_lock", "BRIEF_HOLDER", "BRIEF_WAIT_S", "Outage", "HOLD_S", "HOLD_RATE_HZ",
@@ -122,12 +135,10 @@ def release_lock(fd: int) -> None:
         pass
 
 
-def _upgrade(con: sqlite3.Connection) -> None:
-    """Bring a version 1 log to version 2 in place (adds ``session.heartbeat_utc``); inside the caller's transaction."""
-    columns = {r[1] for r in con.execute("PRAGMA table_info(session)")}
-    if "heartbeat_utc" not in columns:
-        con.execute("ALTER TABLE session ADD COLUMN heartbeat_utc REAL")
-    con.execute("UPDATE meta SET value = ? WHERE key = 'schema_version'", (str(SCHEMA_VERSION),))
+def _real(value: float) -> float | None:
+    """A float for SQLite: NaN is stored as NULL."""
+    v = float(value)
+    return None if v != v else v
 
 
 def _open_lock(path: Path) -> int:
@@ -251,6 +262,8 @@ class _BatchOp:
     last_t: float | None
     lines: int
     units: int
+    steps: list[int] = field(default_factory=list)
+    """Indices of the batch's samples that keep the derived channels (the step rate)."""
     bulk: bool = True
 
 
@@ -349,7 +362,14 @@ class LogWriter:
         if self.path.exists() and not self.path.is_file():
             raise LogError(f"{self.path}: not a regular file, so not a firing log")
         self._lock_fd = take_lock(self.path, f"pid {os.getpid()} on {socket.gethostname()}")
+        self.converted: Path | None = None
+        """Where the original of a log of the earlier layout is kept, when this writer converted it to continue it."""
         try:
+            if self.path.exists() and self.path.stat().st_size > 0:
+                from firewatch.store.upgrade import convert_in_place, needs_upgrade
+
+                if needs_upgrade(self.path):
+                    self.converted = convert_in_place(self.path)
             if hold_lines is not None:
                 self._make_reserve()
             self._open(channels, site_name, kiln, site_text, schedule_name, schedule_text, clock, port, durable)
@@ -375,7 +395,6 @@ class LogWriter:
             if sqlite_code(exc) in STORAGE_CODES:
                 raise
             raise LogError(f"{self.path}: not a firing log ({exc})") from None
-        stored_version = SCHEMA_VERSION
         if new:
             self.con.execute("BEGIN")
             self.con.executemany(
@@ -396,14 +415,19 @@ class LogWriter:
                 raise LogError(f"{self.path}: not a firing log ({exc})") from None
             if version is None or int(version[0]) > SCHEMA_VERSION:
                 raise LogError(f"{self.path}: log schema {version[0] if version else '?'} is newer than this firewatch reads ({SCHEMA_VERSION})")
-            stored_version = int(version[0])
+            if not is_compact(self.con):
+                raise LogError(f"{self.path}: a log of the earlier layout (schema {version[0]}); it is converted before it is continued")
         self.continuing = not new
         self.last_t: float | None = None
+        self._last_slot = -np.inf
         if self.continuing:
-            row = self.con.execute("SELECT max(t) FROM sample").fetchone()
-            self.last_t = row[0]
+            row = self.con.execute("SELECT t FROM sample ORDER BY id DESC LIMIT 1").fetchone()
+            self.last_t = None if row is None else row[0]
+            if self.last_t is not None:
+                self._last_slot = float(np.floor(self.last_t / STEP_S))
         # ids are counted here rather than read back, so that held batches keep theirs
-        self._next_raw: int = self.con.execute("SELECT coalesce(max(id), 0) + 1 FROM raw_line").fetchone()[0]
+        self._next_raw: int = self.con.execute(
+            "SELECT max((SELECT coalesce(max(id), 0) FROM raw_line), (SELECT coalesce(max(last_id), 0) FROM raw_block)) + 1").fetchone()[0]
         self._next_sample: int = self.con.execute("SELECT coalesce(max(id), 0) + 1 FROM sample").fetchone()[0]
         self._durable_t = self.last_t
         self._held: deque[_Statement | _BatchOp | _Dropped] = deque()
@@ -416,17 +440,33 @@ class LogWriter:
         self._next_try = 0.0
         self._chunk = 64
         self._next_checkpoint = 0.0
+        kinds = {r[1]: r[2] for r in self.con.execute("SELECT id, name, kind FROM channel")}
         self._channel_ids: dict[str, int] = {r[1]: r[0] for r in self.con.execute("SELECT id, name FROM channel")}
         self.con.execute("BEGIN")
-        if stored_version < SCHEMA_VERSION:
-            _upgrade(self.con)
+        added = False
         for ch in channels:
             if ch.name not in self._channel_ids:
                 cur = self.con.execute(
-                    "INSERT INTO channel(name, kind, unit, source, description) VALUES (?, ?, ?, ?, ?)",
-                    (ch.name, ch.kind, ch.unit, ch.source, ch.description),
+                    "INSERT INTO channel(name, kind, unit, source, description, first_sample) VALUES (?, ?, ?, ?, ?, ?)",
+                    (ch.name, ch.kind, ch.unit, ch.source, ch.description, self._next_sample),
                 )
-                self._channel_ids[ch.name] = _inserted_id(cur)
+                cid = self._channel_ids[ch.name] = _inserted_id(cur)
+                kinds[ch.name] = ch.kind
+                if ch.kind in MEASURED_KINDS:
+                    # a column of its own: ALTER TABLE ADD COLUMN changes the schema only, never rewrites the rows
+                    self.con.execute(f"ALTER TABLE sample ADD COLUMN {column(cid)} REAL")
+                    added = True
+                elif ch.kind == STEP_KIND:
+                    self.con.execute(f"ALTER TABLE step ADD COLUMN {step_column(cid)} REAL")
+                    added = True
+        if added or new:
+            write_views(self.con)
+        self._measured = {name: cid for name, cid in self._channel_ids.items() if kinds[name] in MEASURED_KINDS}
+        self._derived = {name: cid for name, cid in self._channel_ids.items() if kinds[name] not in MEASURED_KINDS}
+        self._progress = frozenset(name for name in self._derived if kinds[name] == STEP_KIND)
+        self._charted = {name: cid for name, cid in self._channel_ids.items() if name in self._measured or name.endswith(CHARTED_SUFFIX)}
+        # lines a killed recorder left waiting are compressed now, before this session's join them
+        self._pack_raw(1)
         cur = self.con.execute(
             "INSERT INTO session(started_utc, heartbeat_utc, port, pid, host, firewatch_version, sqlite_version, site_profile, schedule) "
             "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
@@ -454,11 +494,18 @@ class LogWriter:
         self._next_raw += len(batch.raw)
         self._next_sample += len(batch.samples)
         first_t = last_t = None
+        steps: list[int] = []
         if batch.samples:
             first_t, last_t = batch.samples[0][1], batch.samples[-1][1]
+            # the first sample of every STEP_S seconds keeps the derived channels (decided here, once, so that
+            # a batch held through a write error keeps its own)
+            slots = np.floor(batch.times / STEP_S)
+            before = np.concatenate([[self._last_slot], slots[:-1]])
+            steps = np.flatnonzero(slots != before).tolist()
+            self._last_slot = float(slots[-1])
             self.last_t = last_t
         units = sum(1 + len(r[1]) // HOLD_LINE_BYTES for r in batch.raw) or 1
-        self._run(_BatchOp(batch, first_raw, first_sample, first_t, last_t, len(batch.raw), units))
+        self._run(_BatchOp(batch, first_raw, first_sample, first_t, last_t, len(batch.raw), units, steps))
 
     def _insert_batch(self, op: _BatchOp) -> None:
         con, batch, first_raw = self.con, op.batch, op.first_raw
@@ -468,50 +515,105 @@ class LogWriter:
         )
         if batch.samples:
             first_sample = op.first_sample
-            ids = np.arange(first_sample, first_sample + len(batch.samples))
+            n = len(batch.samples)
+            ids = range(first_sample, first_sample + n)
+            t_list = batch.times.tolist()
+            measured = [(name, cid) for name, cid in self._measured.items() if name in batch.values]
+            # NaN is stored as NULL; one row per sample, the time once. The channels go to Python lists in one
+            # call over them stacked, and only a channel with a NaN is looked through (issue 15)
+            columns: list[list[float | None]] = []
+            flagged: list[int] = []
+            if measured:
+                stacked = np.stack([batch.values[name] for name, _ in measured])
+                nan_rows = np.isnan(stacked).any(axis=1).tolist()
+                columns = [[None if v != v else v for v in row] if has_nan else row
+                           for row, has_nan in zip(stacked.tolist(), nan_rows)]
+                # statuses other than OK (0) are kept as runs: only the channels that have any
+                flagged = np.flatnonzero(np.stack([batch.status[name] for name, _ in measured]).any(axis=1)).tolist()
+            names = "".join(f", {column(cid)}" for _, cid in measured)
             con.executemany(
-                "INSERT INTO sample(id, session_id, t, received_utc, device_time, seq, raw_id) VALUES (?, ?, ?, ?, ?, ?, ?)",
-                [(int(ids[i]), self.session_id, s[1], s[2], s[3], s[4], first_raw + s[0]) for i, s in enumerate(batch.samples)],
+                f"INSERT INTO sample(id, session_id, t{names}) VALUES (?, ?, ?{', ?' * len(measured)})",
+                zip(ids, itertools.repeat(self.session_id, n), t_list, *columns),
             )
-            times = batch.times
-            id_list = ids.tolist()
-            t_list = times.tolist()
-            for name, values in batch.values.items():
-                cid = self._channel_ids.get(name)
-                if cid is None:
-                    continue
-                status = batch.status[name].tolist()
-                vals = [None if v != v else v for v in values.tolist()]  # NaN is stored as NULL
+            for k in flagged:
+                name, cid = measured[k]
+                self._insert_flags(cid, first_sample, batch.status[name])
+            derived = [(name, cid) for name, cid in self._derived.items() if name in batch.values]
+            progress = [(name, cid) for name, cid in derived if name in self._progress]
+            if op.steps and progress:
+                names = "".join(f", {step_column(cid)}" for _, cid in progress)
                 con.executemany(
-                    "INSERT INTO reading(channel_id, sample_id, t, value, status) VALUES (?, ?, ?, ?, ?)",
-                    zip([cid] * len(id_list), id_list, t_list, vals, status),
+                    f"INSERT INTO step(sample_id{names}) VALUES (?{', ?' * len(progress)})",
+                    [(first_sample + i, *(_real(batch.values[name][i]) for name, _ in progress)) for i in op.steps],
                 )
-            self._write_minutes(times, batch)
+            last = first_sample + n - 1
+            con.executemany(
+                "INSERT OR REPLACE INTO latest(channel_id, sample_id, t, value, status) VALUES (?, ?, ?, ?, ?)",
+                [(cid, last, t_list[-1], _real(batch.values[name][-1]), int(batch.status[name][-1])) for name, cid in derived],
+            )
+            self._write_minutes(batch.times, batch)
             # every batch may set started_t: the first one may be dropped while the log cannot be written
             con.execute("UPDATE firing SET started_t = coalesce(started_t, ?), ended_t = ? WHERE id = 1", (t_list[0], t_list[-1]))
+            newest = batch.samples[-1]
+            con.execute("UPDATE session SET last_received_utc = ?, last_device_time = ? WHERE id = ?", (newest[2], newest[3], self.session_id))
         if batch.events:
             con.executemany("INSERT INTO event(t, kind, channel, detail) VALUES (?, ?, ?, ?)", batch.events)
+        self._pack_raw(RAW_BLOCK_LINES)
+
+    def _insert_flags(self, cid: int, first_sample: int, status: np.ndarray) -> None:
+        """Keep a measured channel's statuses other than OK as runs, a run that goes on from the last batch extended."""
+        runs = status_runs(status)
+        if not runs:
+            return
+        con = self.con
+        if runs[0][0] == 0:
+            prev = con.execute("SELECT first_id, last_id, status FROM flag WHERE channel_id = ? ORDER BY first_id DESC LIMIT 1", (cid,)).fetchone()
+            if prev is not None and prev[1] == first_sample - 1 and prev[2] == runs[0][2]:
+                con.execute("UPDATE flag SET last_id = ? WHERE channel_id = ? AND first_id = ?", (first_sample + runs[0][1], cid, prev[0]))
+                runs = runs[1:]
+        con.executemany(
+            "INSERT INTO flag(channel_id, first_id, last_id, status) VALUES (?, ?, ?, ?)",
+            [(cid, first_sample + a, first_sample + b, st) for a, b, st in runs],
+        )
+
+    def _pack_raw(self, at_least: int) -> None:
+        """Compress the waiting raw lines into blocks once ``at_least`` wait (one block per session)."""
+        lo, hi = self.con.execute("SELECT min(id), max(id) FROM raw_line").fetchone()
+        if lo is None or hi - lo + 1 < max(at_least, 1):
+            return
+        rows = self.con.execute("SELECT id, received_utc, line, ok, reason, session_id FROM raw_line ORDER BY id").fetchall()
+        for session, group in itertools.groupby(rows, key=lambda r: r[5]):
+            self.con.execute(
+                "INSERT INTO raw_block(id, last_id, n, bad, received, ok, lengths, size, lines, reasons, session_id) "
+                "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                (*pack_raw(r[:5] for r in group), session),
+            )
+        self.con.execute("DELETE FROM raw_line WHERE id <= ?", (rows[-1][0],))
 
     def _write_minutes(self, times: np.ndarray, batch: Batch) -> None:
-        """Keep the per-minute min and max of every channel, so that viewers draw long firings at once."""
+        """Keep the per-minute min and max of the charted channels, so that viewers draw long firings at once."""
         minutes = np.floor(times / 60.0).astype(np.int64)
         starts = np.concatenate([[0], np.flatnonzero(np.diff(minutes)) + 1])
         keys = minutes[starts].tolist()
-        rows: list[tuple[int, int, float, float, int]] = []
-        for name, values in batch.values.items():
-            cid = self._channel_ids.get(name)
-            if cid is None:
-                continue
-            ok = np.isfinite(values)
-            if not ok.any():
-                continue
-            lo = np.minimum.reduceat(np.where(ok, values, np.inf), starts)
-            hi = np.maximum.reduceat(np.where(ok, values, -np.inf), starts)
-            n = np.add.reduceat(ok.astype(np.int64), starts)
-            rows.extend((cid, k, float(a), float(b), int(c)) for k, a, b, c in zip(keys, lo, hi, n) if c > 0)
+        charted = [(cid, values) for name, values in batch.values.items() if (cid := self._charted.get(name)) is not None]
+        if not charted:
+            return
+        # every charted channel at once, stacked (issue 15: three reductions per channel per batch before)
+        values = np.stack([v for _, v in charted])
+        ok = np.isfinite(values)
+        lo = np.minimum.reduceat(np.where(ok, values, np.inf), starts, axis=1)
+        hi = np.maximum.reduceat(np.where(ok, values, -np.inf), starts, axis=1)
+        count = np.add.reduceat(ok.astype(np.int64), starts, axis=1)
+        # in key order, minute then channel: a minute's rows append, pages fill
+        order = sorted(range(len(charted)), key=lambda i: charted[i][0])
+        cids = [charted[i][0] for i in order]
+        lo_l, hi_l, count_l = lo[order].T.tolist(), hi[order].T.tolist(), count[order].T.tolist()
+        rows = [(cid, key, a, b, c)
+                for key, los, his, counts in zip(keys, lo_l, hi_l, count_l)
+                for cid, a, b, c in zip(cids, los, his, counts) if c > 0]
         self.con.executemany(
             "INSERT INTO trend_minute(channel_id, minute, lo, hi, n) VALUES (?, ?, ?, ?, ?) "
-            "ON CONFLICT(channel_id, minute) DO UPDATE SET lo = min(lo, excluded.lo), hi = max(hi, excluded.hi), n = n + excluded.n",
+            "ON CONFLICT(minute, channel_id) DO UPDATE SET lo = min(lo, excluded.lo), hi = max(hi, excluded.hi), n = n + excluded.n",
             rows,
         )
 
@@ -886,6 +988,7 @@ class LogWriter:
             if self.hold_lines is None:
                 try:
                     if self.con.in_transaction:
+                        self._pack_raw(1)  # a batch run's last lines are compressed too
                         self.con.execute("COMMIT")
                     self.con.execute("UPDATE session SET ended_utc = ?, end_reason = ? WHERE id = ?", (self._clock(), reason, self.session_id))
                 except sqlite3.Error as exc:
@@ -894,6 +997,13 @@ class LogWriter:
                     raise
             else:
                 told = self._close_holding(reason, t)
+                if self.outage is None and not self.con.in_transaction:
+                    try:  # the lines still waiting are compressed now; a log that cannot take it keeps them as they are
+                        self.con.execute("BEGIN")
+                        self._pack_raw(1)
+                        self.con.execute("COMMIT")
+                    except sqlite3.Error:
+                        self._rollback_quietly()
             try:
                 self._checkpoint(force=True)
                 self.con.close()
@@ -1091,7 +1201,7 @@ class BriefWrite:
 
     def timeline_now(self) -> float:
         """Now on the firing's time line: the wall clock, shifted as the newest sample was (device clock)."""
-        row = self.con.execute("SELECT t - received_utc FROM sample ORDER BY id DESC LIMIT 1").fetchone()
+        row = self.con.execute("SELECT s.t - n.last_received_utc FROM sample s JOIN session n ON n.id = s.session_id ORDER BY s.id DESC LIMIT 1").fetchone()
         shift: float = row[0] if row and row[0] is not None else 0.0
         return self._clock() + shift
 

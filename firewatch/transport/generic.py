@@ -23,8 +23,10 @@ whole, so a line missing a configured field is malformed.
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 
+from firewatch.transport.batch import Columns, gather
 from firewatch.transport.records import Malformed, ReadingSet, Status, Value, check_number, check_time
 
 __all__ = ["ChannelMap", "GenericParser"]
@@ -89,6 +91,10 @@ class GenericParser:
                 return f"expected key{self.kv_separator}value, got {pair[:40]!r}"
             out[key.strip()] = value.strip()
         return out
+
+    def parse_batch(self, lines: Sequence[tuple[float, bytes]], channels: Sequence[str], clock: str) -> Columns:
+        """A batch of ``(received, line)`` as columns: :meth:`parse` line by line, gathered."""
+        return gather(self.parse, lines, channels, clock)
 
     def parse(self, line: bytes, received: float) -> ReadingSet | Malformed:
         line = line.rstrip(b"\r\n")

@@ -36,6 +36,7 @@ import struct
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
 
+from firewatch.transport.batch import Columns, gather
 from firewatch.transport.records import Malformed, ReadingSet, Status, Value
 
 __all__ = [
@@ -344,6 +345,10 @@ class ModbusParser:
         self.need_time = need_time and device_time is not None
         self._compiled = [_compile(m) for m in self.maps]
         self._clock = _compile(device_time) if device_time is not None else None
+
+    def parse_batch(self, lines: Sequence[tuple[float, bytes]], channels: Sequence[str], clock: str) -> Columns:
+        """A batch of ``(received, line)`` as columns: :meth:`parse` line by line, gathered."""
+        return gather(self.parse, lines, channels, clock)
 
     def parse(self, line: bytes, received: float) -> ReadingSet | Malformed:
         line = line.rstrip(b"\r\n")

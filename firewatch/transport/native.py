@@ -33,7 +33,11 @@ from __future__ import annotations
 import binascii
 import math
 import re
+from collections.abc import Sequence
 
+import numpy as np
+
+from firewatch.transport.batch import Columns, Gatherer
 from firewatch.transport.records import SEQ_MAX, Malformed, ReadingSet, Status, Value, check_number, check_time
 
 __all__ = ["TAG", "crc16", "encode", "NativeParser"]
@@ -42,6 +46,21 @@ TAG = b"FW1"
 _CHANNEL = re.compile(rb"^[A-Za-z0-9_.\-]{1,32}$")
 _OK = Status.OK
 _STATUS_WORDS = {b"OPEN": Status.OPEN, b"UNDER": Status.UNDER, b"OVER": Status.OVER, b"ERR": Status.ERROR}
+_WORDS = {status: word for word, status in _STATUS_WORDS.items()}
+
+# The fast path's strict forms, each a subset of what ``parse`` accepts and bounded so that its
+# checks cannot fail: a sequence number of at most 18 digits is below SEQ_MAX, a device time of at
+# most 10 integer digits within TIME_LIMIT_S, a value of at most 9 within VALUE_LIMIT. Anything
+# else (a sign, an exponent, more digits) goes through ``parse``.
+# Possessive quantifiers (``{m,n}+``, ``?+``): what follows a run of digits is never a digit, so
+# giving digits back can never help a match; not trying halves the time of a wide line's match.
+_SEQ = rb"(-|\d{1,18}+)"
+_TIME = rb"(-|-?\d{1,10}+(?:\.\d{1,9}+)?+)"
+_NUMBER = rb"(-?\d{1,9}+(?:\.\d{1,12}+)?+)"
+MAX_SHAPES = 64
+"""Line shapes (channels in order, each with its unit or status word) a parser keeps compiled."""
+_TRIED = 4
+"""Shapes tried, most recently matched first, before a line goes through ``parse``."""
 
 
 def crc16(data: bytes) -> int:
@@ -76,6 +95,74 @@ class NativeParser:
     def __init__(self) -> None:
         self._names: dict[bytes, str] = {}
         """Channel names already checked, bytes to str."""
+        self._shapes: list[_Shape] = []
+        """Compiled shapes of lines seen, the most recently matched first (at most :data:`MAX_SHAPES`)."""
+        self._by_key: dict[tuple[tuple[str, str], ...], _Shape] = {}
+
+    def parse_batch(self, lines: Sequence[tuple[float, bytes]], channels: Sequence[str], clock: str) -> Columns:
+        """Parse a batch of ``(received, line)`` into :class:`~firewatch.transport.batch.Columns`.
+
+        Gives what :meth:`parse` gives line by line, gathered. A line whose
+        checksum is right and whose shape (its channels in order, each with
+        its unit or status word) was seen before is read by that shape's
+        compiled pattern, and its numbers are converted with the others of
+        its shape in one numpy call; any other line goes through
+        :meth:`parse`, which also teaches the parser its shape.
+        """
+        g = Gatherer(channels, clock)
+        raw, samples = g.raw, g.samples
+        device = g.device
+        shapes = self._shapes
+        rows: dict[int, tuple[_Shape, list[int], list[tuple[bytes, ...]]]] = {}
+        crc = binascii.crc_hqx
+        for received, line in lines:
+            line = line.rstrip(b"\r\n")
+            body = line[:-6]
+            if line[-6:-4] == b" *" and line[-4:] == b"%04X" % crc(body, 0xFFFF):
+                for shape in shapes[:_TRIED]:
+                    m = shape.match(body)
+                    if m is None:
+                        continue
+                    groups = m.groups()
+                    seq_text, time_text = groups[0], groups[1]
+                    device_time = None if time_text == b"-" else float(time_text)
+                    raw.append((received, line, True, ""))
+                    t = device_time if device and device_time is not None else received
+                    samples.append((len(raw) - 1, t, received, device_time, None if seq_text == b"-" else int(seq_text)))
+                    found = rows.get(id(shape))
+                    if found is None:
+                        found = rows[id(shape)] = (shape, [], [])
+                        if shape is not shapes[0]:
+                            shapes.remove(shape)
+                            shapes.insert(0, shape)
+                    found[1].append(len(samples) - 1)
+                    found[2].append(groups)
+                    break
+                else:
+                    self._single(g, line, received)
+            else:
+                self._single(g, line, received)
+        for shape, index, texts in rows.values():
+            # one conversion for the block: fixed-width byte strings to float64 in C, no Python float per value
+            numbers = np.array(texts, dtype=bytes)[:, 2:].astype(np.float64) if shape.numbers else None
+            values = {name: numbers[:, j] for j, name in enumerate(shape.numbers)} if numbers is not None else {}
+            g.block(np.array(index, dtype=np.intp), values, shape.words)
+        return g.columns()
+
+    def _single(self, g: Gatherer, line: bytes, received: float) -> None:
+        """One line through :meth:`parse`; a good line's shape is learned for the lines after it."""
+        item = self.parse(line, received)
+        g.item(item)
+        if isinstance(item, ReadingSet):
+            key = tuple((v.channel, v.unit if v.status == _OK else _WORDS[v.status].decode()) for v in item.values)
+            shape = self._by_key.get(key)
+            if shape is not None:  # known but beyond the shapes tried: bring it forward
+                self._shapes.remove(shape)
+            else:
+                if len(self._shapes) >= MAX_SHAPES:  # forget the one matched longest ago
+                    del self._by_key[self._shapes.pop().key]
+                shape = self._by_key[key] = _Shape(key)
+            self._shapes.insert(0, shape)
 
     def parse(self, line: bytes, received: float) -> ReadingSet | Malformed:
         line = line.rstrip(b"\r\n")
@@ -143,3 +230,24 @@ class NativeParser:
         if not values:
             return Malformed(received, line, "no channel values")
         return ReadingSet(received, device_time, seq, tuple(values), line)
+
+
+class _Shape:
+    """The compiled pattern of one line shape: its channels in order, each with its unit or status word."""
+
+    def __init__(self, key: tuple[tuple[str, str], ...]) -> None:
+        parts = [b"FW1 " + _SEQ + b" " + _TIME]
+        numbers: list[str] = []
+        words: dict[str, int] = {}
+        for channel, form in key:
+            name = re.escape(channel.encode("ascii"))
+            if form in ("mV", "C"):
+                parts.append(name + b"=" + _NUMBER + form.encode("ascii"))
+                numbers.append(channel)
+            else:
+                parts.append(name + b"=" + form.encode("ascii"))
+                words[channel] = int(_STATUS_WORDS[form.encode("ascii")])
+        self.key = key
+        self.match = re.compile(b" ".join(parts)).fullmatch
+        self.numbers = tuple(numbers)
+        self.words = words

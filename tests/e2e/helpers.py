@@ -97,3 +97,17 @@ def stop(proc: subprocess.Popen, sig: int = signal.SIGTERM, timeout: float = 20.
         proc.kill()
         out, err = proc.communicate()
     return out, err
+
+
+RAW_LINES = "((SELECT coalesce(sum(n), 0) FROM raw_block) + (SELECT count(*) FROM raw_line))"
+"""SQL: every raw line in the log, compressed in blocks or still waiting (docs/log-format.md)."""
+RAW_BAD = "((SELECT coalesce(sum(bad), 0) FROM raw_block) + (SELECT count(*) FROM raw_line WHERE ok = 0))"
+"""SQL: the raw lines that were rejected."""
+
+
+def raw(log: Path) -> list[tuple[bytes, int, str | None]]:
+    """Every raw line as the log keeps it: ``(line, ok, reason)``, in order."""
+    from firewatch.store.reader import LogReader
+
+    with LogReader(log) as r:
+        return [(row[2], row[3], row[4]) for part in r.raw_rows() for row in part]

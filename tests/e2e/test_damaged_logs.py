@@ -138,7 +138,7 @@ def tmux(*args: str) -> str:
 @pytest.mark.skipif(shutil.which("tmux") is None, reason="tmux is installed by .ci/run")
 def test_watch_on_a_damaged_log_ends_with_the_message(sound: Path, tmp_path: Path) -> None:
     # issue 10: watch waited for readings forever on a damaged log
-    log = spoil_table(sound, tmp_path / "readings.db", "reading")
+    log = spoil_table(sound, tmp_path / "readings.db", "sample")
     e = env()
     e["XDG_STATE_HOME"] = str(tmp_path / "state")  # the cautions show first, over the dashboard
     e["TERM"] = "xterm-256color"

@@ -22,7 +22,7 @@ from firewatch.settings.schedule import load_schedule
 from firewatch.store._common import LogError
 from firewatch.store.reader import LogReader
 from firewatch.transport.native import crc16
-from tests.e2e.helpers import firewatch, stop, wait_for
+from tests.e2e.helpers import RAW_LINES, firewatch, raw, stop, wait_for
 
 T0 = 1_773_464_400.0
 
@@ -68,7 +68,7 @@ def test_hostile_lines_over_a_socket_are_counted_and_recording_goes_on(tmp_path:
         client = None
         try:
             client = serve_once(server, b"".join(lines), lambda: query(log, "SELECT 1 FROM event WHERE kind = 'open'"))
-            wait_for(lambda: query(log, "SELECT count(*) FROM raw_line") == [(200,)], timeout=30)
+            wait_for(lambda: query(log, f"SELECT {RAW_LINES}") == [(200,)], timeout=30)
         finally:
             _, err = stop(rec, signal.SIGTERM)
             if client is not None:
@@ -77,7 +77,7 @@ def test_hostile_lines_over_a_socket_are_counted_and_recording_goes_on(tmp_path:
     assert "Traceback" not in err and "Warning" not in err, err
     assert query(log, "SELECT end_reason FROM session") == [("signal",)]
     assert query(log, "SELECT count(*) FROM sample") == [(195,)]  # everything but the five bad lines
-    reasons = [r[0] for r in query(log, "SELECT reason FROM raw_line WHERE ok = 0 ORDER BY id")]
+    reasons = [r[2] for r in raw(log) if not r[1]]
     assert len(reasons) == 5
     assert "86401.000 s ahead of the line before" in reasons[0]  # one day and one line
     assert "bad sequence number" in reasons[1] and "not a finite number" in reasons[2]
@@ -111,7 +111,7 @@ def test_a_flood_overflows_a_bounded_queue_and_every_line_is_accounted_for(tmp_p
             client.shutdown(socket.SHUT_WR)
 
             def settled() -> bool:
-                got = query(log, "SELECT (SELECT count(*) FROM raw_line), (SELECT coalesce(sum(CAST(substr(detail, 1, instr(detail, ' ') - 1) AS INTEGER)), 0) FROM event WHERE kind = 'overflow')")
+                got = query(log, f"SELECT {RAW_LINES}, (SELECT coalesce(sum(CAST(substr(detail, 1, instr(detail, ' ') - 1) AS INTEGER)), 0) FROM event WHERE kind = 'overflow')")
                 return bool(got) and got[0][0] + got[0][1] == sent
 
             wait_for(settled, timeout=60)
@@ -122,7 +122,7 @@ def test_a_flood_overflows_a_bounded_queue_and_every_line_is_accounted_for(tmp_p
                 client.close()
     assert not thread.is_alive()
     con = sqlite3.connect(log)
-    kept = con.execute("SELECT count(*) FROM raw_line").fetchone()[0]
+    kept = con.execute(f"SELECT {RAW_LINES}").fetchone()[0]
     overflow = [r[0] for r in con.execute("SELECT detail FROM event WHERE kind = 'overflow'")]
     end_reason = con.execute("SELECT end_reason FROM session").fetchone()[0]
     stop_detail = con.execute("SELECT detail FROM event WHERE kind = 'stop'").fetchone()[0]

@@ -7,7 +7,6 @@ from __future__ import annotations
 
 import json
 import signal
-import sqlite3
 import subprocess
 from pathlib import Path
 
@@ -75,12 +74,10 @@ def start_sim(*args: str) -> tuple[subprocess.Popen, str]:
 
 
 def readings(log: Path, name: str) -> np.ndarray:
-    con = sqlite3.connect(f"file:{log}?mode=ro", uri=True)
-    try:
-        rows = con.execute("SELECT t, value, status FROM readings WHERE channel = ? ORDER BY t", (name,)).fetchall()
-    finally:
-        con.close()
-    return np.array([(t, np.nan if v is None else v, s) for t, v, s in rows], dtype=float)
+    """A channel as the log gives it (derived ones recomputed): rows of time, value, status."""
+    with LogReader(log) as reader:
+        series = reader.series(name)
+    return np.column_stack([series.t, series.value, series.status.astype(float)])
 
 
 @pytest.mark.timeout(600)

@@ -13,7 +13,8 @@ import pytest
 from firewatch.store.reader import LogReader
 from firewatch.transport.native import encode
 from firewatch.transport.records import Value
-from tests.e2e.helpers import firewatch, free_port, inspect, run, samples, start_sim_tcp, stop, wait_for
+from tests.e2e.helpers import RAW_BAD, RAW_LINES, firewatch, free_port, inspect, run, samples, start_sim_tcp, stop, wait_for
+from tests.e2e.kills import CHANNEL, LOSS_LIMIT_S, LineServer, campaign
 
 
 def test_tcp_end_to_end(tmp_path: Path) -> None:
@@ -51,36 +52,37 @@ def test_pty_end_to_end(tmp_path: Path) -> None:
     assert info["malformed_lines"] <= 1
 
 
-def test_sigkill_mid_firing_then_restart_continues(tmp_path: Path) -> None:
-    sim, port = start_sim_tcp("--speed", "50")
+def test_sigkill_five_times_then_restart_continues(tmp_path: Path) -> None:
+    """Issue 15 item 4: the recorder SIGKILLed at five random moments on one log, restarted each time, loses at most
+    the last second's lines and leaves a sound file; the log is read through public routes only (tests/e2e/kills.py).
+    ``benchmarks/bench_kills.py`` does the same 50 times and prints the figures."""
     log = tmp_path / "kill.db"
-    try:
-        rec = firewatch("record", "--port", f"socket://127.0.0.1:{port}", "--log", str(log))
-        wait_for(lambda: samples(log) > 100)
-        killed_at = time.time()
-        rec.send_signal(signal.SIGKILL)
-        rec.wait(10)
-        con = sqlite3.connect(log)
-        assert con.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
-        last_received = con.execute("SELECT max(received_utc) FROM sample").fetchone()[0]
-        before = con.execute("SELECT count(*) FROM sample").fetchone()[0]
-        started = con.execute("SELECT started_t FROM firing").fetchone()[0]
-        con.close()
-        # the recorder commits every 0.5 s: at most the last uncommitted second is lost
-        assert killed_at - last_received < 1.5
-        time.sleep(1.0)
-        rec2 = run("record", "--port", f"socket://127.0.0.1:{port}", "--log", str(log), "--for", "3", timeout=60)
-        assert rec2.returncode == 0, rec2.stderr
-        assert "continuing the firing" in rec2.stderr
-    finally:
-        stop(sim)
+    with LineServer(rate_hz=20.0) as server:
+        result = campaign(log, server, kills=5, seed=15, run_s=(0.2, 1.0))
+    for kill in result.kills:
+        figures = f"kill {kill.n}: {kill}"
+        assert kill.integrity == "ok", figures
+        # the recorder commits every 0.5 s (docs/log-format.md); issue 15 allows at most 1 s lost
+        assert kill.missing_old == 0 and kill.loss_s <= LOSS_LIMIT_S, figures
+        assert kill.strangers == 0 and 0 < kill.kept <= kill.sent, figures
+        assert kill.continued == (kill.n > 1), figures
+    # the control: stopped with SIGTERM, the last run keeps every line it was sent but those still in flight
+    # at the signal (a line every 50 ms; 0.25 s allows for a busy machine: common practice, no source)
+    final = result.final
+    assert final.integrity == "ok" and final.continued and final.strangers == 0
+    assert final.missing_old == 0 and final.loss_s < 0.25, final
+    # every commit rewrites the heartbeat: commits came about every half second, never more than a second apart
+    gaps = result.commit_gaps()
+    assert gaps and max(gaps) <= 1.0, gaps
     info = inspect(log)
-    assert info["sessions"] == 2
-    assert info["samples"]["tc1"] > before
-    assert [g["reason"] for g in info["gaps"]] == ["recorder restart"]
-    assert info["gaps"][0]["seconds"] >= 1.0
+    assert info["sessions"] == 6
+    assert info["samples"][CHANNEL] == sum(k.logged for k in [*result.kills, final])
+    # one firing, continued: a restart gap for each start after the first, each covering the lines its kill lost
+    assert [g["reason"] for g in info["gaps"]] == ["recorder restart"] * 5
+    for gap, kill in zip(info["gaps"], result.kills):
+        assert gap["seconds"] >= kill.loss_s, (gap, kill)
     with LogReader(log) as r:
-        assert r.firing()["started_t"] == started  # the same firing, continued
+        assert r.firing()["started_t"] == min(t for _, sent in server.connections for t in sent)
 
 
 def test_unplug_tcp_reconnects_and_sigterm_closes_cleanly(tmp_path: Path) -> None:
@@ -188,7 +190,7 @@ def test_garbage_lines_are_all_counted(tmp_path: Path) -> None:
     assert rec.returncode == 0, rec.stderr
     con = sqlite3.connect(log)
     raw, bad, good, events = con.execute(
-        "SELECT (SELECT count(*) FROM raw_line), (SELECT count(*) FROM raw_line WHERE ok = 0), "
+        f"SELECT {RAW_LINES}, {RAW_BAD}, "
         "(SELECT count(*) FROM sample), (SELECT count(*) FROM event WHERE kind = 'malformed')"
     ).fetchone()
     assert bad > 50 and raw == bad + good and events == bad

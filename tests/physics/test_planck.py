@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import warnings
 
 import numpy as np
@@ -36,6 +37,17 @@ def test_radiation_constants_are_codata() -> None:
     assert C2 == pytest.approx(1.438776877e-2, rel=1e-9)
     assert SIGMA == sc.Stefan_Boltzmann
     assert WIEN_B == pytest.approx(2.897771955e-3, rel=1e-9)  # CODATA, scipy.constants
+
+
+def test_the_constants_written_out_are_scipys_to_the_bit() -> None:
+    """firewatch writes h, c and k as the 2019 SI defines them rather than importing scipy.constants at every start
+    (issue 15); each value is the reference library's exactly (scipy.constants, CODATA 2018)."""
+    from firewatch.physics import constants
+
+    assert (constants.H, constants.C, constants.K_B) == (sc.h, sc.c, sc.k)
+    assert (constants.SIGMA, constants.WIEN_B, constants.ZERO_CELSIUS) == (sc.Stefan_Boltzmann, sc.Wien, sc.zero_Celsius)
+    x = constants.WIEN_X  # the root of x = 5 (1 - exp(-x)), to rounding
+    assert abs(x - 5.0 * (1.0 - math.exp(-x))) < 4 * math.ulp(x)
 
 
 @pytest.mark.parametrize(("lambda_t_um_k", "fraction"), DATA_BLACKBODY_FRACTION)

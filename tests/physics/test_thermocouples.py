@@ -202,3 +202,55 @@ def test_property_round_trip(tc_type: str, frac: float) -> None:
     lo, hi = emf_range(tc_type)
     e = lo + frac * (hi - lo)
     assert float(temperature_to_emf(emf_to_temperature(e, tc_type), tc_type)) == pytest.approx(e, abs=1e-8)
+
+
+def _reference_forward(t: np.ndarray, tc_type: str, slope: bool = False) -> np.ndarray:
+    """E(t), or dE/dt, written straight from the published form (NIST Monograph 175 section 4: a polynomial
+    per range, type K's exponential term above 0 degC), ``polyval`` and ``polyder`` per call as before issue 15."""
+    from firewatch.physics._its90_data import FORWARD
+
+    out = np.full(t.shape, np.nan)
+    for t0, t1, coeffs, expo in FORWARD[tc_type]:
+        mask = (t >= t0) & (t <= t1) & np.isnan(out)
+        tm = t[mask]
+        c = np.asarray(coeffs)
+        if slope:
+            e = np.polynomial.polynomial.polyval(tm, np.polynomial.polynomial.polyder(c))
+        else:
+            e = np.polynomial.polynomial.polyval(tm, c)
+        if expo is not None:
+            g = expo[0] * np.exp(expo[1] * (tm - expo[2]) ** 2)
+            e = e + (g * 2.0 * expo[1] * (tm - expo[2]) if slope else g)
+        out[mask] = e
+    return out
+
+
+@pytest.mark.parametrize("tc_type", TYPES)
+def test_forward_with_derivatives_made_once_is_the_published_form_to_the_bit(tc_type: str) -> None:
+    # issue 15: the derivative coefficients are made once per type, not per call; E(t) must not move
+    lo, hi = temperature_range(tc_type)
+    t = np.concatenate([np.linspace(lo, hi, 4001), [lo, hi, 0.0, np.nan]])
+    assert temperature_to_emf(t, tc_type).view(np.int64).tolist() == _reference_forward(t, tc_type).view(np.int64).tolist()
+    assert seebeck(t, tc_type).view(np.int64).tolist() == _reference_forward(t, tc_type, slope=True).view(np.int64).tolist()
+
+
+@pytest.mark.parametrize("tc_type", TYPES)
+def test_stacked_channels_convert_as_one_call_per_channel_to_the_bit(tc_type: str) -> None:
+    # issue 15: the pipeline converts every thermocouple of a type in one call over the channels stacked
+    # row by row; each row must come out exactly as that channel converted alone (regression check, no
+    # external value involved)
+    rng = np.random.default_rng(15)
+    e_lo, e_hi = emf_range(tc_type)
+    channels, n = 7, 300
+    emf = rng.uniform(e_lo - 0.5, e_hi + 0.5, (channels, n))  # some readings past either end
+    emf[1, ::13] = np.nan  # missing readings
+    emf[2] = e_hi  # the top end itself
+    cold = rng.uniform(0.0, 40.0, (channels, n))
+    emf = emf - _reference_forward(cold, tc_type) * (rng.uniform(size=(channels, n)) < 0.5)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", OutOfRangeWarning)
+        stacked = emf_to_temperature(emf, tc_type, cold)
+        rows = [emf_to_temperature(emf[i], tc_type, cold[i]) for i in range(channels)]
+    assert np.isfinite(stacked).sum() > channels * n // 2  # most readings are in range
+    for i in range(channels):
+        assert stacked[i].view(np.int64).tolist() == rows[i].view(np.int64).tolist(), i

@@ -74,13 +74,30 @@ def test_readers_read_it_and_leave_it_as_it_was(old: Path, tmp_path: Path) -> No
     assert sha(old) == before  # nothing that reads wrote into it
 
 
-def test_a_recorder_continues_it_as_schema_2(old: Path) -> None:
+def test_a_writer_continuing_it_converts_it_and_keeps_the_original(old: Path) -> None:
+    before = sha(old)
     out = run("sim", "--to-log", str(old), "--minutes", "2")
     assert out.returncode == 0, out.stderr
+    kept = old.with_name(old.name + ".schema1")
+    assert sha(kept) == before  # the original, byte for byte
     con = sqlite3.connect(f"file:{old}?mode=ro", uri=True)
     try:
-        assert con.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchone() == ("2",)
+        assert con.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchone() == ("3",)
+        assert con.execute("SELECT type FROM sqlite_master WHERE name = 'reading'").fetchone() == ("view",)
         assert con.execute("SELECT count(*) FROM session").fetchone()[0] == 2
         assert con.execute("SELECT count(*) FROM sample").fetchone()[0] > SAMPLES
     finally:
         con.close()
+
+
+def test_a_recorder_continuing_it_converts_it_and_says_where_the_original_is(old: Path) -> None:
+    before = sha(old)
+    out = run("record", "--port", "loop://", "--log", str(old), "--for", "1")
+    assert out.returncode == 0, out.stderr
+    kept = old.with_name(old.name + ".schema1")
+    assert sha(kept) == before
+    assert f"the original is kept as {kept}" in out.stderr
+    info = json.loads(run("inspect", str(old), "--json").stdout)
+    assert info["layout"] == {"schema": 3, "converted_from_schema": None} and info["sessions"] == 2
+    assert info["samples"]["tc1"] == SAMPLES  # loop:// sends nothing: every reading of the old log, none lost
+    assert info["summary"]["readings_sha256"] == json.loads(run("inspect", str(kept), "--json").stdout)["summary"]["readings_sha256"]

@@ -19,7 +19,6 @@ from firewatch.store.view import (
     RECORDER_STOPPED,
     FiringView,
 )
-from firewatch.store.writer import LogWriter
 from tests.store.conftest import T0, Bench, Clock
 
 
@@ -144,8 +143,8 @@ def test_a_recorder_without_any_line_reads_no_data_since_it_started(tmp_path: Pa
     assert st.kind == NO_DATA and st.data_age_s is None and st.silent_s == pytest.approx(11.0)
 
 
-def test_heartbeats_go_on_without_lines_and_a_version_1_log_is_upgraded(tmp_path: Path) -> None:
-    """The heartbeat is in the session row, written every cycle; a log from before it gains the column."""
+def test_heartbeats_go_on_without_lines(tmp_path: Path) -> None:
+    """The heartbeat is in the session row, written every cycle (a log from before it: tests/store/test_schema1_log.py)."""
     clock = Clock()
     bench = Bench(tmp_path / "beat.db", clock)
     for step in range(3):
@@ -154,18 +153,3 @@ def test_heartbeats_go_on_without_lines_and_a_version_1_log_is_upgraded(tmp_path
         with sqlite3.connect(bench.path) as con:
             assert con.execute("SELECT heartbeat_utc FROM session").fetchone()[0] == T0 + step
     bench.stop()
-    # make it a version 1 log again: no heartbeat column (as written before issue 10)
-    con = sqlite3.connect(bench.path)
-    con.executescript(
-        "ALTER TABLE session DROP COLUMN heartbeat_utc; UPDATE meta SET value = '1' WHERE key = 'schema_version';"
-    )
-    con.close()
-    view = FiringView(bench.path)
-    assert view.session()["heartbeat_utc"] is None  # readable as it is
-    writer = LogWriter(bench.path, [], clock_fn=clock)
-    writer.heartbeat()
-    writer.commit()
-    with sqlite3.connect(bench.path) as con:
-        assert con.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchone()[0] == "2"
-        assert con.execute("SELECT heartbeat_utc FROM session ORDER BY id DESC").fetchone()[0] == clock.t
-    writer.close()

@@ -1,7 +1,7 @@
 """The live dashboard over a damaged log (issue 10, item 5): it says so, and never waits for readings forever.
 
 Two cases, on real logs spoiled on disk (tests/damage.py): damage the screen reads (every page
-of the readings) ends the app with the message, which ``watch`` prints as one line (exit 2);
+of the newest derived values, which the live screen reads at every poll) ends the app with the message, which ``watch`` prints as one line (exit 2);
 damage it does not read (the raw lines) leaves the screen running with a notice that stays.
 Before issue 10 the first case showed "waiting for readings…" for ever.
 """
@@ -21,7 +21,7 @@ from tests.ui.helpers import settle
 
 
 async def test_damage_the_screen_reads_ends_the_app_with_the_message(fault_log: Path, tmp_path: Path) -> None:
-    log = spoil_table(fault_log, tmp_path / "readings.db", "reading")
+    log = spoil_table(fault_log, tmp_path / "latest.db", "latest")
     app = FirewatchApp(log, mode="live", show_cautions=False)
     async with app.run_test(size=(100, 30)) as pilot:
         await settle(pilot, lambda: app.failure is not None or not app.is_running)
@@ -33,7 +33,7 @@ def test_run_app_raises_the_message_once_the_screen_is_gone(fault_log: Path, tmp
     # what `firewatch watch` prints: run_app turns the app's failure into a LogDamaged (one line, exit 2)
     import asyncio
 
-    log = spoil_table(fault_log, tmp_path / "readings.db", "reading")
+    log = spoil_table(fault_log, tmp_path / "latest.db", "latest")
     app = FirewatchApp(log, mode="live", show_cautions=False)
 
     async def drive() -> None:  # headless, where run() would take the terminal

@@ -101,6 +101,10 @@ class Debounce:
         edges: list[tuple[float, bool]] = []
         if t.size == 0:
             return edges
+        if not (clear if self.active else bad).any():
+            # the usual batch: nothing that could start the change (the loop below would forget any start, no edge)
+            self._since = None
+            return edges
         code = bad.astype(np.int8) * 2 + clear.astype(np.int8)
         starts = np.concatenate([[0], np.flatnonzero(np.diff(code)) + 1])
         ends = np.concatenate([starts[1:], [t.size]])
@@ -156,27 +160,32 @@ class LineNoise:
     def check(self, malformed: np.ndarray, times: np.ndarray, is_open: bool) -> list[Change]:
         """Judge the line at each second of the batch; ``is_open``: the line-noise alarm is open now."""
         out: list[Change] = []
-        if malformed.size == 0 and times.size == 0:
-            return out
-        if malformed.size == 0 and self._bad_lines.size == 0 and not is_open:
-            return out  # a clean line: nothing to judge
-        self._bad_lines = np.concatenate([self._bad_lines, malformed])
-        self._good_lines = np.concatenate([self._good_lines, times])
-        # judge at each second of the batch, so a long batch (sim --to-log) is judged as a live one
         ends = np.concatenate([malformed, times])
-        seconds = np.unique(np.floor(ends))
-        for now in seconds[:: max(1, int(seconds.size // 600))] if ends.size else []:
-            now = float(now) + 1.0
-            bad_n = int(np.count_nonzero((self._bad_lines > now - self.WINDOW_S) & (self._bad_lines <= now)))
-            total = bad_n + int(np.count_nonzero((self._good_lines > now - self.WINDOW_S) & (self._good_lines <= now)))
-            if total < self.MIN_LINES:
-                continue
-            if bad_n / total > self.RAISE_ABOVE:
-                out.append(Raise("sensor-fault", None, now, f"{bad_n} of the last {total} lines malformed (line noise)", "medium",
-                                 cause="line-noise", evidence={"malformed": bad_n, "lines": total}))
-            elif bad_n / total < self.CLEAR_BELOW:
-                out.append(Clear("sensor-fault", None, now, "the line is clean again"))
+        if not ends.size:
+            return out
+        # the good lines of the last minute are kept even on a clean line, so that the first malformed line is
+        # counted against the whole window however the lines were batched (issue 15: replay and recorder alike)
+        self._bad_lines = np.sort(np.concatenate([self._bad_lines, malformed]))
+        self._good_lines = np.sort(np.concatenate([self._good_lines, times]))
         latest = float(ends.max())
+        if self._bad_lines.size == 0 and not is_open:
+            self._good_lines = self._good_lines[self._good_lines > latest - self.WINDOW_S]
+            return out  # a clean line: nothing to judge
+        # judged at the end of every second a line came in, whatever the batch; the counts of each window by
+        # bisection, all at once
+        now = np.unique(np.floor(ends)) + 1.0
+        bad = np.searchsorted(self._bad_lines, now, side="right") - np.searchsorted(self._bad_lines, now - self.WINDOW_S, side="right")
+        good = np.searchsorted(self._good_lines, now, side="right") - np.searchsorted(self._good_lines, now - self.WINDOW_S, side="right")
+        total = bad + good
+        judged = total >= self.MIN_LINES
+        share = np.where(judged, bad / np.maximum(total, 1), 0.0)
+        for i in np.flatnonzero(judged & ((share > self.RAISE_ABOVE) | (share < self.CLEAR_BELOW))).tolist():
+            bad_n, lines, at = int(bad[i]), int(total[i]), float(now[i])
+            if share[i] > self.RAISE_ABOVE:
+                out.append(Raise("sensor-fault", None, at, f"{bad_n} of the last {lines} lines malformed (line noise)", "medium",
+                                 cause="line-noise", evidence={"malformed": bad_n, "lines": lines}))
+            else:
+                out.append(Clear("sensor-fault", None, at, "the line is clean again"))
         self._bad_lines = self._bad_lines[self._bad_lines > latest - self.WINDOW_S]
         self._good_lines = self._good_lines[self._good_lines > latest - self.WINDOW_S]
         return out
@@ -365,15 +374,16 @@ class OverTemperature:
             return []
         names = [tc.name for tc in self.site.thermocouples] + [f"{p.name}.reconciled" for p in self.site.pyrometers]
         stack = np.vstack([values[n] for n in names])
-        with np.errstate(invalid="ignore"):
-            hottest = np.nanmax(np.where(np.isfinite(stack), stack, -np.inf), axis=0)
-        which = [names[i] for i in np.argmax(np.where(np.isfinite(stack), stack, -np.inf), axis=0)]
+        known = np.where(np.isfinite(stack), stack, -np.inf)
+        hottest = known.max(axis=0)
         bad = hottest > limit
         clear = hottest < limit - self.HYSTERESIS_K
 
         def raise_at(t: float) -> Raise:
+            # the hottest channel's name only where an alarm is raised, not a name per reading (issue 15)
             i = int(np.searchsorted(times, t))
-            return Raise("over-temperature", None, t, f"above {limit:g} °C ({which[i] if i < len(which) else ''})", "high")
+            which = names[int(np.argmax(known[:, i]))] if i < times.size else ""
+            return Raise("over-temperature", None, t, f"above {limit:g} °C ({which})", "high")
 
         return self.debounces.run(("over-temperature", None), times, bad, clear, self.ON_S, self.OFF_S, raise_at,
                                   f"below {limit - self.HYSTERESIS_K:g} °C")
