@@ -20,6 +20,7 @@ import numpy as np
 from firewatch.firing.pipeline import Pipeline
 from firewatch.settings._tomlcheck import ProfileError
 from firewatch.settings.profile import SiteProfile, load_site
+from firewatch.transport.records import Status
 
 if TYPE_CHECKING:
     from firewatch.store.reader import Block, LogReader, Series
@@ -38,6 +39,24 @@ class DerivedBlock:
         self.t = t
         self.values: dict[str, np.ndarray] = {}
         self.status: dict[str, np.ndarray] = {}
+
+    @classmethod
+    def joined(cls, parts: list[DerivedBlock]) -> DerivedBlock:
+        """Stretches one after the other, with the channels every one of them has."""
+        out = cls(np.concatenate([p.ids for p in parts]), np.concatenate([p.t for p in parts]))
+        for name in parts[0].values:
+            if all(name in p.values for p in parts):
+                out.values[name] = np.concatenate([p.values[name] for p in parts])
+                out.status[name] = np.concatenate([p.status[name] for p in parts])
+        return out
+
+    def between(self, lo: int, hi: int) -> DerivedBlock:
+        """Samples ``lo`` to ``hi`` of this stretch (ids, inclusive)."""
+        a, b = (int(i) for i in np.searchsorted(self.ids, [lo, hi + 1]))
+        out = DerivedBlock(self.ids[a:b], self.t[a:b])
+        out.values = {k: v[a:b] for k, v in self.values.items()}
+        out.status = {k: v[a:b] for k, v in self.status.items()}
+        return out
 
 
 @functools.lru_cache(maxsize=8)
@@ -152,7 +171,7 @@ class Deriver:
                     continue
                 if name not in out.values:
                     out.values[name] = np.full(n, np.nan)
-                    out.status[name] = np.full(n, 6, dtype=np.int64)  # missing
+                    out.status[name] = np.full(n, int(Status.MISSING), dtype=np.int64)
                 out.values[name][into if into is not None else slice(None)] = v[sel]
                 out.status[name][into if into is not None else slice(None)] = st[sel]
         return out
@@ -174,12 +193,7 @@ def derived_block(reader: LogReader, lo: int, hi: int, names: list[str] | None =
     parts = [deriver.derive(a, min(a + CHUNK - 1, hi)) for a in range(lo, hi + 1, CHUNK)]
     if len(parts) == 1:
         return parts[0]
-    parts = [p for p in parts if p.ids.size] or parts[:1]
-    out = DerivedBlock(np.concatenate([p.ids for p in parts]), np.concatenate([p.t for p in parts]))
-    for name in parts[0].values:
-        out.values[name] = np.concatenate([p.values[name] for p in parts])
-        out.status[name] = np.concatenate([p.status[name] for p in parts])
-    return out
+    return DerivedBlock.joined([p for p in parts if p.ids.size] or parts[:1])
 
 
 def derived_series(reader: LogReader, channel: str, lo: int, hi: int) -> Series:
@@ -188,5 +202,5 @@ def derived_series(reader: LogReader, channel: str, lo: int, hi: int) -> Series:
 
     got = derived_block(reader, lo, hi, [channel])
     if channel not in got.values:
-        return Series(got.t, np.full(got.t.size, np.nan), np.full(got.t.size, 6, dtype=np.int64))
+        return Series(got.t, np.full(got.t.size, np.nan), np.full(got.t.size, int(Status.MISSING), dtype=np.int64))
     return Series(got.t, got.values[channel], got.status[channel])

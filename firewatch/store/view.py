@@ -238,18 +238,10 @@ class FiringView:
         """The derived channels of samples ``lo`` to ``hi``, recomputed; a live view extends what it computed before."""
         cached = self._derived_cache
         if cached is not None and cached.ids.size and cached.ids[0] <= lo and hi <= cached.ids[-1]:
-            a, b = np.searchsorted(cached.ids, [lo, hi + 1])
-            return _slice(cached, int(a), int(b))
+            return cached.between(lo, hi)
         if cached is not None and cached.ids.size and cached.ids[0] <= lo <= cached.ids[-1] + 1 and hi - int(cached.ids[0]) < _DERIVED_CACHE:
-            more = derived_block(self.reader, int(cached.ids[-1]) + 1, hi)
-            joined = DerivedBlock(np.concatenate([cached.ids, more.ids]), np.concatenate([cached.t, more.t]))
-            for name in cached.values:
-                if name in more.values:
-                    joined.values[name] = np.concatenate([cached.values[name], more.values[name]])
-                    joined.status[name] = np.concatenate([cached.status[name], more.status[name]])
-            self._derived_cache = joined
-            a, b = np.searchsorted(joined.ids, [lo, hi + 1])
-            return _slice(joined, int(a), int(b))
+            self._derived_cache = DerivedBlock.joined([cached, derived_block(self.reader, int(cached.ids[-1]) + 1, hi)])
+            return self._derived_cache.between(lo, hi)
         got = derived_block(self.reader, lo, hi)
         if hi - lo < _DERIVED_CACHE:
             self._derived_cache = got
@@ -489,13 +481,6 @@ class FiringView:
             return np.empty(0), np.empty(0)
         t = np.linspace(t0, t1, points)
         return t, self.schedule.planned_temperature(t - self.start_t)
-
-
-def _slice(block: DerivedBlock, a: int, b: int) -> DerivedBlock:
-    out = DerivedBlock(block.ids[a:b], block.t[a:b])
-    out.values = {k: v[a:b] for k, v in block.values.items()}
-    out.status = {k: v[a:b] for k, v in block.status.items()}
-    return out
 
 
 def _urgent_first(rows: list[tuple[Any, ...]]) -> list[AlarmRow]:
