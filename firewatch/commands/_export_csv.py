@@ -104,7 +104,7 @@ class _Layout:
     """What every page needs to know of the log: its channels, the firing's start, how each column is written."""
 
     def __init__(self, reader: LogReader) -> None:
-        from firewatch.store.layout import STEP_KIND, step_column
+        from firewatch.store.layout import STEP_KIND
         from firewatch.transport.records import Status
 
         self.channels = [(int(r[0]), str(r[1]), str(r[2])) for r in reader.query("SELECT id, name, unit FROM channel ORDER BY id")]
@@ -113,7 +113,6 @@ class _Layout:
         self.start: float | None = reader.firing().get("started_t")
         self.words = {int(s): Status(s).name.lower() for s in Status}
         self.progress = [name for _, name, _ in self.channels if name not in measured and other[name][1] == STEP_KIND]
-        self.steps = ", ".join(step_column(other[name][0]) for name in self.progress)
         self.kinds = "f" + "".join("r" if name in measured else "g" for _, name, _ in self.channels)
         """How each value column is written (:func:`_rows`): the elapsed time, then every channel."""
 
@@ -131,14 +130,12 @@ def _page(reader: LogReader, deriver: Deriver, layout: _Layout, a: int, b: int) 
     bad: list[tuple[str, np.ndarray]] = []
     placed: dict[str, np.ndarray] = {}
     if layout.progress:
-        got = reader.query(f"SELECT sample_id, {layout.steps} FROM step WHERE sample_id BETWEEN ? AND ?", (a, b))
-        if got:
-            arr = np.array(got, dtype=float).reshape(len(got), len(layout.progress) + 1)  # NULL becomes NaN
-            at = np.searchsorted(block.ids, arr[:, 0].astype(np.int64))
-            for k, name in enumerate(layout.progress):
-                col = np.full(n, np.nan)
-                col[at] = arr[:, k + 1]
-                placed[name] = col
+        step_ids, _, steps = reader.steps(a, b, layout.progress)
+        at = np.searchsorted(block.ids, step_ids)
+        for name, v in steps.items():
+            col = np.full(n, np.nan)
+            col[at] = v
+            placed[name] = col
     for j, (_, name, _) in enumerate(layout.channels, start=1):
         if name in layout.measured:
             has = block.has[name]

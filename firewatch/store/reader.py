@@ -261,8 +261,11 @@ class LogReader:
         empty = Series(np.empty(0), np.empty(0), np.empty(0, dtype=np.int64))
         if channel not in measured and channel not in other:
             return empty
-        lo = self.sample_at(start_t, after=True) if start_t is not None else (self.sample_span() or (None,))[0]
-        hi = self.sample_at(end_t) if end_t is not None else (self.sample_span() or (None, None))[1]
+        span = self.sample_span()
+        if span is None:
+            return empty
+        lo = self.sample_at(start_t, after=True) if start_t is not None else span[0]
+        hi = self.sample_at(end_t) if end_t is not None else span[1]
         if lo is None or hi is None or hi < lo:
             return empty
         if channel in measured:
@@ -272,16 +275,24 @@ class LogReader:
                 has = b.has[channel]
                 out.append((b.t[has], b.values[channel][has], b.status[channel][has]))
             return Series(*(np.concatenate([o[i] for o in out]) for i in range(3)))
-        cid, kind = other[channel]
-        if kind == STEP_KIND:
-            col = step_column(cid)
-            rows = self.query(f"SELECT s.t, p.{col} FROM step p JOIN sample s ON s.id = p.sample_id "
-                              "WHERE p.sample_id BETWEEN ? AND ? ORDER BY p.sample_id", (lo, hi))
-            arr = np.array(rows, dtype=float).reshape(len(rows), 2)  # NULL becomes NaN: not placed, status missing
-            return Series(arr[:, 0].copy(), arr[:, 1].copy(), np.where(np.isnan(arr[:, 1]), int(Status.MISSING), int(Status.OK)))
+        if other[channel][1] == STEP_KIND:
+            _, t, steps = self.steps(lo, hi, [channel])
+            v = steps[channel]
+            return Series(t, v, np.where(np.isnan(v), int(Status.MISSING), int(Status.OK)))  # NaN: not placed
         from firewatch.store.derive import derived_series
 
         return derived_series(self, channel, lo, hi)
+
+    def steps(self, lo: int, hi: int, names: Iterable[str] | None = None) -> tuple[np.ndarray, np.ndarray, dict[str, np.ndarray]]:
+        """The progress channels ``names`` (all when None) at their steps among samples ``lo`` to ``hi``: the step
+        samples' ids and times, and each channel's values there (NaN where the tracker had not placed the kiln)."""
+        other = self._channels()[1]
+        wanted = [(n, other[n][0]) for n in (names if names is not None else other) if n in other and other[n][1] == STEP_KIND]
+        cols = "".join(f", p.{step_column(cid)}" for _, cid in wanted)
+        rows = self.query(f"SELECT p.sample_id, s.t{cols} FROM step p JOIN sample s ON s.id = p.sample_id "
+                          "WHERE p.sample_id BETWEEN ? AND ? ORDER BY p.sample_id", (lo, hi))
+        arr = np.array(rows, dtype=float).reshape(len(rows), 2 + len(wanted))  # NULL becomes NaN
+        return arr[:, 0].astype(np.int64), arr[:, 1].copy(), {name: arr[:, 2 + k].copy() for k, (name, _) in enumerate(wanted)}
 
     def raw_span(self) -> tuple[int, int]:
         """``(lo, hi)``: every raw line has an id ``lo < id <= hi``."""

@@ -25,7 +25,7 @@ from firewatch.settings.profile import SiteProfile, load_site
 from firewatch.settings.schedule import Schedule, load_schedule
 from firewatch.store._common import log_error
 from firewatch.store.derive import CHUNK, derived_block
-from firewatch.store.layout import STEP_KIND, step_column
+from firewatch.store.layout import STEP_KIND
 from firewatch.store.reader import LogReader
 
 __all__ = ["load_record", "profiles_from_log", "read_record"]
@@ -104,9 +104,11 @@ def _read_record(reader: LogReader, site: SiteProfile | None, schedule: Schedule
         if wanted:
             got = derived_block(reader, lo, hi, wanted)
             values.update({n: got.values[n] for n in wanted if n in got.values})
-        for name in derived:
-            if name in other and other[name][1] == STEP_KIND:
-                values[name] = _steps_filled(reader, other[name][0], sample_ids, fill=name == "plan.segment")
+        progress = [name for name in derived if name in other and other[name][1] == STEP_KIND]
+        if progress:
+            step_ids, _, steps = reader.steps(lo, hi, progress)
+            for name in progress:
+                values[name] = _at_samples(step_ids, steps[name], sample_ids, fill=name == "plan.segment")
     envelopes: dict[str, tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
     reference = site.reference.name if site is not None and site.reference is not None else None
     for name in ([reference] if reference is not None else []) + [f"{py.name}.reconciled" for py in (site.pyrometers if site is not None else ())]:
@@ -149,20 +151,16 @@ def _read_record(reader: LogReader, site: SiteProfile | None, schedule: Schedule
     return build_record(inputs)
 
 
-def _steps_filled(reader: LogReader, cid: int, ids: np.ndarray, fill: bool) -> np.ndarray:
-    """A progress channel kept at the step rate, aligned with the samples ``ids``: NaN between its steps, or with
+def _at_samples(step_ids: np.ndarray, values: np.ndarray, ids: np.ndarray, fill: bool) -> np.ndarray:
+    """A progress channel's values at its steps, aligned with the samples ``ids``: NaN between its steps, or with
     ``fill`` each step's value carried to the samples up to the next (a segment number)."""
-    rows = reader.query(f"SELECT sample_id, {step_column(cid)} FROM step ORDER BY sample_id")
-    out = np.full(ids.size, np.nan)
-    if not rows:
-        return out
-    arr = np.array(rows, dtype=float)
-    pos = np.searchsorted(ids, arr[:, 0].astype(np.int64))
     if fill:
-        idx = np.searchsorted(arr[:, 0], ids, side="right") - 1  # the last step at or before each sample
-        return np.where(idx >= 0, arr[np.maximum(idx, 0), 1], np.nan)
+        idx = np.searchsorted(step_ids, ids, side="right") - 1  # the last step at or before each sample
+        return np.where(idx >= 0, values[np.maximum(idx, 0)], np.nan)
+    out = np.full(ids.size, np.nan)
+    pos = np.searchsorted(ids, step_ids)
     ok = pos < ids.size
-    out[pos[ok]] = arr[ok, 1]
+    out[pos[ok]] = values[ok]
     return out
 
 
