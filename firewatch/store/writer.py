@@ -440,8 +440,9 @@ class LogWriter:
         self._next_try = 0.0
         self._chunk = 64
         self._next_checkpoint = 0.0
-        kinds = {r[1]: r[2] for r in self.con.execute("SELECT id, name, kind FROM channel")}
-        self._channel_ids: dict[str, int] = {r[1]: r[0] for r in self.con.execute("SELECT id, name FROM channel")}
+        rows = self.con.execute("SELECT id, name, kind FROM channel").fetchall()
+        kinds = {r[1]: r[2] for r in rows}
+        self._channel_ids: dict[str, int] = {r[1]: r[0] for r in rows}
         self.con.execute("BEGIN")
         added = False
         for ch in channels:
