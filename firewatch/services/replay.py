@@ -46,6 +46,25 @@ class Reevaluation:
     transitions: list[Transition] = field(default_factory=list)
     last: dict[str, float] = field(default_factory=dict)
 
+    def add(self, times: np.ndarray, values: dict[str, np.ndarray]) -> None:
+        """A batch's samples: counted, the span kept, and each channel's last value."""
+        if not times.size:
+            return
+        self.samples += int(times.size)
+        self.start_t = float(times[0]) if self.start_t is None else self.start_t
+        self.end_t = float(times[-1])
+        for name, v in values.items():
+            ok = np.flatnonzero(np.isfinite(v))
+            if ok.size:
+                self.last[name] = float(v[ok[-1]])
+
+    def finish(self) -> Reevaluation:
+        """The silence after the last sample judged, and the transitions taken from the engine."""
+        if self.end_t is not None:
+            self.engine.tick(self.end_t + GAP_S)
+        self.transitions = list(self.engine.transitions)
+        return self
+
 
 def profiles_from_log(reader: LogReader) -> tuple[SiteProfile, Schedule | None]:
     """The site profile and schedule the firing was recorded with (as stored in the log)."""
@@ -153,19 +172,10 @@ def _from_kept(reader: LogReader, site: SiteProfile, schedule: Schedule | None) 
             upto = int(np.searchsorted(malformed, times[-1], side="right")) if a + _SAMPLES_PER_BATCH <= hi else malformed.size
             engine.evaluate(times, values, status, malformed[taken:upto].tolist())
             taken = upto
-            result.samples += int(times.size)
-            result.start_t = float(times[0]) if result.start_t is None else result.start_t
-            result.end_t = float(times[-1])
-            for name, v in values.items():
-                ok = np.flatnonzero(np.isfinite(v))
-                if ok.size:
-                    result.last[name] = float(v[ok[-1]])
+            result.add(times, values)
     if taken < malformed.size:
         engine.evaluate(np.empty(0), {}, {}, malformed[taken:].tolist())
-    if result.end_t is not None:
-        engine.tick(result.end_t + GAP_S)
-    result.transitions = list(engine.transitions)
-    return result
+    return result.finish()
 
 
 def _from_raw(reader: LogReader, site: SiteProfile, schedule: Schedule | None) -> Reevaluation:
@@ -185,21 +195,11 @@ def _from_raw(reader: LogReader, site: SiteProfile, schedule: Schedule | None) -
         if clock == "device" and batch.samples:
             offset = batch.samples[-1][1] - batch.samples[-1][2]
             malformed_t = [t + offset for t in malformed_t]
-        engine.evaluate(batch.times, batch.values, batch.status, malformed_t)
+        times = batch.times
+        engine.evaluate(times, batch.values, batch.status, malformed_t)
         result.malformed += batch.malformed
-        result.samples += len(batch.samples)
-        if batch.samples:
-            t = batch.times
-            result.start_t = float(t[0]) if result.start_t is None else result.start_t
-            result.end_t = float(t[-1])
-            for name, values in batch.values.items():
-                ok = np.isfinite(values)
-                if ok.any():
-                    result.last[name] = float(values[ok][-1])
-    if result.end_t is not None:
-        engine.tick(result.end_t + GAP_S)
-    result.transitions = list(engine.transitions)
-    return result
+        result.add(times, batch.values)
+    return result.finish()
 
 
 def alarm_summary(result: Reevaluation) -> list[dict[str, Any]]:
