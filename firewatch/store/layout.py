@@ -19,6 +19,7 @@ docs/log-format.md explains the choices with the measurements behind them.
 
 from __future__ import annotations
 
+import itertools
 import json
 import sqlite3
 import zlib
@@ -28,7 +29,7 @@ import numpy as np
 
 __all__ = [
     "CHARTED_SUFFIX", "COMPACT_VERSION", "MEASURED_KINDS", "STEP_KIND", "STEP_S", "RAW_BLOCK_LINES", "is_compact", "column", "step_column", "write_views",
-    "pack_raw", "unpack_raw", "status_runs",
+    "pack_raw", "insert_raw_blocks", "unpack_raw", "status_runs",
 ]
 
 COMPACT_VERSION = 3
@@ -129,6 +130,17 @@ def pack_raw(rows: Iterable[tuple[int, float, bytes, int, str | None]]) -> tuple
         zlib.compress(received.tobytes(), 6), zlib.compress(ok.tobytes(), 6), zlib.compress(lengths.tobytes(), 6),
         len(text), zlib.compress(text, 6), json.dumps(reasons) if reasons else None,
     )
+
+
+def insert_raw_blocks(con: sqlite3.Connection, rows: list[tuple[int, float, bytes, int, str | None, int]]) -> None:
+    """Raw lines ``(id, received_utc, line, ok, reason, session_id)``, in id order, into ``raw_block``: one block per
+    session among them (inside the caller's transaction)."""
+    for session, group in itertools.groupby(rows, key=lambda r: r[5]):
+        con.execute(
+            "INSERT INTO raw_block(id, last_id, n, bad, received, ok, lengths, size, lines, reasons, session_id) "
+            "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            (*pack_raw(r[:5] for r in group), session),
+        )
 
 
 def unpack_raw(first_id: int, received: bytes, ok: bytes, lengths: bytes, lines: bytes, reasons: str | None

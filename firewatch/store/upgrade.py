@@ -25,8 +25,8 @@ from firewatch.store.layout import (
     STEP_KIND,
     STEP_S,
     column,
+    insert_raw_blocks,
     is_compact,
-    pack_raw,
     status_runs,
     step_column,
     write_views,
@@ -185,13 +185,7 @@ def _convert(src: sqlite3.Connection, dst: sqlite3.Connection, version: int) -> 
         if not rows:
             break
         after = rows[-1][0]
-        start = 0
-        for i in range(1, len(rows) + 1):  # one block per session
-            if i == len(rows) or rows[i][5] != rows[start][5]:
-                part = rows[start:i]
-                dst.execute("INSERT INTO raw_block(id, last_id, n, bad, received, ok, lengths, size, lines, reasons, session_id) "
-                            "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)", (*pack_raw(r[:5] for r in part), part[0][5]))
-                start = i
+        insert_raw_blocks(dst, rows)
         lines += len(rows)
     for table, cols in (("event", "id, t, kind, channel, detail"), ("gap", "id, start_t, end_t, reason"),
                         ("alarm", "id, kind, channel, cause, priority, raised_t, cleared_t, state, message, evidence"),

@@ -68,8 +68,8 @@ from firewatch.store.layout import (
     STEP_KIND,
     STEP_S,
     column,
+    insert_raw_blocks,
     is_compact,
-    pack_raw,
     status_runs,
     step_column,
     write_views,
@@ -583,12 +583,7 @@ class LogWriter:
         if lo is None or hi - lo + 1 < max(at_least, 1):
             return
         rows = self.con.execute("SELECT id, received_utc, line, ok, reason, session_id FROM raw_line ORDER BY id").fetchall()
-        for session, group in itertools.groupby(rows, key=lambda r: r[5]):
-            self.con.execute(
-                "INSERT INTO raw_block(id, last_id, n, bad, received, ok, lengths, size, lines, reasons, session_id) "
-                "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                (*pack_raw(r[:5] for r in group), session),
-            )
+        insert_raw_blocks(self.con, rows)
         self.con.execute("DELETE FROM raw_line WHERE id <= ?", (rows[-1][0],))
 
     def _write_minutes(self, times: np.ndarray, batch: Batch) -> None:
